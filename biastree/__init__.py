@@ -1,0 +1,66 @@
+"""biastree: plan and audit the bias-current distribution tree of a chip.
+
+Results are design estimates; sign-off belongs to the foundry's device
+models and transistor-level simulation.
+
+>>> import biastree
+>>> result = biastree.check("samples/bipolar_small.yaml")
+>>> result.summary()["loads"]
+10
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Union
+
+from .audit import Audit, audit
+from .errors import BiasTreeError, PlanError, Problem, RenderError, SimulatorError, SolveError
+from .plan import Plan
+from .solve import OperatingPoint, solve
+from .tree import Tree, build
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "Audit",
+    "BiasTreeError",
+    "OperatingPoint",
+    "Plan",
+    "PlanError",
+    "Problem",
+    "RenderError",
+    "SimulatorError",
+    "SolveError",
+    "Tree",
+    "audit",
+    "build",
+    "check",
+    "load",
+    "loads",
+    "solve",
+]
+
+
+def loads(text: str, source: str = "plan", fmt: str = "yaml") -> Tree:
+    """Validate plan text (YAML or JSON) and build its tree; raises ``PlanError``."""
+    from .loader import parse_text, validate
+
+    doc = parse_text(text, source, fmt)
+    plan = validate(doc)
+    return build(plan, doc.line_of, doc.source)
+
+
+def load(path: Union[str, Path]) -> Tree:
+    """Read, validate and build the tree of a plan file; raises ``PlanError``."""
+    from .loader import load_document, validate
+
+    doc = load_document(path)
+    plan = validate(doc)
+    return build(plan, doc.line_of, doc.source)
+
+
+def check(path_or_tree: Union[str, Path, Tree]) -> Audit:
+    """Load (if given a path), solve and audit a plan in one call."""
+    tree = path_or_tree if isinstance(path_or_tree, Tree) else load(path_or_tree)
+    return audit(solve(tree))

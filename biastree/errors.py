@@ -1,0 +1,52 @@
+"""biastree's own exception hierarchy.
+
+Every error a user can cause is a ``BiasTreeError``; the CLI turns it into one
+clean message per problem and exit status 2.  Anything else is a bug.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+
+class BiasTreeError(Exception):
+    """Base class of every error biastree raises on purpose."""
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One thing wrong with a plan, with the place it was found."""
+
+    path: str  # key path such as "mirrors.m_top.branches[1].ratio"; "" = whole file
+    message: str
+    line: int | None = None
+
+    def format(self, source: str | None = None) -> str:
+        where = source or "plan"
+        if self.line is not None:
+            where = f"{where}:{self.line}"
+        return f"{where}: {self.path}: {self.message}" if self.path else f"{where}: {self.message}"
+
+
+class PlanError(BiasTreeError):
+    """A plan is invalid.  Holds every problem found, not just the first."""
+
+    def __init__(self, problems: list[Problem], source: str | None = None) -> None:
+        self.problems = list(problems)
+        self.source = source
+        super().__init__("\n".join(p.format(source) for p in self.problems))
+
+    def lines(self) -> list[str]:
+        return [p.format(self.source) for p in self.problems]
+
+
+class SolveError(BiasTreeError):
+    """The operating point could not be found (e.g. the iteration diverged)."""
+
+
+class SimulatorError(BiasTreeError):
+    """The external circuit simulator is missing, failed, or returned nonsense."""
+
+
+class RenderError(BiasTreeError):
+    """A diagram could not be rendered (e.g. the Graphviz `dot` program is missing)."""

@@ -1,0 +1,289 @@
+"""Read a plan file (YAML or JSON) into a validated ``Plan``.
+
+A pipeline of small steps: read text → parse to plain data (keeping the
+YAML node tree for line numbers) → validate with the pydantic models →
+check the tree's structure.  Every problem found is collected and raised
+together as one ``PlanError``; the file itself is only ever read.
+"""
+
+from __future__ import annotations
+
+import difflib
+import json
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Union, get_args, get_origin
+
+import yaml
+from pydantic import BaseModel, ValidationError
+
+from .errors import PlanError, Problem
+from .plan import BjtModel, MosModel, Plan
+
+_Loader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
+_constructor = yaml.constructor.SafeConstructor()
+
+
+@dataclass
+class Document:
+    """Plain data of a plan file plus what is needed to find lines in it."""
+
+    data: Any
+    text: str
+    source: str
+    _root: yaml.Node | None = None
+    _composed: bool = False
+
+    def line_of(self, path: tuple[Any, ...]) -> int | None:
+        """1-based line of the deepest node on ``path`` that exists in the file."""
+        if not self._composed:
+            self._composed = True
+            try:
+                self._root = yaml.compose(self.text, Loader=_Loader)
+            except yaml.YAMLError:
+                self._root = None
+        node, line = self._root, None
+        if node is None:
+            return None
+        line = node.start_mark.line + 1
+        for key in path:
+            if isinstance(node, yaml.MappingNode):
+                for k, v in node.value:
+                    if isinstance(k, yaml.ScalarNode) and k.value == str(key):
+                        line = k.start_mark.line + 1
+                        node = v
+                        break
+                else:
+                    return line
+            elif isinstance(node, yaml.SequenceNode) and isinstance(key, int) and 0 <= key < len(node.value):
+                node = node.value[key]
+                line = node.start_mark.line + 1
+            else:
+                return line
+        return line
+
+
+def format_path(path: tuple[Any, ...]) -> str:
+    """('mirrors', 'm', 'branches', 1, 'ratio') → 'mirrors.m.branches[1].ratio'."""
+    out = ""
+    for key in path:
+        if isinstance(key, int):
+            out += f"[{key}]"
+        else:
+            out += f".{key}" if out else str(key)
+    return out
+
+
+# --- step 1: text → plain data ----------------------------------------------
+
+
+def _plain(node: yaml.Node, path: tuple[Any, ...], problems: list[Problem]) -> Any:
+    """Node tree → Python data, avoiding YAML 1.1 surprises.
+
+    Keys stay strings (a load called ``no`` or ``on`` is not a boolean),
+    ``yes``/``no``/``on``/``off`` values stay strings, and numbers like
+    ``1e-17`` that YAML 1.1 leaves as strings are parsed later by the unit
+    parser like any other quantity.  Duplicate keys are errors.
+    """
+    if isinstance(node, yaml.MappingNode):
+        out: dict[str, Any] = {}
+        for key_node, value_node in node.value:
+            if not isinstance(key_node, yaml.ScalarNode):
+                problems.append(Problem(format_path(path), "keys must be plain names", key_node.start_mark.line + 1))
+                continue
+            key = key_node.value
+            if key in out:
+                problems.append(
+                    Problem(format_path(path + (key,)), "duplicate key (each name may appear once)", key_node.start_mark.line + 1)
+                )
+                continue
+            out[key] = _plain(value_node, path + (key,), problems)
+        return out
+    if isinstance(node, yaml.SequenceNode):
+        return [_plain(v, path + (i,), problems) for i, v in enumerate(node.value)]
+    tag = node.tag.rsplit(":", 1)[-1]
+    if tag == "int":
+        return _constructor.construct_yaml_int(node)
+    if tag == "float":
+        return _constructor.construct_yaml_float(node)
+    if tag == "null":
+        return None
+    if tag == "bool" and node.value.lower() in ("true", "false"):
+        return node.value.lower() == "true"
+    return node.value
+
+
+def _reject_duplicates(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    for key, value in pairs:
+        if key in out:
+            raise ValueError(f"duplicate key '{key}'")
+        out[key] = value
+    return out
+
+
+def parse_text(text: str, source: str = "plan", fmt: str | None = None) -> Document:
+    """Parse plan text (YAML, or JSON when ``fmt == 'json'``) to plain data."""
+    problems: list[Problem] = []
+    if fmt == "json":
+        try:
+            data = json.loads(text, object_pairs_hook=_reject_duplicates)
+        except json.JSONDecodeError as exc:
+            raise PlanError([Problem("", f"JSON syntax error: {exc.msg} (column {exc.colno})", exc.lineno)], source) from None
+        except ValueError as exc:
+            raise PlanError([Problem("", f"JSON: {exc}")], source) from None
+        doc = Document(data, text, source)
+    else:
+        try:
+            root = yaml.compose(text, Loader=_Loader)
+        except yaml.YAMLError as exc:
+            mark = getattr(exc, "problem_mark", None)
+            what = getattr(exc, "problem", None) or str(exc)
+            line = mark.line + 1 if mark is not None else None
+            raise PlanError([Problem("", f"YAML syntax error: {what}", line)], source) from None
+        data = _plain(root, (), problems) if root is not None else None
+        doc = Document(data, text, source, root, True)
+    if problems:
+        raise PlanError(problems, source)
+    if not isinstance(doc.data, dict):
+        raise PlanError([Problem("", "a plan must be a mapping of keys (title, supply, devices, reference, mirrors, loads)", 1)], source)
+    return doc
+
+
+# --- step 2: plain data → Plan --------------------------------------------
+
+
+def _fields_at(path: tuple[Any, ...], model: Any = Plan) -> set[str] | None:
+    """Allowed keys of the model that sits at ``path`` (None if unknown)."""
+    current: Any = model
+    for key in path:
+        origin = get_origin(current)
+        if isinstance(current, type) and issubclass(current, BaseModel):
+            field = current.model_fields.get(key) or next(
+                (f for f in current.model_fields.values() if f.alias == key), None
+            )
+            if field is None:
+                return None
+            current = field.annotation
+        elif origin is dict:
+            current = get_args(current)[1]
+        elif origin is list:
+            current = get_args(current)[0]
+        else:
+            return None
+        current = _unwrap(current)
+    if isinstance(current, type) and issubclass(current, BaseModel):
+        return {f.alias or n for n, f in current.model_fields.items()}
+    return None
+
+
+def _unwrap(tp: Any) -> Any:
+    # Annotated[X, ...] → X;  Union[Bjt, Mos] (the device union) → stays a union
+    while get_origin(tp) is not None and hasattr(tp, "__metadata__"):
+        tp = get_args(tp)[0]
+    return tp
+
+
+def _device_fields(kind: str) -> set[str]:
+    model = BjtModel if kind in ("npn", "pnp") else MosModel
+    return {f.alias or n for n, f in model.model_fields.items()}
+
+
+_MESSAGES = {
+    "missing": "required key is missing",
+    "greater_than": "must be > {gt}",
+    "greater_than_equal": "must be ≥ {ge}",
+    "too_short": "must not be empty",
+    "int_parsing": "must be a whole number",
+    "int_from_float": "must be a whole number",
+    "int_type": "must be a whole number",
+    "dict_type": "must be a mapping of keys",
+    "list_type": "must be a list",
+    "string_type": "must be text",
+    "float_type": "must be a number",
+    "tuple_type": "must be a value or a [min, max] pair",
+}
+
+
+def _describe(err: dict[str, Any], data: Any) -> tuple[tuple[Any, ...], str]:
+    """Turn one pydantic error into (path, message) in our words."""
+    loc = tuple(err["loc"])
+    kind = err["type"]
+    # The discriminated device union puts the tag into the path: drop it.
+    if len(loc) >= 3 and loc[0] == "devices" and loc[2] in ("npn", "pnp", "nmos", "pmos"):
+        loc = loc[:2] + loc[3:]
+    # A [min, max] voltage that failed both union members: report it once.
+    if "voltage" in loc:
+        i = loc.index("voltage")
+        if len(loc) > i + 1 and loc[i + 1] in ("float", "tuple[float, float]") or (
+            len(loc) > i + 1 and isinstance(loc[i + 1], str) and loc[i + 1].startswith(("function-", "tuple"))
+        ):
+            loc = loc[: i + 1] + tuple(k for k in loc[i + 2:] if isinstance(k, int))
+    if kind == "extra_forbidden":
+        key = loc[-1]
+        parent = loc[:-1]
+        allowed = _fields_at(parent)
+        if allowed is None and len(parent) == 2 and parent[0] == "devices":
+            dev = data.get("devices", {}).get(parent[1], {})
+            kind_name = dev.get("kind") if isinstance(dev, dict) else None
+            if kind_name in ("npn", "pnp", "nmos", "pmos"):
+                allowed = _device_fields(kind_name)
+                other = _device_fields("nmos" if kind_name in ("npn", "pnp") else "npn") - allowed
+                if key in other:
+                    return loc, f"'{key}' is a parameter of {'MOS' if kind_name in ('npn', 'pnp') else 'bipolar'} devices, not of a {kind_name}"
+        message = "unknown key"
+        if allowed:
+            close = difflib.get_close_matches(str(key), sorted(allowed), n=1, cutoff=0.6)
+            message += f" (did you mean '{close[0]}'?)" if close else f"; allowed: {', '.join(sorted(allowed))}"
+        return loc, message
+    if kind == "union_tag_invalid":
+        return loc + ("kind",), "must be one of npn, pnp, nmos, pmos"
+    if kind == "union_tag_not_found":
+        return loc + ("kind",), "required key is missing (npn, pnp, nmos or pmos)"
+    if kind == "literal_error":
+        return loc, f"must be one of {err['ctx'].get('expected', '')}"
+    if kind == "value_error":
+        return loc, str(err["ctx"]["error"])
+    template = _MESSAGES.get(kind)
+    if template:
+        return loc, template.format(**err.get("ctx", {}))
+    return loc, err["msg"]
+
+
+def validate(doc: Document) -> Plan:
+    """Validate plain data against the plan models; all problems at once."""
+    try:
+        return Plan.model_validate(doc.data)
+    except ValidationError as exc:
+        problems = []
+        seen = set()
+        for err in exc.errors(include_url=False):
+            loc, message = _describe(err, doc.data)
+            key = (loc, message)
+            if key in seen:
+                continue
+            seen.add(key)
+            problems.append(Problem(format_path(loc), message, doc.line_of(loc)))
+        raise PlanError(problems, doc.source) from None
+
+
+# --- the whole pipeline ----------------------------------------------------
+
+
+def read_text(path: Path) -> str:
+    try:
+        return path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise PlanError([Problem("", "file not found")], str(path)) from None
+    except IsADirectoryError:
+        raise PlanError([Problem("", "is a folder, not a plan file")], str(path)) from None
+    except UnicodeDecodeError as exc:
+        raise PlanError([Problem("", f"not UTF-8 text ({exc.reason} at byte {exc.start})")], str(path)) from None
+    except OSError as exc:
+        raise PlanError([Problem("", f"cannot read: {exc.strerror}")], str(path)) from None
+
+
+def load_document(path: Union[str, Path]) -> Document:
+    path = Path(path)
+    fmt = "json" if path.suffix.lower() == ".json" else "yaml"
+    return parse_text(read_text(path), str(path), fmt)

@@ -1,0 +1,182 @@
+"""SI quantities: parse once at the input edge, format only in exporters.
+
+Everything inside biastree is a plain float in SI base units (A, V, K, m,
+A/V^2, 1/V, fractions for percentages).  This module is the only place that
+knows about prefixes and unit symbols.
+
+>>> parse_quantity("10uA", "A")
+1e-05
+>>> parse_quantity("1%", "%")
+0.01
+>>> format_si(9.87e-6, "A")
+'9.87 µA'
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from decimal import Decimal
+
+# One table of SI prefixes.  'M' is mega as in SI (not milli as in SPICE);
+# 'meg' is accepted too because SPICE users type it by habit.
+# Stored as powers of ten so that '10uA' parses to exactly the float 1e-05.
+PREFIXES: dict[str, int] = {
+    "a": -18,
+    "f": -15,
+    "p": -12,
+    "n": -9,
+    "u": -6,
+    "µ": -6,
+    "μ": -6,
+    "m": -3,
+    "": 0,
+    "k": 3,
+    "meg": 6,
+    "M": 6,
+    "G": 9,
+    "T": 12,
+}
+
+ZERO_CELSIUS = 273.15  # K
+
+# Unit symbols a field may carry, by the field's quantity.  The first entry is
+# the canonical symbol used for display.
+UNIT_SYMBOLS: dict[str, tuple[str, ...]] = {
+    "A": ("A",),
+    "V": ("V",),
+    "m": ("m",),
+    "A/V^2": ("A/V^2", "A/V2", "A/V²"),
+    "1/V": ("1/V", "/V", "V^-1"),
+    "%": ("%",),  # a fraction; also 'ppm'
+    "ohm": ("ohm", "Ohm", "Ω"),
+    "1": (),  # dimensionless
+    "C": ("C",),  # temperature: °C or K, stored in K
+    "V/K": ("V/K", "V/C"),
+    "1/K": ("1/K", "/K", "1/C", "/C"),
+    "eV": ("eV",),
+}
+
+_NUMBER = re.compile(r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*(.*?)\s*$")
+
+
+class UnitError(ValueError):
+    """A quantity could not be read, or carries the wrong unit."""
+
+
+def _split(text: str) -> tuple[str, str]:
+    match = _NUMBER.match(text)
+    if not match:
+        raise UnitError(f"'{text}' is not a number")
+    return match.group(1), match.group(2)
+
+
+def _scaled(number: str, power: int) -> float:
+    # Shift the decimal exponent in text so the result is correctly rounded.
+    return float(f"{number}e{power}") if "e" not in number.lower() else float(
+        Decimal(number).scaleb(power))
+
+
+def _prefix_value(prefix: str, text: str, unit: str) -> int:
+    if prefix in PREFIXES:
+        return PREFIXES[prefix]
+    if prefix.lower() == "meg":
+        return 6
+    expected = f"a value in {unit}" if unit != "1" else "a plain number"
+    raise UnitError(f"'{text}' is not {expected} (unknown unit or prefix '{prefix}')")
+
+
+def parse_quantity(value: object, unit: str) -> float:
+    """Read ``value`` (number or string such as ``'10uA'``) as a float in SI units.
+
+    ``unit`` names the quantity the field holds (a key of ``UNIT_SYMBOLS``).
+    Plain numbers are taken as SI already (a percentage field takes a fraction).
+
+    >>> parse_quantity("2.5meg", "ohm")
+    2500000.0
+    >>> parse_quantity(1e-17, "A")
+    1e-17
+    """
+    if isinstance(value, bool):
+        raise UnitError(f"'{value}' is a boolean, not a quantity")
+    if isinstance(value, (int, float)):
+        number = float(value)
+        if unit == "C":
+            return number + ZERO_CELSIUS
+        return _finite(number, str(value))
+    if not isinstance(value, str):
+        raise UnitError(f"expected a quantity, got {type(value).__name__}")
+    text = value.strip()
+    number, suffix = _split(text)
+    if unit == "%":
+        if suffix == "%":
+            return _finite(_scaled(number, -2), text)
+        if suffix == "ppm":
+            return _finite(_scaled(number, -6), text)
+        return _finite(_scaled(number, _prefix_value(suffix, text, "%")), text)
+    if unit == "C":
+        return _temperature(number, suffix, text)
+    symbols = UNIT_SYMBOLS[unit]
+    for symbol in sorted(symbols, key=len, reverse=True):
+        if suffix.endswith(symbol):
+            prefix = suffix[: -len(symbol)].strip()
+            return _finite(_scaled(number, _prefix_value(prefix, text, unit)), text)
+    for other, other_symbols in UNIT_SYMBOLS.items():
+        if other != unit and any(suffix.endswith(s) and s for s in other_symbols):
+            if other in ("m",) and suffix in PREFIXES:
+                break  # '1m' in a current field is 1 mA, not a length
+            shown = symbols[0] if symbols else "no unit"
+            raise UnitError(f"'{text}' has unit {other}, expected {shown}")
+    return _finite(_scaled(number, _prefix_value(suffix, text, unit)), text)
+
+
+def _temperature(number_text: str, suffix: str, text: str) -> float:
+    number = float(number_text)
+    if suffix in ("", "C", "°C", "degC"):
+        kelvin = number + ZERO_CELSIUS
+    elif suffix == "K":
+        kelvin = number
+    else:
+        raise UnitError(f"'{text}' is not a temperature (use 27C or 300K)")
+    if kelvin <= 0:
+        raise UnitError(f"'{text}' is below absolute zero")
+    return kelvin
+
+
+def _finite(number: float, text: str) -> float:
+    if not math.isfinite(number):
+        raise UnitError(f"'{text}' is not a finite number")
+    return number
+
+
+def format_si(value: float, unit: str = "", digits: int = 3) -> str:
+    """Engineering notation with an SI prefix, for display only.
+
+    >>> format_si(4.0e-5, "A")
+    '40 µA'
+    >>> format_si(-0.0123, "V")
+    '-12.3 mV'
+    """
+    if value is None or not math.isfinite(value):
+        return f"{value} {unit}".strip()
+    if value == 0:
+        return f"0 {unit}".strip()
+    exponent = int(math.floor(math.log10(abs(value)) / 3) * 3)
+    exponent = max(-18, min(12, exponent))
+    scaled = value / 10**exponent
+    text = f"{scaled:.{digits}g}"
+    if abs(float(text)) >= 1000 and exponent < 12:  # rounding carried over
+        exponent += 3
+        text = f"{value / 10**exponent:.{digits}g}"
+    prefix = {-18: "a", -15: "f", -12: "p", -9: "n", -6: "µ", -3: "m", 0: "",
+              3: "k", 6: "M", 9: "G", 12: "T"}[exponent]
+    return f"{text} {prefix}{unit}".strip()
+
+
+def format_percent(fraction: float, digits: int = 3) -> str:
+    """A fraction as a percentage with sign: ``-0.0198 -> '-1.98 %'``."""
+    return f"{fraction * 100:+.{digits}g} %"
+
+
+def kelvin_to_celsius(kelvin: float) -> float:
+    return kelvin - ZERO_CELSIUS
