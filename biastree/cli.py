@@ -1,0 +1,159 @@
+"""Command line: a thin layer over the library.
+
+Exit status: 0 every load passes (or the command succeeded), 1 some load
+fails its budget (or the simulator disagrees), 2 invalid input or usage,
+3 an internal error (a bug in biastree; please report it).
+"""
+
+from __future__ import annotations
+
+import functools
+import os
+import sys
+from enum import Enum
+from pathlib import Path
+from typing import Annotated, Callable, Optional, TypeVar
+
+import typer
+
+import biastree
+
+from .errors import BiasTreeError, PlanError
+
+app = typer.Typer(
+    add_completion=False,
+    no_args_is_help=True,
+    help="Plan and audit the bias-current tree of a chip. Results are design estimates.",
+)
+
+F = TypeVar("F", bound=Callable[..., object])
+
+PlanArg = Annotated[Path, typer.Argument(help="plan file (.yaml, .yml or .json)", show_default=False)]
+
+
+def _fail(lines: list[str]) -> None:
+    for line in lines:
+        typer.echo(f"error: {line}", err=True)
+    raise typer.Exit(2)
+
+
+def guarded(fn: F) -> F:
+    """Map our errors to clean messages and exit 2; never show a traceback."""
+
+    @functools.wraps(fn)
+    def wrapper(*args: object, **kwargs: object) -> object:
+        try:
+            return fn(*args, **kwargs)
+        except PlanError as exc:
+            _fail(exc.lines())
+        except BiasTreeError as exc:
+            _fail(str(exc).splitlines() or [type(exc).__name__])
+        except (typer.Exit, typer.Abort, SystemExit):
+            raise
+        except Exception as exc:  # a bug: say so in one line unless debugging
+            if os.environ.get("BIASTREE_DEBUG"):
+                raise
+            typer.echo(f"internal error (a bug in biastree, please report): {type(exc).__name__}: {exc}", err=True)
+            raise typer.Exit(3) from None
+        return None
+
+    return wrapper  # type: ignore[return-value]
+
+
+def _emit(text: str, output: Optional[Path]) -> None:
+    if output is None or str(output) == "-":
+        sys.stdout.write(text)
+    else:
+        from .files import write_atomic
+
+        write_atomic(output, text)
+
+
+def _load(plan: Path, forward_bias: Optional[str] = None) -> biastree.Tree:
+    tree = biastree.load(plan)
+    if forward_bias is not None:
+        from .plan import Compliance
+        from .units import UnitError, parse_quantity
+
+        try:
+            value = parse_quantity(forward_bias, "V")
+        except UnitError as exc:
+            raise BiasTreeError(f"--forward-bias: {exc}") from None
+        if value < 0:
+            raise BiasTreeError("--forward-bias: must be ≥ 0 V")
+        new = tree.plan.model_copy(update={"compliance": Compliance(bjt_forward_bias=value)})
+        tree = biastree.build(new, source=str(plan))
+    return tree
+
+
+@app.command()
+@guarded
+def check(
+    plan: PlanArg,
+    json: Annotated[bool, typer.Option("--json", help="print the results as JSON (schemas/results.schema.json)")] = False,
+    failing: Annotated[bool, typer.Option("--failing", help="list only the loads that fail")] = False,
+    forward_bias: Annotated[
+        Optional[str], typer.Option(help="allow this much BJT base-collector forward bias, e.g. 0.3V")
+    ] = None,
+    output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file instead of stdout")] = None,
+) -> None:
+    """Solve the plan and audit every load against its budget (exit 1 if any fails)."""
+    result = biastree.audit(biastree.solve(_load(plan, forward_bias)))
+    if json:
+        from .export.json import to_json
+
+        _emit(to_json(result), output)
+    else:
+        from .export.table import to_table
+
+        _emit(to_table(result, failing_only=failing), output)
+    raise typer.Exit(0 if bool(result.passed.all()) else 1)
+
+
+class SchemaKind(str, Enum):
+    plan = "plan"
+    results = "results"
+
+
+@app.command()
+@guarded
+def schema(
+    which: Annotated[SchemaKind, typer.Argument(help="plan or results")] = SchemaKind.plan,
+    output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file")] = None,
+) -> None:
+    """Print the JSON Schema of the plan file (or of the JSON results)."""
+    from .results import schema_text
+
+    _emit(schema_text(which.value), output)
+
+
+class PlanFormat(str, Enum):
+    yaml = "yaml"
+    json = "json"
+
+
+@app.command()
+@guarded
+def generate(
+    loads: Annotated[int, typer.Argument(help="number of loads", min=1)],
+    output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file")] = None,
+    seed: Annotated[int, typer.Option(help="random seed (same seed, same plan)")] = 1,
+    fmt: Annotated[PlanFormat, typer.Option("--format", help="yaml or json")] = PlanFormat.yaml,
+) -> None:
+    """Write a random valid plan of N loads (invented data, for scale tests)."""
+    from .generate import random_plan, to_text
+
+    _emit(to_text(random_plan(loads, seed=seed), fmt.value), output)
+
+
+@app.command()
+def topologies() -> None:
+    """List the mirror topologies and the devices they work with."""
+    from .topologies import TOPOLOGIES
+
+    for topo in TOPOLOGIES.values():
+        typer.echo(f"{topo.name:12s} {'/'.join(sorted(topo.kinds)):8s} {topo.summary}")
+
+
+def main() -> None:
+    app(prog_name="biastree")

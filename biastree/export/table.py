@@ -1,0 +1,76 @@
+"""Plain-text load table and summary for the terminal."""
+
+from __future__ import annotations
+
+from ..audit import Audit
+from ..units import format_si
+
+
+def _pct(x: float) -> str:
+    return f"{x * 100:+.2f}%"
+
+
+def to_table(result: Audit, failing_only: bool = False) -> str:
+    """One row per load: path, target, delivered, error, budget, margin, compliance, verdict."""
+    tree = result.tree
+    plan = tree.plan
+    header = ("load", "×", "path", "target", "delivered", "error", "range", "budget", "margin", "compl.", "verdict")
+    rows = []
+    for i, name in enumerate(tree.loads):
+        ok = bool(result.passed[i])
+        if failing_only and ok:
+            continue
+        path = " > ".join(tree.mirrors[m] for m in tree.path(i))
+        lo, hi = result.error[i, 0], result.error[i, 2]
+        span = "" if not isinstance(plan.loads[name].voltage, tuple) else f"{_pct(lo)}..{_pct(hi)}"
+        rows.append(
+            (
+                name,
+                str(int(tree.l_mult[i])),
+                path,
+                format_si(result.target[i], "A"),
+                format_si(result.delivered[i, 1], "A", 4),
+                _pct(result.error[i, 1]),
+                span,
+                f"±{result.tolerance[i] * 100:.3g}%",
+                _pct(result.margin[i]),
+                format_si(result.compliance[i], "V"),
+                "pass" if ok else "FAIL",
+            )
+        )
+    widths = [max(len(h), *(len(r[k]) for r in rows)) if rows else len(h) for k, h in enumerate(header)]
+    right = {1, 3, 4, 5, 6, 7, 8, 9}
+
+    def line(cells: tuple[str, ...]) -> str:
+        return "  ".join(c.rjust(w) if k in right else c.ljust(w) for k, (c, w) in enumerate(zip(cells, widths))).rstrip()
+
+    out = [line(header), line(tuple("-" * w for w in widths))]
+    out += [line(r) for r in rows]
+    failing = [i for i in range(len(tree.loads)) if not result.passed[i]]
+    if failing:
+        out.append("")
+        out.append("Why loads fail:")
+        for i in failing:
+            for reason in result.reasons(i):
+                out.append(f"  {tree.loads[i]}: {reason}")
+    out.append("")
+    out.append(to_summary(result))
+    return "\n".join(out) + "\n"
+
+
+def to_summary(result: Audit) -> str:
+    s = result.summary()
+    plan = result.tree.plan
+    lines = [
+        f"{plan.title or 'plan'}: {s['passed']} of {s['loads']} loads pass"
+        + (f", {s['failed']} FAIL" if s["failed"] else "")
+        + f" ({s['instances']} instances)",
+        f"reference {format_si(s['reference_current'], 'A')} ±{result.reference_tolerance * 100:.3g}%, "
+        f"supply {format_si(plan.supply, 'V')}, {plan.temperature - 273.15:.4g} °C",
+        f"delivered {format_si(s['delivered_current'], 'A')}; overhead {format_si(s['overhead_current'], 'A')} "
+        f"({format_si(s['overhead_power'], 'W')}); total {format_si(s['supply_power'], 'W')}",
+        f"devices: {s['device_units']:.6g} unit devices"
+        + (f", MOS gate area {s['mos_gate_area'] * 1e12:.6g} µm²" if s["mos_units"] else ""),
+        "Design estimates: sign-off belongs to foundry models and transistor-level simulation.",
+    ]
+    return "\n".join(lines)

@@ -1,0 +1,26 @@
+"""Writing outputs whole or not at all."""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+
+from .errors import BiasTreeError
+
+
+def write_atomic(path: str | Path, data: str | bytes) -> None:
+    """Write ``data`` to ``path`` through a temporary file in the same folder,
+    so a reader never sees a half-written file and a failure leaves no trace."""
+    path = Path(path)
+    folder = path.parent if str(path.parent) else Path(".")
+    if not folder.is_dir():
+        raise BiasTreeError(f"{path}: folder {folder} does not exist")
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=folder)
+    try:
+        with os.fdopen(fd, "wb") as handle:
+            handle.write(data.encode("utf-8") if isinstance(data, str) else data)
+        os.replace(tmp, path)
+    except OSError as exc:
+        Path(tmp).unlink(missing_ok=True)
+        raise BiasTreeError(f"{path}: cannot write ({exc.strerror})") from None

@@ -1,0 +1,101 @@
+"""Pydantic models of the JSON results, used to generate and commit the
+results schema.  The audit builds plain dicts for speed; a test validates
+them against the schema generated from these models."""
+
+from __future__ import annotations
+
+import json
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field
+
+
+class _Out(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+
+class Term(_Out):
+    term: str = Field(description="key of the effect: beta, early, lambda, …")
+    label: str = Field(description="name of the effect as shown to a designer")
+    value: float = Field(description="the stage's gain factor for this effect minus one (fraction)")
+
+
+class Stage(_Out):
+    mirror: str = Field(description="mirror of this stage")
+    device: str = Field(description="device model of the mirror")
+    topology: str = Field(description="mirror topology")
+    branch: int = Field(description="index of the branch taken towards the load")
+    ratio: float = Field(description="size ratio of that branch")
+    input_current: float = Field(description="input current of the mirror, A")
+    output_current: float = Field(description="current of one copy of the branch, A")
+    fanout: float = Field(description="Σ ratio·count of the mirror's branches")
+    error: float = Field(description="stage gain / ideal ratio − 1 (product of the terms)")
+    terms: list[Term]
+
+
+class LoadResult(_Out):
+    name: str
+    count: int = Field(description="instances of this load in the expanded tree")
+    path: list[str] = Field(description="reference, mirrors, load")
+    target: float = Field(description="target current of one instance, A")
+    delivered: float = Field(description="current at the nominal voltage (value or middle of the range), A")
+    delivered_range: list[float] = Field(description="current at the [min, max] ends of the voltage range, A")
+    voltage: list[float] = Field(description="node voltage [min, nominal, max], V")
+    error: float = Field(description="delivered / target − 1 at the nominal voltage")
+    error_range: list[float] = Field(description="error at the [min, max] voltage")
+    worst_error: float = Field(description="error of largest magnitude over the range")
+    worst_case: Literal["min", "nominal", "max"]
+    reference_tolerance: float
+    tolerance: float = Field(description="the load's error budget (fraction)")
+    margin: float = Field(description="tolerance − |worst error| − reference tolerance (fraction)")
+    compliance_margin: float = Field(description="smallest voltage margin of the output device over the range, V")
+    verdict: Literal["pass", "fail"]
+    reasons: list[str]
+    plan_error: float = Field(description="error from the ratios alone: ideal current / target − 1")
+    stages: list[Stage] = Field(description="terms of each stage along the path, at the nominal voltage")
+
+
+class Summary(_Out):
+    loads: int
+    instances: int
+    passed: int
+    failed: int
+    reference_current: float
+    overhead_current: float = Field(description="reference plus every branch between mirrors, A")
+    overhead_power: float = Field(description="overhead current × supply, W")
+    delivered_current: float = Field(description="sum over all load instances, A")
+    supply_current: float
+    supply_power: float
+    device_units: float = Field(description="unit devices in all mirrors (sizes × copies)")
+    bipolar_units: float
+    mos_units: float
+    mos_gate_area: float = Field(description="gate area of all MOS mirror devices, m²")
+    reference_headroom: float = Field(description="voltage left across the reference source, V")
+    sweeps: int = Field(description="top-down sweeps the solver needed")
+
+
+class CheckResult(_Out):
+    title: str
+    supply: float
+    temperature: float = Field(description="K")
+    summary: Summary
+    loads: list[LoadResult]
+
+
+def results_schema() -> dict[str, Any]:
+    return CheckResult.model_json_schema()
+
+
+def plan_schema() -> dict[str, Any]:
+    from .plan import Plan
+
+    schema = Plan.model_json_schema(by_alias=True)
+    schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
+    schema["title"] = "biastree plan"
+    return schema
+
+
+def schema_text(which: str) -> str:
+    """The committed text of ``schemas/<which>.schema.json``."""
+    schema = plan_schema() if which == "plan" else results_schema()
+    return json.dumps(schema, indent=2, ensure_ascii=False, sort_keys=False) + "\n"
