@@ -1,0 +1,193 @@
+"""SPICE netlist of a whole bias tree (ngspice dialect).
+
+Replicated branches (``count``) are written once with multiplicity: a
+BJT's ``area`` and a MOSFET's ``m`` scale every current of a copied
+subtree by its number of instances, which by symmetry is exactly what k
+identical copies do.  Each load sits at its node voltage through a 0 V
+ammeter whose current, divided by the load's instances, is the current of
+one instance (positive = delivered); a comment table at the end maps
+ammeters back to loads.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+from typing import Callable
+
+from ..plan import BjtModel, MosModel
+from ..solve import CASES
+from ..tree import Tree
+from ..units import ZERO_CELSIUS
+
+# Tight tolerances: with SPICE's default reltol=1e-3 the KCL residual alone
+# is ~1e-4 of the device currents and would hide real disagreements.  gmin
+# is lowered so the conductance SPICE puts across every junction does not
+# add ~1e-12 S × 0.7 V to sub-µA currents.
+OPTIONS = ".options reltol=1e-7 abstol=1e-16 vntol=1e-10 gmin=1e-18 filetype=ascii"
+MAX_NAME = 24
+
+
+def _num(x: float) -> str:
+    return f"{x:.12g}"
+
+
+class Names:
+    """Plan names → unique, SPICE-safe, case-insensitive names (and back)."""
+
+    def __init__(self) -> None:
+        self._taken: set[str] = set()
+        self.forward: dict[tuple[str, str], str] = {}
+
+    def get(self, kind: str, name: str) -> str:
+        key = (kind, name)
+        if key in self.forward:
+            return self.forward[key]
+        base = re.sub(r"[^a-z0-9_]", "_", name.lower())[:MAX_NAME] or "n"
+        if not base[0].isalpha():
+            base = "n" + base
+        candidate, k = base, 1
+        while candidate in self._taken:
+            k += 1
+            candidate = f"{base}_{k}"
+        self._taken.add(candidate)
+        self.forward[key] = candidate
+        return candidate
+
+
+@dataclass
+class Netlist:
+    """Netlist text plus the map from ammeters to loads."""
+
+    text: str
+    case: str
+    ammeters: dict[str, str] = field(default_factory=dict)  # load name → ammeter source (lower case)
+    instances: dict[str, float] = field(default_factory=dict)  # load name → instances behind the ammeter
+    mirror_nodes: dict[str, str] = field(default_factory=dict)  # mirror name → input node
+
+
+def _model_card(name: str, dev: BjtModel | MosModel, temperature: float) -> str:
+    if isinstance(dev, BjtModel):
+        params = [f"is={_num(dev.is_)}", f"bf={_num(dev.beta)}"]
+        if dev.early is not None:
+            params.append(f"vaf={_num(dev.early)}")
+        params += [f"xti={_num(dev.xti)}", f"eg={_num(dev.eg)}", f"xtb={_num(dev.xtb)}",
+                   f"tnom={_num(dev.tnom - ZERO_CELSIUS)}"]
+        return f".model {name} {dev.kind} ({' '.join(params)})"
+    vto = dev.vth if dev.kind == "nmos" else -dev.vth
+    # MOS parameters are taken as valid at the plan temperature: tnom = temp.
+    params = ["level=1", f"kp={_num(dev.kp)}", f"vto={_num(vto)}", f"lambda={_num(dev.lambda_)}",
+              f"tnom={_num(temperature - ZERO_CELSIUS)}"]
+    return f".model {name} {dev.kind} ({' '.join(params)})"
+
+
+Writer = Callable[["_Context", str], list[str]]
+
+
+@dataclass
+class _Context:
+    tree: Tree
+    names: Names
+    models: dict[str, str]
+    node_of_mirror: dict[str, str]
+    out_node: dict[tuple[str, int], str]
+    mult: dict[str, float]
+
+    def device(self, label: str, mirror: str, c: str, b: str, e: str, size: float, multiplicity: float) -> str:
+        """One device of ``mirror``: size in unit devices, times ``multiplicity`` copies."""
+        plan = self.tree.plan
+        dev = plan.devices[plan.mirrors[mirror].device]
+        model = self.models[plan.mirrors[mirror].device]
+        if isinstance(dev, BjtModel):
+            return f"q{label} {c} {b} {e} {model} area={_num(size * multiplicity)}"
+        return (f"m{label} {c} {b} {e} {e} {model} w={_num(dev.w * size)} l={_num(dev.l)} "
+                f"m={_num(multiplicity)}")
+
+
+def _simple(ctx: _Context, mirror: str) -> list[str]:
+    plan = ctx.tree.plan
+    spec = plan.mirrors[mirror]
+    tag = ctx.names.get("mirror", mirror)
+    rail = "0" if plan.devices[spec.device].kind in ("npn", "nmos") else "vdd"
+    node = ctx.node_of_mirror[mirror]
+    mult = ctx.mult[mirror]
+    lines = [ctx.device(f"{tag}_in", mirror, node, node, rail, spec.input_size, mult)]
+    for i, branch in enumerate(spec.branches):
+        out = ctx.out_node[(mirror, i)]
+        lines.append(ctx.device(f"{tag}_o{i}", mirror, out, node, rail, branch.ratio * spec.input_size,
+                                mult * branch.count))
+    return lines
+
+
+WRITERS: dict[str, Writer] = {"simple": _simple}
+
+
+def to_spice(tree: Tree, case: str = "nominal", source: str | None = None) -> Netlist:
+    """The plan as an ngspice netlist, loads at the ``case`` end of their range.
+
+    ``case`` is one of ``min``, ``nominal``, ``max``.
+    """
+    if case not in CASES:
+        raise ValueError(f"case must be one of {', '.join(CASES)}")
+    column = CASES.index(case)
+    plan = tree.plan
+    names = Names()
+    names.get("node", "vdd")
+    from .. import __version__
+
+    title = (plan.title or "untitled").replace("\n", " ")
+    lines = [
+        f"* biastree {__version__}: bias tree '{title}' from {source or 'a plan'}; load voltages at {case}",
+        "* Design estimate for cross-checking; sign-off needs the foundry's models.",
+        OPTIONS,
+        f".temp {_num(plan.temperature - ZERO_CELSIUS)}",
+    ]
+    models: dict[str, str] = {}
+    for name, dev in plan.devices.items():
+        models[name] = names.get("model", name)
+        lines.append(_model_card(models[name], dev, plan.temperature))
+    lines.append(f"vdd vdd 0 dc {_num(plan.supply)}")
+
+    node_of_mirror = {m: "n_" + names.get("mirror", m) for m in tree.mirrors}
+    mult = {m: float(tree.m_mult[i]) for i, m in enumerate(tree.mirrors)}
+    out_node: dict[tuple[str, int], str] = {}
+    load_lines: list[str] = []
+    ammeters: dict[str, str] = {}
+    instances: dict[str, float] = {}
+    for b in range(len(tree.b_parent)):
+        parent = tree.mirrors[tree.b_parent[b]]
+        index = int(tree.b_index[b])
+        if tree.b_to_load[b]:
+            load = tree.loads[tree.b_child[b]]
+            tag = names.get("load", load)
+            node = f"o_{tag}"
+            out_node[(parent, index)] = node
+            voltage = plan.loads[load].v_range[column]
+            sink = bool(tree.m_sink[tree.b_parent[b]])
+            # ammeter oriented so that the delivered current reads positive
+            a, c = (f"l_{tag}", node) if sink else (node, f"l_{tag}")
+            ammeters[load] = f"va_{tag}"
+            instances[load] = float(tree.l_mult[tree.b_child[b]])
+            load_lines += [f"va_{tag} {a} {c} dc 0", f"vl_{tag} l_{tag} 0 dc {_num(voltage)}"]
+        else:
+            out_node[(parent, index)] = node_of_mirror[tree.mirrors[tree.b_child[b]]]
+
+    root = tree.mirrors[0]
+    root_node = node_of_mirror[root]
+    if tree.m_sink[0]:
+        lines.append(f"iref vdd {root_node} dc {_num(plan.reference.current)}")
+    else:
+        lines.append(f"iref {root_node} 0 dc {_num(plan.reference.current)}")
+    ctx = _Context(tree, names, models, node_of_mirror, out_node, mult)
+    for m in tree.mirrors:
+        spec = plan.mirrors[m]
+        lines.append(f"* mirror {m}: {spec.device} {spec.topology}, ×{mult[m]:g}")
+        lines += WRITERS[spec.topology](ctx, m)
+    lines.append("* loads: ammeter (0 V) then the node voltage")
+    lines += load_lines
+    lines.append(".op")
+    lines.append("* ammeter -> load (instances behind the ammeter)")
+    for load in tree.loads:
+        lines.append(f"*   {ammeters[load]} -> {load} (x{instances[load]:g})")
+    lines.append(".end")
+    return Netlist("\n".join(lines) + "\n", case, ammeters, instances, node_of_mirror)

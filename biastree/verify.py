@@ -1,0 +1,178 @@
+"""Cross-check biastree's currents with the ngspice circuit simulator.
+
+The netlist is written to a temporary folder and ngspice runs there in
+batch mode, without a shell, with a time limit.  The simulator's own words
+are kept: a line starting with ``Error`` or ``Warning`` on either stream, a
+singular matrix, or a missing or incomplete raw file all fail the check,
+even when ngspice exits 0.
+"""
+
+from __future__ import annotations
+
+import math
+import shutil
+import subprocess
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .errors import SimulatorError
+from .export.spice import Netlist, to_spice
+from .solve import CASES, OperatingPoint, solve
+from .tree import Tree
+
+INSTALL_HINT = "ngspice is not installed: install it (Debian/Ubuntu: apt-get install ngspice) and try again"
+_BAD_WORDS = ("singular matrix", "timestep too small", "no convergence", "iteration limit reached", "failed")
+
+
+def find_ngspice() -> str:
+    exe = shutil.which("ngspice")
+    if exe is None:
+        raise SimulatorError(INSTALL_HINT)
+    return exe
+
+
+def parse_raw(text: str) -> list[dict[str, np.ndarray]]:
+    """Plots of an ASCII SPICE raw file: one dict per plot, variable → values.
+
+    >>> raw = ("Title: t\\nPlotname: Operating Point\\nFlags: real\\nNo. Variables: 2\\n"
+    ...        "No. Points: 1\\nVariables:\\n\\t0\\tv(a)\\tvoltage\\n\\t1\\ti(v1)\\tcurrent\\n"
+    ...        "Values:\\n0\\t\\t1.5e+00\\n\\t-2.0e-06\\n")
+    >>> float(parse_raw(raw)[0]["i(v1)"][0])
+    -2e-06
+    """
+    plots = []
+    lines = text.splitlines()
+    i = 0
+    while i < len(lines):
+        header: dict[str, str] = {}
+        while i < len(lines) and not lines[i].startswith("Variables:"):
+            if ":" in lines[i]:
+                key, _, value = lines[i].partition(":")
+                header[key.strip().lower()] = value.strip()
+            i += 1
+        if i >= len(lines):
+            break
+        try:
+            n_vars = int(header["no. variables"])
+            n_points = int(header["no. points"])
+        except (KeyError, ValueError):
+            raise SimulatorError("raw file: header without variable or point counts") from None
+        complex_values = "complex" in header.get("flags", "")
+        names = []
+        i += 1
+        for _ in range(n_vars):
+            if i >= len(lines):
+                raise SimulatorError("raw file: truncated variable list")
+            parts = lines[i].split()
+            names.append(parts[1].lower())
+            i += 1
+        if i >= len(lines) or not lines[i].startswith("Values:"):
+            raise SimulatorError("raw file: no values (binary raw file, or the run stopped early)")
+        i += 1
+        tokens: list[str] = []
+        needed = n_points * (n_vars + 1)
+        while i < len(lines) and len(tokens) < needed:
+            tokens += lines[i].split()
+            i += 1
+        if len(tokens) < needed:
+            raise SimulatorError(f"raw file: incomplete ({len(tokens)} of {needed} numbers)")
+        table = np.array(tokens[:needed], dtype=object).reshape(n_points, n_vars + 1)[:, 1:]
+
+        def value(tok: str) -> float:
+            return float(tok.split(",")[0]) if complex_values else float(tok)
+
+        plots.append({name: np.array([value(t) for t in table[:, k]]) for k, name in enumerate(names)})
+    if not plots:
+        raise SimulatorError("raw file: no plot found")
+    return plots
+
+
+def run_ngspice(netlist: str, timeout: float = 120.0) -> dict[str, np.ndarray]:
+    """Run one netlist; return the first plot's variables (names in lower case)."""
+    exe = find_ngspice()
+    with tempfile.TemporaryDirectory(prefix="biastree-") as tmp:
+        folder = Path(tmp)
+        (folder / "tree.cir").write_text(netlist, encoding="utf-8")
+        try:
+            proc = subprocess.run(
+                [exe, "-n", "-b", "-r", "out.raw", "tree.cir"],
+                cwd=folder,
+                capture_output=True,
+                text=True,
+                timeout=timeout,
+                stdin=subprocess.DEVNULL,
+            )
+        except subprocess.TimeoutExpired:
+            raise SimulatorError(f"ngspice did not finish within {timeout:g} s") from None
+        complaints = [
+            line.strip()
+            for line in (proc.stderr + "\n" + proc.stdout).splitlines()
+            if line.strip().lower().startswith(("error", "warning"))
+            or any(word in line.lower() for word in _BAD_WORDS)
+        ]
+        if complaints:
+            raise SimulatorError("ngspice: " + " | ".join(dict.fromkeys(complaints)))
+        if proc.returncode != 0:
+            raise SimulatorError(f"ngspice exited with status {proc.returncode}: {proc.stderr.strip()[:500]}")
+        raw = folder / "out.raw"
+        if not raw.exists():
+            raise SimulatorError("ngspice wrote no raw file")
+        return parse_raw(raw.read_text(encoding="utf-8", errors="replace"))[0]
+
+
+def simulated_currents(netlist: Netlist, variables: dict[str, np.ndarray]) -> dict[str, float]:
+    """Current of one instance of every load, from the ammeters."""
+    out = {}
+    for load, ammeter in netlist.ammeters.items():
+        key = f"i({ammeter})"
+        if key not in variables:
+            raise SimulatorError(f"ngspice result has no {key} for load {load}")
+        out[load] = float(variables[key][0]) / netlist.instances[load]
+    return out
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """biastree's and the simulator's current for every load and case."""
+
+    loads: tuple[str, ...]
+    cases: tuple[str, ...]
+    ours: np.ndarray  # (n_loads, n_cases)
+    simulated: np.ndarray
+    tolerance: float
+
+    @property
+    def difference(self) -> np.ndarray:
+        """Relative difference (ours − simulated) / simulated."""
+        return (self.ours - self.simulated) / np.abs(self.simulated)
+
+    @property
+    def worst(self) -> float:
+        return float(np.max(np.abs(self.difference))) if self.ours.size else 0.0
+
+    @property
+    def agrees(self) -> bool:
+        return bool(np.all(np.abs(self.difference) <= self.tolerance)) and math.isfinite(self.worst)
+
+
+def verify(
+    tree: Tree,
+    tolerance: float = 1e-5,
+    cases: tuple[str, ...] = CASES,
+    op: OperatingPoint | None = None,
+    timeout: float = 120.0,
+) -> Comparison:
+    """Solve the tree (unless ``op`` is given) and compare with ngspice at every case."""
+    find_ngspice()
+    op = solve(tree) if op is None else op
+    ours = np.zeros((len(tree.loads), len(cases)))
+    sim = np.zeros_like(ours)
+    for k, case in enumerate(cases):
+        netlist = to_spice(tree, case)
+        currents = simulated_currents(netlist, run_ngspice(netlist.text, timeout))
+        ours[:, k] = op.l_current[:, CASES.index(case)]
+        sim[:, k] = [currents[name] for name in tree.loads]
+    return Comparison(tree.loads, tuple(cases), ours, sim, tolerance)
