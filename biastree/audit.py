@@ -94,13 +94,50 @@ class Audit:
         """Error that the ratios alone give: ideal current / target − 1."""
         return float(self.ideal[load] / self.target[load] - 1.0)
 
+    @cached_property
+    def _largest(self) -> tuple[Array, Array, Array, list[str]]:
+        """Per load, at its worst case: (mirror, term index, value) of the largest term.
+
+        Vectorised over the tree: each branch's best term (its mirror's factors
+        and its own), then a running best down every path, one generation at a time.
+        """
+        tree, op = self.tree, self.op
+        keys = list(op.m_factors) + list(op.b_factors)
+        n_b = len(tree.b_parent)
+        stacked = np.stack(
+            [op.m_factors[k][tree.b_parent] for k in op.m_factors] + [op.b_factors[k] for k in op.b_factors]
+        ) - 1.0 if keys else np.zeros((1, n_b, 3))
+        which = np.argmax(np.abs(stacked), axis=0)  # (n_b, cases)
+        value = np.take_along_axis(stacked, which[None], axis=0)[0]
+        mirror = np.broadcast_to(tree.b_parent[:, None], value.shape)
+        # running best down the tree, per mirror (best over the branches above it)
+        n_m = len(tree.mirrors)
+        best_v = np.zeros((n_m, 3))
+        best_k = np.zeros((n_m, 3), dtype=np.int64)
+        best_m = np.full((n_m, 3), -1, dtype=np.int64)
+        for gen in tree.generations[1:]:
+            b = tree.m_in_branch[gen]
+            p = tree.b_parent[b]
+            take = np.abs(value[b]) > np.abs(best_v[p])
+            best_v[gen] = np.where(take, value[b], best_v[p])
+            best_k[gen] = np.where(take, which[b], best_k[p])
+            best_m[gen] = np.where(take, mirror[b], best_m[p])
+        lb = tree.l_branch
+        p = tree.b_parent[lb]
+        take = np.abs(value[lb]) >= np.abs(best_v[p])
+        v = np.where(take, value[lb], best_v[p])
+        k = np.where(take, which[lb], best_k[p])
+        m = np.where(take, mirror[lb], best_m[p])
+        rows = np.arange(len(lb))
+        c = self.worst_case
+        return m[rows, c], k[rows, c], v[rows, c], keys
+
     def largest_term(self, load: int) -> tuple[str, str, float]:
         """(stage, term label, value) of the largest contribution at the worst case."""
         best = ("plan", "ratio arithmetic", self.plan_term(load))
-        for stage in self.stages(load, int(self.worst_case[load])):
-            for term in stage["terms"]:
-                if abs(term["value"]) > abs(best[2]):
-                    best = (stage["mirror"], term["label"], term["value"])
+        m, k, v, keys = self._largest
+        if abs(v[load]) > abs(best[2]):
+            best = (self.tree.mirrors[int(m[load])], TERM_LABELS[keys[int(k[load])]], float(v[load]))
         return best
 
     def reasons(self, load: int) -> list[str]:

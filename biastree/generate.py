@@ -28,6 +28,7 @@ class Ranges:
     families: tuple[str, ...] = ("bjt", "mos")
     ratio: tuple[float, float] = (0.25, 4.0)
     max_count: int = 4
+    max_mirror_count: int = 2
     beta: tuple[float, float] = (50.0, 250.0)
     early: tuple[float, float] = (20.0, 150.0)
     supply: float = 3.3
@@ -51,77 +52,77 @@ def _devices(rng: np.random.Generator, r: Ranges) -> dict[str, dict[str, Any]]:
 
 
 def random_plan(n_loads: int, seed: int = 1, ranges: Ranges | None = None) -> dict[str, Any]:
-    """A valid plan (plain data) with exactly ``n_loads`` loads."""
+    """A valid plan (plain data) with exactly ``n_loads`` loads.
+
+    Each mirror is given a number of loads to reach below it and splits that
+    budget between loads of its own and child mirrors, so trees stay
+    balanced; the depth grows past ``max_depth`` only when the loads would not
+    fit otherwise (fan-out^depth < n_loads).
+    """
     r = ranges or Ranges()
+    if n_loads < 1:
+        raise ValueError("a plan needs at least one load")
     rng = np.random.default_rng(seed)
     families = list(r.families)
     mirrors: dict[str, dict[str, Any]] = {}
     loads: dict[str, dict[str, Any]] = {}
     i_ref = 20e-6
+    depth_limit = r.max_depth
+    while max(r.max_fanout, 2) ** depth_limit < n_loads:
+        depth_limit += 1
+    counter = {"mirror": 0, "load": 0}
+    ratio_choices = [x for x in (0.25, 0.5, 1, 1, 1.5, 2, 3, 4, 8, 16) if r.ratio[0] <= x <= r.ratio[1]] or [1.0]
 
     def device(sink: bool) -> str:
         family = families[int(rng.integers(len(families)))]
         return {("bjt", True): "qn", ("bjt", False): "qp", ("mos", True): "mn", ("mos", False): "mp"}[(family, sink)]
 
-    # queue of (name, sink?, input current, depth)
-    queue = [("m0", bool(rng.integers(2)), i_ref, 1)]
-    count = 1
-    remaining = n_loads
-    while queue:
-        name, sink, current, depth = queue.pop(0)
+    def pick_ratio(current: float) -> tuple[float, float]:
+        ratio = float(rng.choice(ratio_choices))
+        out = current * ratio
+        if out < 1e-6 or out > 200e-6:  # keep currents in a sane range
+            return 1.0, current
+        return ratio, out
+
+    def add_load(current: float) -> dict[str, Any]:
+        name = f"load{counter['load']}"
+        counter["load"] += 1
+        ratio, out = pick_ratio(current)
+        lo, hi = r.load_voltage
+        if rng.random() < 0.3:
+            a, b = sorted(rng.uniform(lo, hi, 2))
+            voltage: Any = [f"{a:.3f}V", f"{b:.3f}V"]
+        else:
+            voltage = f"{rng.uniform(lo, hi):.3f}V"
+        loads[name] = {"current": 0.0, "tolerance": f"{int(rng.choice([5, 10, 15, 20]))}%", "voltage": voltage}
+        return {"to": name, "ratio": ratio, "count": int(rng.integers(1, r.max_count + 1))}
+
+    # work list of (mirror name, sinks?, input current, depth, loads to place below)
+    work = [("m0", bool(rng.integers(2)), i_ref, 1, n_loads)]
+    counter["mirror"] = 1
+    while work:
+        name, sink, current, depth, budget = work.pop()
         input_size = max(1, int(round(current / r.unit_current)))
-        n_branches = int(rng.integers(1, r.max_fanout + 1))
-        n_branches = min(n_branches, max(1, remaining - len(queue)))
-        branches = []
-        for k in range(n_branches):
-            ratio = float(rng.choice([0.25, 0.5, 1, 1, 1.5, 2, 3, 4]))
-            ratio = min(max(ratio, r.ratio[0]), r.ratio[1])
-            out = current * ratio
-            if out < 1e-6 or out > 200e-6:  # keep currents in a sane range
-                ratio = 1.0
-                out = current
-            # make child mirrors while the tree is shallow and loads remain to place
-            want_mirror = depth < r.max_depth and remaining - len(queue) > 2 and rng.random() < 0.35
-            if want_mirror and not (k == n_branches - 1 and not branches):
-                child = f"m{count}"
-                count += 1
-                copies = int(rng.integers(1, 3))
-                branches.append({"to": child, "ratio": ratio, "count": copies})
-                queue.append((child, not sink, out, depth + 1))
-            else:
-                if remaining <= len(queue):
-                    break
-                lname = f"load{n_loads - remaining}"
-                remaining -= 1
-                copies = int(rng.integers(1, r.max_count + 1))
-                branches.append({"to": lname, "ratio": ratio, "count": copies})
-                lo, hi = r.load_voltage
-                if rng.random() < 0.3:
-                    a, b = sorted(rng.uniform(lo, hi, 2))
-                    voltage: Any = [f"{a:.3f}V", f"{b:.3f}V"]
-                else:
-                    voltage = f"{rng.uniform(lo, hi):.3f}V"
-                loads[lname] = {
-                    "current": float(f"{out:.6g}"),
-                    "tolerance": f"{int(rng.choice([5, 10, 15, 20]))}%",
-                    "voltage": voltage,
-                }
-        if not branches:  # every mirror needs an output: give it one more load
-            lname = f"load{n_loads - remaining}"
-            remaining -= 1
-            branches.append({"to": lname, "ratio": 1.0})
-            loads[lname] = {"current": float(f"{current:.6g}"), "tolerance": "10%", "voltage": "1.5V"}
+        fan = max(r.max_fanout, 1)
+        width = int(rng.integers(1, fan + 1))
+        capacity = max(fan, 2) ** (depth_limit - depth)  # loads one child subtree can take
+        if depth >= depth_limit or budget <= width:
+            n_children, n_direct = 0, budget
+        else:
+            least = max(1, -(-budget // capacity))
+            n_children = int(rng.integers(least, max(least, min(fan, budget)) + 1))
+            n_direct = int(rng.integers(0, max(0, min(fan - n_children, budget - n_children)) + 1))
+        branches = [add_load(current) for _ in range(n_direct)]
+        rest = budget - n_direct
+        if n_children:
+            shares = rng.multinomial(rest - n_children, [1.0 / n_children] * n_children) + 1
+            for share in shares:
+                child = f"m{counter['mirror']}"
+                counter["mirror"] += 1
+                ratio, out = pick_ratio(current)
+                branches.append({"to": child, "ratio": ratio, "count": int(rng.integers(1, r.max_mirror_count + 1))})
+                work.append((child, not sink, out, depth + 1, int(share)))
         mirrors[name] = {"device": device(sink), "input_size": input_size, "branches": branches}
-    # Any loads still to place hang off the last mirrors as extra branches.
-    names = list(mirrors)
-    k = 0
-    while remaining > 0:
-        name = names[-1 - (k % len(names))]
-        lname = f"load{n_loads - remaining}"
-        remaining -= 1
-        mirrors[name]["branches"].append({"to": lname, "ratio": 1.0})
-        loads[lname] = {"current": 0.0, "tolerance": "10%", "voltage": "1.5V", "_from": name}
-        k += 1
     plan = {
         "title": f"Random plan, {n_loads} loads, seed {seed} (invented data)",
         "supply": f"{r.supply}V",

@@ -20,8 +20,8 @@ from pydantic import BaseModel, ValidationError
 from .errors import PlanError, Problem
 from .plan import BjtModel, MosModel, Plan
 
-_Loader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
-_constructor = yaml.constructor.SafeConstructor()
+# libyaml's C parser when present; only its events are used (no resolver).
+_Loader = getattr(yaml, "CBaseLoader", yaml.BaseLoader)
 
 
 @dataclass
@@ -31,36 +31,24 @@ class Document:
     data: Any
     text: str
     source: str
-    _root: yaml.Node | None = None
-    _composed: bool = False
+    _lines: dict[tuple[Any, ...], int] | None = None
 
     def line_of(self, path: tuple[Any, ...]) -> int | None:
-        """1-based line of the deepest node on ``path`` that exists in the file."""
-        if not self._composed:
-            self._composed = True
+        """1-based line of the deepest key on ``path`` that exists in the file.
+
+        Line numbers are only gathered when a message needs one (a second
+        pass over the parser's events), so valid plans load at full speed.
+        """
+        if self._lines is None:
             try:
-                self._root = yaml.compose(self.text, Loader=_Loader)
+                self._lines = {}
+                _build(_events(self.text), [], self._lines)
             except yaml.YAMLError:
-                self._root = None
-        node, line = self._root, None
-        if node is None:
-            return None
-        line = node.start_mark.line + 1
-        for key in path:
-            if isinstance(node, yaml.MappingNode):
-                for k, v in node.value:
-                    if isinstance(k, yaml.ScalarNode) and k.value == str(key):
-                        line = k.start_mark.line + 1
-                        node = v
-                        break
-                else:
-                    return line
-            elif isinstance(node, yaml.SequenceNode) and isinstance(key, int) and 0 <= key < len(node.value):
-                node = node.value[key]
-                line = node.start_mark.line + 1
-            else:
-                return line
-        return line
+                pass
+        path = tuple(path)
+        while path and path not in self._lines:
+            path = path[:-1]
+        return self._lines.get(path, 1 if self._lines else None)
 
 
 def format_path(path: tuple[Any, ...]) -> str:
@@ -77,48 +65,134 @@ def format_path(path: tuple[Any, ...]) -> str:
 # --- step 1: text → plain data ----------------------------------------------
 
 
-def _plain(node: yaml.Node, path: tuple[Any, ...], problems: list[Problem]) -> Any:
-    """Node tree → Python data, avoiding YAML 1.1 surprises.
+_NULLS = ("", "~", "null", "Null", "NULL")
 
-    Keys stay strings (a load called ``no`` or ``on`` is not a boolean),
-    ``yes``/``no``/``on``/``off`` values stay strings, and numbers like
-    ``1e-17`` that YAML 1.1 leaves as strings are parsed later by the unit
-    parser like any other quantity.  Duplicate keys are errors.
+
+def _events(text: str) -> Any:
+    """The parser's events, pulled straight from the (C) parser."""
+    loader = _Loader(text)
+    try:
+        get = loader.get_event
+        while True:
+            event = get()
+            yield event
+            if type(event) is yaml.StreamEndEvent:
+                return
+    finally:
+        loader.dispose()
+
+
+def _build(events: Any, problems: list[Problem], lines: dict[tuple[Any, ...], int] | None = None) -> Any:
+    """Parser events → plain Python data, avoiding YAML 1.1 surprises.
+
+    Every scalar stays a string (the unit parser and the models read numbers
+    from it), so ``1e-17`` is not left a string by accident, a load called
+    ``no`` or ``on`` is not a boolean, and ``0777`` is not octal.  Duplicate
+    keys are errors.  Walking events directly is several times faster than
+    composing YAML nodes, which matters for plans of 100k loads.
     """
-    if isinstance(node, yaml.MappingNode):
-        out: dict[str, Any] = {}
-        for key_node, value_node in node.value:
-            if not isinstance(key_node, yaml.ScalarNode):
-                problems.append(Problem(format_path(path), "keys must be plain names", key_node.start_mark.line + 1))
+    root: Any = None
+    # stack entries: [container, path, pending key (mappings only)]
+    stack: list[list[Any]] = []
+    anchors: dict[str, Any] = {}
+    documents = 0
+
+    def place(value: Any, event: Any, is_key_candidate: bool) -> None:
+        nonlocal root
+        line = event.start_mark.line + 1
+        if not stack:
+            root = value
+            if lines is not None:
+                lines[()] = line
+            return
+        top = stack[-1]
+        container, path = top[0], top[1]
+        if isinstance(container, dict):
+            if top[2] is None:
+                if not is_key_candidate:
+                    problems.append(Problem(format_path(path), "keys must be plain names", line))
+                    top[2] = _BAD_KEY
+                    return
+                key = "" if value is None else str(value)
+                if key in container:
+                    problems.append(Problem(format_path(path + (key,)), "duplicate key (each name may appear once)", line))
+                    top[2] = _BAD_KEY
+                    return
+                top[2] = key
+                if lines is not None:
+                    lines[path + (key,)] = line
+                return
+            key, top[2] = top[2], None
+            if key is not _BAD_KEY:
+                container[key] = value
+        else:
+            if lines is not None:
+                lines[path + (len(container),)] = line
+            container.append(value)
+
+    def child_path() -> tuple[Any, ...]:
+        if not stack:
+            return ()
+        top = stack[-1]
+        if isinstance(top[0], dict):
+            return top[1] + (top[2],)
+        return top[1] + (len(top[0]),)
+
+    scalar, alias = yaml.ScalarEvent, yaml.AliasEvent
+    starts = (yaml.MappingStartEvent, yaml.SequenceStartEvent)
+    ends = (yaml.MappingEndEvent, yaml.SequenceEndEvent)
+    for event in events:
+        kind = type(event)
+        if kind is scalar:
+            value = None if event.style is None and event.value in _NULLS else event.value
+            if event.anchor:
+                anchors[event.anchor] = value
+            # fast paths (no line numbers wanted): a key, or a value for a known key
+            if stack and lines is None:
+                top = stack[-1]
+                container = top[0]
+                if type(container) is dict:
+                    key = top[2]
+                    if key is None:
+                        if value is not None and value not in container:
+                            top[2] = value
+                            continue
+                    elif key is not _BAD_KEY:
+                        container[key] = value
+                        top[2] = None
+                        continue
+            place(value, event, True)
+        elif kind in starts:
+            container: Any = {} if kind is yaml.MappingStartEvent else []
+            path = child_path()
+            if event.anchor:
+                anchors[event.anchor] = container
+            place(container, event, False)
+            stack.append([container, path, None])
+        elif kind in ends:
+            stack.pop()
+        elif kind is alias:
+            if event.anchor not in anchors:
+                problems.append(Problem("", f"unknown alias *{event.anchor}", event.start_mark.line + 1))
                 continue
-            key = key_node.value
-            if key in out:
-                problems.append(
-                    Problem(format_path(path + (key,)), "duplicate key (each name may appear once)", key_node.start_mark.line + 1)
-                )
-                continue
-            out[key] = _plain(value_node, path + (key,), problems)
-        return out
-    if isinstance(node, yaml.SequenceNode):
-        return [_plain(v, path + (i,), problems) for i, v in enumerate(node.value)]
-    tag = node.tag.rsplit(":", 1)[-1]
-    if tag == "int":
-        return _constructor.construct_yaml_int(node)
-    if tag == "float":
-        return _constructor.construct_yaml_float(node)
-    if tag == "null":
-        return None
-    if tag == "bool" and node.value.lower() in ("true", "false"):
-        return node.value.lower() == "true"
-    return node.value
+            place(anchors[event.anchor], event, False)
+        elif kind is yaml.DocumentStartEvent:
+            documents += 1
+            if documents > 1:
+                problems.append(Problem("", "a plan file holds one YAML document", event.start_mark.line + 1))
+                break
+    return root
+
+
+_BAD_KEY = object()
 
 
 def _reject_duplicates(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
-    out: dict[str, Any] = {}
-    for key, value in pairs:
-        if key in out:
-            raise ValueError(f"duplicate key '{key}'")
-        out[key] = value
+    out = dict(pairs)
+    if len(out) != len(pairs):
+        seen: set[str] = set()
+        duplicate = next(k for k, _ in pairs if k in seen or seen.add(k))  # type: ignore[func-returns-value]
+        raise ValueError(f"duplicate key '{duplicate}'")
     return out
 
 
@@ -135,14 +209,13 @@ def parse_text(text: str, source: str = "plan", fmt: str | None = None) -> Docum
         doc = Document(data, text, source)
     else:
         try:
-            root = yaml.compose(text, Loader=_Loader)
+            data = _build(_events(text), problems)
         except yaml.YAMLError as exc:
             mark = getattr(exc, "problem_mark", None)
             what = getattr(exc, "problem", None) or str(exc)
             line = mark.line + 1 if mark is not None else None
             raise PlanError([Problem("", f"YAML syntax error: {what}", line)], source) from None
-        data = _plain(root, (), problems) if root is not None else None
-        doc = Document(data, text, source, root, True)
+        doc = Document(data, text, source)
     if problems:
         raise PlanError(problems, source)
     if not isinstance(doc.data, dict):

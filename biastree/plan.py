@@ -7,8 +7,8 @@ description (it ends up in the committed JSON Schema).
 
 from __future__ import annotations
 
-from functools import partial
-from typing import Annotated, Literal, Optional, Union
+from functools import cached_property
+from typing import Annotated, Callable, Literal, Optional, Union
 
 from annotated_types import Ge, Gt
 from pydantic import (
@@ -26,8 +26,22 @@ from .units import ZERO_CELSIUS, parse_quantity
 _QUANTITY_PATTERN = r"^\s*[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?\s*\S*\s*$"
 
 
-def _quantity(value: object, unit: str) -> float:
-    return parse_quantity(value, unit)
+def _parser(unit: str) -> Callable[[object], float]:
+    """A parse function for one unit, memoising strings (large plans repeat
+    the same few values, and this runs once per quantity field)."""
+    cache: dict[str, float] = {}
+
+    def parse(value: object) -> float:
+        if type(value) is str:
+            hit = cache.get(value)
+            if hit is None:
+                hit = parse_quantity(value, unit)
+                if len(cache) < 4096:
+                    cache[value] = hit
+            return hit
+        return parse_quantity(value, unit)
+
+    return parse
 
 
 def Quantity(unit: str, example: str, *constraints: object) -> object:
@@ -41,7 +55,7 @@ def Quantity(unit: str, example: str, *constraints: object) -> object:
     }
     return Annotated[
         float,
-        BeforeValidator(partial(_quantity, unit=unit)),
+        BeforeValidator(_parser(unit)),
         *constraints,
         WithJsonSchema(schema),
     ]
@@ -61,7 +75,7 @@ InverseVoltage = Quantity("1/V", "0.05/V", Ge(0))
 EnergyEV = Quantity("eV", "1.11eV", Gt(0))
 Temperature = Annotated[
     float,
-    BeforeValidator(partial(_quantity, unit="C")),
+    BeforeValidator(_parser("C")),
     PlainSerializer(lambda k: f"{k - ZERO_CELSIUS:.6g}C", return_type=str),
     WithJsonSchema({"anyOf": [{"type": "number"}, {"type": "string"}], "examples": ["27C", "300K"]}),
 ]
@@ -164,13 +178,13 @@ class Load(_Strict):
             raise ValueError(f"range [{value[0]:g}, {value[1]:g}] V must be written [min, max]")
         return value
 
-    @property
+    @cached_property
     def v_range(self) -> tuple[float, float, float]:
         """(min, nominal, max) node voltage; nominal is the middle of a range."""
-        if isinstance(self.voltage, tuple):
-            lo, hi = self.voltage
-            return lo, 0.5 * (lo + hi), hi
-        return self.voltage, self.voltage, self.voltage
+        v = self.voltage
+        if type(v) is tuple:
+            return v[0], 0.5 * (v[0] + v[1]), v[1]
+        return v, v, v  # type: ignore[return-value]
 
 
 class Compliance(_Strict):

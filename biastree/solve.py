@@ -85,7 +85,8 @@ def device_arrays(tree: Tree, temperature: float | None = None) -> DeviceArrays:
 def load_voltages(tree: Tree) -> Array:
     """(n_loads, 3): each load's node voltage at (min, nominal, max)."""
     plan = tree.plan
-    return np.array([plan.loads[name].v_range for name in tree.loads], dtype=float).reshape(-1, 3)
+    loads = plan.loads
+    return np.array([loads[name].v_range for name in tree.loads], dtype=float).reshape(-1, 3)
 
 
 @dataclass(frozen=True)

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import difflib
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Any, Callable
 
 import networkx as nx
@@ -35,7 +36,6 @@ class Tree:
     """
 
     plan: Plan
-    graph: nx.DiGraph
     mirrors: tuple[str, ...]
     loads: tuple[str, ...]
     generations: tuple[np.ndarray, ...]
@@ -53,15 +53,27 @@ class Tree:
     l_branch: np.ndarray  # branch feeding each load
     l_mult: np.ndarray  # instances of each load
 
+    @cached_property
+    def graph(self) -> nx.DiGraph:
+        """The tree as a networkx DiGraph: reference → mirrors → loads.
+
+        Edges carry ``branch`` (index in the parent's list), ``ratio`` and ``count``.
+        """
+        return _graph(self.plan)
+
+    @cached_property
+    def mirror_paths(self) -> list[tuple[int, ...]]:
+        """For each mirror, the mirror indices from the root down to it."""
+        paths: list[tuple[int, ...]] = [()] * len(self.mirrors)
+        for gen in self.generations:
+            for m in gen.tolist():
+                b = int(self.m_in_branch[m])
+                paths[m] = (paths[int(self.b_parent[b])] if b >= 0 else ()) + (m,)
+        return paths
+
     def path(self, load: int) -> list[int]:
         """Mirror indices from the root down to the mirror that feeds ``load``."""
-        out = []
-        m = int(self.b_parent[self.l_branch[load]])
-        while m >= 0:
-            out.append(m)
-            b = int(self.m_in_branch[m])
-            m = int(self.b_parent[b]) if b >= 0 else -1
-        return out[::-1]
+        return list(self.mirror_paths[int(self.b_parent[self.l_branch[load]])])
 
 
 def _hint(name: str, known: list[str]) -> str:
@@ -71,6 +83,24 @@ def _hint(name: str, known: list[str]) -> str:
 
 def is_sink(kind: str) -> bool:
     return kind in ("npn", "nmos")
+
+
+def _levels(plan: Plan) -> list[list[str]]:
+    """Mirrors reachable from the reference, level by level (breadth first)."""
+    levels: list[list[str]] = []
+    seen: set[str] = set()
+    level = [plan.reference.feeds] if plan.reference.feeds in plan.mirrors else []
+    while level:
+        levels.append(level)
+        seen.update(level)
+        nxt = []
+        for name in level:
+            for branch in plan.mirrors[name].branches:
+                if branch.to in plan.mirrors and branch.to not in seen:
+                    seen.add(branch.to)
+                    nxt.append(branch.to)
+        level = nxt
+    return levels
 
 
 def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
@@ -136,13 +166,16 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
                     )
                 )
 
-    graph = _graph(plan)
+    reachable = {m for level in _levels(plan) for m in level}
+    reachable |= {b.to for m in reachable for b in mirrors[m].branches if b.to in loads}
     in_cycle: set[str] = set()
-    for cycle in _cycles(graph):
-        text = " -> ".join(cycle + [cycle[0]])
-        problems.append((("mirrors", cycle[0]), f"cycle: {text}"))
-        in_cycle.update(cycle)  # a cycle is reported once, not as unreachable too
-    reachable = nx.descendants(graph, REFERENCE)
+    # Every node fed once and reachable from the reference makes a tree: no
+    # cycle is possible, so the (slower) search only runs when something is off.
+    if problems or len(reachable) < len(mirrors) + len(loads):
+        for cycle in _cycles(_graph(plan)):
+            text = " -> ".join(cycle + [cycle[0]])
+            problems.append((("mirrors", cycle[0]), f"cycle: {text}"))
+            in_cycle.update(cycle)  # a cycle is reported once, not as unreachable too
     for name in mirrors:
         if name not in fed_by:
             problems.append((("mirrors", name), "never fed: no branch or reference drives this mirror"))
@@ -171,7 +204,7 @@ def _graph(plan: Plan) -> nx.DiGraph:
     for name, mirror in plan.mirrors.items():
         for i, branch in enumerate(mirror.branches):
             if branch.to in graph and not graph.has_edge(name, branch.to):
-                graph.add_edge(name, branch.to, branch=i)
+                graph.add_edge(name, branch.to, branch=i, ratio=branch.ratio, count=branch.count)
     return graph
 
 
@@ -192,14 +225,13 @@ def build(plan: Plan, locate: Locate | None = None, source: str | None = None) -
     """
     problems = check_structure(plan)
     if problems:
-        raise PlanError(
-            [Problem(format_path(path), msg, locate(path) if locate else None) for path, msg in problems], source
-        )
-    graph = _graph(plan)
+        found = [Problem(format_path(path), msg, locate(path) if locate else None) for path, msg in problems]
+        found.sort(key=lambda p: (p.line is None, p.line or 0))
+        raise PlanError(found, source)
     order: list[str] = []
     generations = []
-    for gen in nx.topological_generations(graph):
-        names = sorted(n for n in gen if n in plan.mirrors)
+    for level in _levels(plan):
+        names = sorted(level)
         if names:
             generations.append(np.arange(len(order), len(order) + len(names)))
             order.extend(names)
@@ -242,7 +274,6 @@ def build(plan: Plan, locate: Locate | None = None, source: str | None = None) -
     kinds = [plan.devices[plan.mirrors[n].device].kind for n in order]
     return Tree(
         plan=plan,
-        graph=graph,
         mirrors=tuple(order),
         loads=loads,
         generations=tuple(generations),

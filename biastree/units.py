@@ -14,6 +14,7 @@ knows about prefixes and unit symbols.
 
 from __future__ import annotations
 
+import functools
 import math
 import re
 from decimal import Decimal
@@ -106,6 +107,12 @@ def parse_quantity(value: object, unit: str) -> float:
         return _finite(number, str(value))
     if not isinstance(value, str):
         raise UnitError(f"expected a quantity, got {type(value).__name__}")
+    return _parse_text(value, unit)
+
+
+@functools.lru_cache(maxsize=4096)
+def _parse_text(value: str, unit: str) -> float:
+    # Cached: large plans repeat the same few strings ('10%', '1.5V') many times.
     text = value.strip()
     number, suffix = _split(text)
     if unit == "%":
@@ -149,6 +156,9 @@ def _finite(number: float, text: str) -> float:
     return number
 
 
+_DISPLAY_PREFIXES = ("a", "f", "p", "n", "µ", "m", "", "k", "M", "G", "T")  # 1e-18 … 1e12
+
+
 def format_si(value: float, unit: str = "", digits: int = 3) -> str:
     """Engineering notation with an SI prefix, for display only.
 
@@ -161,16 +171,13 @@ def format_si(value: float, unit: str = "", digits: int = 3) -> str:
         return f"{value} {unit}".strip()
     if value == 0:
         return f"0 {unit}".strip()
-    exponent = int(math.floor(math.log10(abs(value)) / 3) * 3)
-    exponent = max(-18, min(12, exponent))
-    scaled = value / 10**exponent
-    text = f"{scaled:.{digits}g}"
-    if abs(float(text)) >= 1000 and exponent < 12:  # rounding carried over
-        exponent += 3
-        text = f"{value / 10**exponent:.{digits}g}"
-    prefix = {-18: "a", -15: "f", -12: "p", -9: "n", -6: "µ", -3: "m", 0: "",
-              3: "k", 6: "M", 9: "G", 12: "T"}[exponent]
-    return f"{text} {prefix}{unit}".strip()
+    group = min(4, max(-6, math.floor(math.log10(abs(value)) / 3)))
+    text = f"{value / 1000.0**group:.{digits}g}"
+    if group < 4 and abs(float(text)) >= 1000:  # rounding carried over to the next prefix
+        group += 1
+        text = f"{value / 1000.0**group:.{digits}g}"
+    prefix = _DISPLAY_PREFIXES[group + 6]
+    return f"{text} {prefix}{unit}" if unit or prefix else text
 
 
 def format_percent(fraction: float, digits: int = 3) -> str:

@@ -16,11 +16,14 @@ def to_table(result: Audit, failing_only: bool = False) -> str:
     plan = tree.plan
     header = ("load", "×", "path", "target", "delivered", "error", "range", "budget", "margin", "compl.", "verdict")
     rows = []
+    names = tree.mirrors
+    path_text = [" > ".join(names[m] for m in p) for p in tree.mirror_paths]
+    parents = tree.b_parent[tree.l_branch].tolist()
     for i, name in enumerate(tree.loads):
         ok = bool(result.passed[i])
         if failing_only and ok:
             continue
-        path = " > ".join(tree.mirrors[m] for m in tree.path(i))
+        path = path_text[parents[i]]
         lo, hi = result.error[i, 0], result.error[i, 2]
         span = "" if not isinstance(plan.loads[name].voltage, tuple) else f"{_pct(lo)}..{_pct(hi)}"
         rows.append(
@@ -41,8 +44,10 @@ def to_table(result: Audit, failing_only: bool = False) -> str:
     widths = [max(len(h), *(len(r[k]) for r in rows)) if rows else len(h) for k, h in enumerate(header)]
     right = {1, 3, 4, 5, 6, 7, 8, 9}
 
+    template = "  ".join(f"{{:{'>' if k in right else '<'}{w}}}" for k, w in enumerate(widths))
+
     def line(cells: tuple[str, ...]) -> str:
-        return "  ".join(c.rjust(w) if k in right else c.ljust(w) for k, (c, w) in enumerate(zip(cells, widths))).rstrip()
+        return template.format(*cells).rstrip()
 
     out = [line(header), line(tuple("-" * w for w in widths))]
     out += [line(r) for r in rows]
@@ -74,3 +79,23 @@ def to_summary(result: Audit) -> str:
         "Design estimates: sign-off belongs to foundry models and transistor-level simulation.",
     ]
     return "\n".join(lines)
+
+
+def to_comparison(comparison) -> str:  # type: ignore[no-untyped-def]
+    """Side-by-side table of biastree's and the simulator's load currents."""
+    header = ("load", "end", "biastree", "ngspice", "rel. diff", "")
+    rows = []
+    diff = comparison.difference
+    for i, name in enumerate(comparison.loads):
+        for k, case in enumerate(comparison.cases):
+            bad = abs(diff[i, k]) > comparison.tolerance
+            rows.append((name, case, f"{comparison.ours[i, k]:.9e}", f"{comparison.simulated[i, k]:.9e}",
+                         f"{diff[i, k]:+.2e}", "DISAGREES" if bad else ""))
+    widths = [max(len(h), *(len(r[k]) for r in rows)) for k, h in enumerate(header)]
+    out = ["  ".join(c.ljust(w) for c, w in zip(header, widths)).rstrip()]
+    out += ["  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip() for r in rows]
+    verdict = "agree" if comparison.agrees else "DISAGREE"
+    out.append("")
+    out.append(f"{len(comparison.loads)} loads × {len(comparison.cases)} ends: biastree and ngspice {verdict} "
+               f"(largest relative difference {comparison.worst:.2e}, tolerance {comparison.tolerance:.1e})")
+    return "\n".join(out) + "\n"
