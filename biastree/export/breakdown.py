@@ -1,0 +1,33 @@
+"""Where a load's error comes from: rows of (stage, effect, value), shared by
+the report formats so that they all tell the same story."""
+
+from __future__ import annotations
+
+from ..audit import Audit
+from ..solve import CASES
+from ..units import format_si
+
+
+def breakdown(result: Audit, load: int) -> list[tuple[str, str, float]]:
+    """(stage, effect label, value as a fraction) at the load's worst voltage.
+
+    The first row is the plan's own ratio arithmetic; the product of
+    (1 + value) over all rows is 1 + the load's error, exactly.
+    """
+    case = int(result.worst_case[load])
+    rows = [("plan", "ratio arithmetic", result.plan_term(load))]
+    for stage in result.stages(load, case):
+        for term in stage["terms"]:
+            rows.append((stage["mirror"], term["label"], term["value"]))
+    return rows
+
+
+def where(result: Audit, load: int) -> str:
+    """Words for the voltage the breakdown is taken at."""
+    plan = result.tree.plan
+    spec = plan.loads[result.tree.loads[load]]
+    case = int(result.worst_case[load])
+    volts = format_si(spec.v_range[case], "V")
+    if isinstance(spec.voltage, tuple):
+        return f"at the {CASES[case]} end of its voltage range ({volts})"
+    return f"at its node voltage ({volts})"

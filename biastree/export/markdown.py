@@ -1,0 +1,77 @@
+"""Markdown review report: the same numbers as the HTML report, for flows
+that keep reviews in text."""
+
+from __future__ import annotations
+
+from ..audit import Audit
+from ..units import format_si
+from .breakdown import breakdown, where
+
+CAUTION = ("Design estimates: sign-off belongs to the foundry's device models and "
+           "transistor-level simulation.")
+
+
+def _pct(x: float) -> str:
+    return f"{x * 100:+.3f}%"
+
+
+def _cell(text: str) -> str:
+    return text.replace("|", "\\|")
+
+
+def to_markdown(result: Audit, source: str | None = None) -> str:
+    tree = result.tree
+    plan = tree.plan
+    s = result.summary()
+    out = [f"# Bias tree review: {_cell(plan.title or 'untitled')}", ""]
+    if source:
+        out += [f"Plan file: `{source}`", ""]
+    out += [
+        f"**{s['passed']} of {s['loads']} loads pass**" + (f", **{s['failed']} fail**" if s["failed"] else "")
+        + f" ({s['instances']} instances).",
+        "",
+        "| quantity | value |",
+        "|---|---|",
+        f"| supply | {format_si(plan.supply, 'V')} |",
+        f"| temperature | {plan.temperature - 273.15:.4g} °C |",
+        f"| reference | {format_si(plan.reference.current, 'A')} ±{plan.reference.tolerance * 100:.3g}% "
+        f"(feeds {plan.reference.feeds}) |",
+        f"| delivered current | {format_si(s['delivered_current'], 'A', 4)} |",
+        f"| overhead current | {format_si(s['overhead_current'], 'A', 4)} ({format_si(s['overhead_power'], 'W', 4)}) |",
+        f"| total supply power | {format_si(s['supply_power'], 'W', 4)} |",
+        f"| device units | {s['device_units']:.6g} |",
+        "",
+        "## Devices",
+        "",
+        "| model | kind | parameters |",
+        "|---|---|---|",
+    ]
+    for name, dev in plan.devices.items():
+        params = ", ".join(f"{k}={v:.4g}" if isinstance(v, float) else f"{k}={v}"
+                           for k, v in dev.model_dump(by_alias=True, exclude={"kind"}).items() if v is not None)
+        out.append(f"| {_cell(name)} | {dev.kind} | {_cell(params)} |")
+    out += ["", "## Loads", "",
+            "| load | × | path | target | delivered | error | range | budget | margin | compliance | verdict |",
+            "|---|--:|---|--:|--:|--:|--:|--:|--:|--:|---|"]
+    for i, name in enumerate(tree.loads):
+        path = " > ".join(tree.mirrors[m] for m in tree.path(i))
+        rng = "" if result.error[i, 0] == result.error[i, 2] else f"{_pct(result.error[i, 0])}..{_pct(result.error[i, 2])}"
+        out.append(
+            f"| {_cell(name)} | {int(tree.l_mult[i])} | {_cell(path)} | {format_si(result.target[i], 'A', 4)} | "
+            f"{format_si(result.delivered[i, 1], 'A', 6)} | {_pct(result.error[i, 1])} | {rng} | "
+            f"±{result.tolerance[i] * 100:.3g}% | {_pct(result.margin[i])} | {format_si(result.compliance[i], 'V', 4)} | "
+            f"{'pass' if result.passed[i] else '**FAIL**'} |"
+        )
+    failing = [i for i in range(len(tree.loads)) if not result.passed[i]]
+    if failing:
+        out += ["", "## Why loads fail", ""]
+        for i in failing:
+            out += [f"### {tree.loads[i]}", ""]
+            out += [f"- {_cell(r)}" for r in result.reasons(i)]
+            out += ["", f"Error terms {where(result, i)}, stage by stage "
+                        "(they compound: Π(1 + term) − 1 = error):", "",
+                    "| stage | effect | term |", "|---|---|--:|"]
+            out += [f"| {_cell(st)} | {_cell(label)} | {_pct(v)} |" for st, label, v in breakdown(result, i)]
+            out.append("")
+    out += ["", f"_{CAUTION}_", ""]
+    return "\n".join(out)
