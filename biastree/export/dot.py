@@ -21,7 +21,7 @@ FAIL_COLOUR, FAIL_FILL = "#c0392b", "#fbe3df"
 MIRROR_COLOUR, MIRROR_FILL = "#455a64", "#f3f5f6"
 REF_COLOUR, REF_FILL = "#283593", "#e8eaf6"
 PASS_MARK, FAIL_MARK = "PASS", "FAIL"
-AUTO_NODE_LIMIT = 2000  # above this many nodes the diagram is cut by depth
+AUTO_NODE_LIMIT = 5000  # above this many nodes the diagram is cut by depth
 ANNOTATIONS = ("current", "ratio", "error")
 
 
@@ -173,20 +173,22 @@ def to_dot(
             elif m_keep[child]:
                 hidden.setdefault(parent, []).append(child)
     # summaries of what a depth cut hides
+    n_below, fail_below = _counts_below(result) if hidden else (None, None)
     for parent, children in hidden.items():
-        below = _loads_below(result, children)
-        n_fail = int((~result.passed[below]).sum())
+        n_loads = int(sum(n_below[c] for c in children))
+        n_fail = int(sum(fail_below[c] for c in children))
         node = f"more:{tree.mirrors[parent]}"
         colour = FAIL_COLOUR if n_fail else PASS_COLOUR
         mark = f"{FAIL_MARK}: {n_fail}" if n_fail else PASS_MARK
-        text = f"{len(children)} mirror(s), {len(below)} load(s) below" + "\\n" + mark
+        text = f"{len(children)} mirror(s), {n_loads} load(s) below" + "\\n" + mark
         lines.append(f'  {_q(node)} [shape=folder, style="filled", color="{colour}", fillcolor="white", '
                      f"label={_q(text)}];")
         lines.append(f'  {_q("m:" + tree.mirrors[parent])} -> {_q(node)} [style=dashed, color="#90a4ae"];')
     lines += _legend()
     lines.append("}")
     text = "\n".join(lines) + "\n"
-    return Diagram(text, text.count("[color=") + 1, tuple(notes))
+    nodes = sum(1 for line in lines if line.startswith('  "') and " -> " not in line) + 1
+    return Diagram(text, nodes, tuple(notes))
 
 
 def _title(result: Audit, notes: list[str]) -> str:
@@ -245,11 +247,19 @@ def _edge_label(result: Audit, b: int, annotate: str, errors: np.ndarray | None)
     return f"{ratio}: {format_si(op.b_current[b, 1], 'A', 4)}"
 
 
-def _loads_below(result: Audit, mirrors: list[int]) -> np.ndarray:
+def _counts_below(result: Audit) -> tuple[np.ndarray, np.ndarray]:
+    """Loads and failing loads in each mirror's subtree (bottom-up sums)."""
     tree = result.tree
-    roots = set(mirrors)
+    n = np.zeros(len(tree.mirrors), dtype=np.int64)
+    fails = np.zeros(len(tree.mirrors), dtype=np.int64)
     parents = tree.b_parent[tree.l_branch]
-    return np.array([i for i in range(len(tree.loads)) if roots & set(tree.mirror_paths[int(parents[i])])], dtype=int)
+    np.add.at(n, parents, 1)
+    np.add.at(fails, parents, (~result.passed).astype(np.int64))
+    for gen in reversed(tree.generations[1:]):
+        up = tree.b_parent[tree.m_in_branch[gen]]
+        np.add.at(n, up, n[gen])
+        np.add.at(fails, up, fails[gen])
+    return n, fails
 
 
 def _legend() -> list[str]:

@@ -43,6 +43,9 @@ document.querySelectorAll('table.sortable').forEach(function(table){
 """
 
 
+MAX_BREAKDOWNS = 300  # failing loads explained with a chart; beyond that the page gets unwieldy
+
+
 def _pct(x: float) -> str:
     return f"{x * 100:+.3f}%"
 
@@ -158,7 +161,10 @@ def to_html(result: Audit, svg: str | None = None, source: str | None = None) ->
     failing = [i for i in range(len(tree.loads)) if not result.passed[i]]
     if failing:
         h.append("<h2>Why loads fail</h2>")
-        for i in failing:
+        if len(failing) > MAX_BREAKDOWNS:
+            h.append(f"<p>{len(failing)} loads fail; the first {MAX_BREAKDOWNS} are explained here "
+                     "(<code>biastree check --json</code> and the CSV hold every one).</p>")
+        for i in failing[:MAX_BREAKDOWNS]:
             h.append(f'<h3 id="fail-{i}">{escape(tree.loads[i])}</h3><ul>')
             h += [f"<li>{escape(r)}</li>" for r in result.reasons(i)]
             h.append(f"</ul><p>Error terms {escape(where(result, i))}, stage by stage "

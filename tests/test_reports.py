@@ -1,0 +1,229 @@
+"""Diagrams and review reports: golden DOT text, rendering with Graphviz, and
+the same numbers in every format as in `check --json`."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import os
+import re
+import xml.etree.ElementTree as ET
+from html.parser import HTMLParser
+
+import pytest
+from typer.testing import CliRunner
+
+import biastree
+from biastree.cli import app
+from biastree.export.csv import to_csv
+from biastree.export.dot import to_dot
+from biastree.export.html import to_html
+from biastree.export.markdown import to_markdown
+from biastree.generate import random_plan
+
+from conftest import ROOT, SAMPLES
+from helpers import tree_of
+
+runner = CliRunner()
+GOLDEN = ROOT / "tests" / "golden"
+PREFIX = {"p": 1e-12, "n": 1e-9, "µ": 1e-6, "m": 1e-3, "": 1.0, "k": 1e3}
+
+
+def si(text: str) -> float:
+    """'9.855 µA' → 9.855e-06 (parses what format_si prints)."""
+    m = re.fullmatch(r"(-?[\d.]+(?:e[+-]?\d+)?) ?([pnµmk]?)[AVW]", text.strip())
+    assert m, text
+    return float(m.group(1)) * PREFIX[m.group(2)]
+
+
+def json_of(sample) -> dict:  # type: ignore[no-untyped-def]
+    return json.loads(runner.invoke(app, ["check", str(sample), "--json"]).stdout)
+
+
+@pytest.mark.parametrize("sample", SAMPLES, ids=lambda p: p.stem)
+def test_golden_dot(sample) -> None:  # type: ignore[no-untyped-def]
+    text = to_dot(biastree.check(sample)).text
+    golden = GOLDEN / f"{sample.stem}.dot"
+    if os.environ.get("UPDATE_GOLDEN"):
+        golden.write_text(text)
+    assert text == golden.read_text(), "DOT changed: check it, then UPDATE_GOLDEN=1 pytest"
+
+
+@pytest.mark.parametrize("sample", SAMPLES, ids=lambda p: p.stem)
+def test_dot_numbers_match_json(sample) -> None:  # type: ignore[no-untyped-def]
+    text = to_dot(biastree.check(sample)).text
+    data = json_of(sample)
+    for load in data["loads"]:
+        node = re.search(r'"l:' + re.escape(load["name"]) + r'" \[.*', text)
+        assert node, load["name"]
+        delivered = re.search(r"delivered ([^<]+)<", node.group(0)).group(1)
+        assert si(delivered) == pytest.approx(load["delivered"], rel=5e-4)  # 4 significant digits
+        error = re.search(r"error ([+-][\d.]+)%", node.group(0)).group(1)
+        assert float(error) / 100 == pytest.approx(load["error"], abs=5e-5)
+        assert ("FAIL" in node.group(0)) == (load["verdict"] == "fail")
+    for mirror in biastree.load(sample).mirrors:
+        assert f'"m:{mirror}"' in text
+
+
+def _dot_nodes(text: str) -> tuple[set[str], set[str]]:
+    loads = set(re.findall(r'^  "l:([^"#]+)(?:#\d+)?" \[', text, re.M))
+    mirrors = set(re.findall(r'^  "m:([^"]+)" \[', text, re.M))
+    return loads, mirrors
+
+
+def test_only_failing_keeps_exactly_the_failing_paths() -> None:
+    result = biastree.check(ROOT / "samples" / "failing_budgets.yaml")
+    loads, mirrors = _dot_nodes(to_dot(result, only_failing=True).text)
+    failing = {result.tree.loads[i] for i in range(len(result.tree.loads)) if not result.passed[i]}
+    on_paths = {result.tree.mirrors[m] for i in range(len(result.tree.loads)) if not result.passed[i]
+                for m in result.tree.path(i)}
+    assert loads == failing
+    assert mirrors == on_paths
+    all_loads, _ = _dot_nodes(to_dot(result).text)
+    assert all_loads == set(result.tree.loads)
+
+
+def test_depth_cut_sums_up_the_rest() -> None:
+    result = biastree.check(ROOT / "samples" / "bipolar_small.yaml")
+    text = to_dot(result, depth=1).text
+    loads, mirrors = _dot_nodes(text)
+    assert mirrors == {"m_master"}
+    assert '"more:m_master"' in text and "1 mirror(s), 7 load(s) below" in text
+
+
+def test_expand_draws_each_copy() -> None:
+    result = biastree.check(ROOT / "samples" / "bipolar_small.yaml")
+    text = to_dot(result, expand=True).text
+    assert len(re.findall(r'^  "l:adc_cmp#\d+" \[', text, re.M)) == 4
+    assert "adc_cmp [2/4]" in text
+
+
+def test_large_plan_collapses_and_says_so() -> None:
+    from biastree.export.dot import AUTO_NODE_LIMIT
+
+    result = biastree.check(tree_of(random_plan(6000, seed=5)))
+    diagram = to_dot(result)
+    assert diagram.notes and "too many to read" in diagram.notes[0]
+    assert diagram.nodes <= AUTO_NODE_LIMIT + 1000  # summaries of cut subtrees come on top
+    small = to_dot(biastree.check(tree_of(random_plan(2000, seed=5))))
+    assert not small.notes  # a 2,000-load plan is drawn whole
+
+
+def test_annotations() -> None:
+    result = biastree.check(ROOT / "samples" / "failing_budgets.yaml")
+    assert 'label="1 × 6"' in to_dot(result, annotate="ratio").text
+    assert re.search(r'label="-2\d\.\d\d%"', to_dot(result, annotate="error").text)
+    with pytest.raises(ValueError):
+        to_dot(result, annotate="colour")
+
+
+@pytest.mark.parametrize("sample", SAMPLES, ids=lambda p: p.stem)
+def test_svg_renders_with_every_load(dot, sample, tmp_path) -> None:  # type: ignore[no-untyped-def]
+    out = tmp_path / "tree.svg"
+    result = runner.invoke(app, ["draw", str(sample), "-o", str(out)])
+    assert result.exit_code == 0, result.output
+    root = ET.parse(out).getroot()
+    text = " ".join(t.text or "" for t in root.iter() if t.tag.endswith("text"))
+    for name in biastree.load(sample).loads:
+        assert name in text
+
+
+def test_png_and_pdf_render(dot, tmp_path) -> None:  # type: ignore[no-untyped-def]
+    for suffix, magic in ((".png", b"\x89PNG"), (".pdf", b"%PDF")):
+        out = tmp_path / f"tree{suffix}"
+        assert runner.invoke(app, ["draw", str(SAMPLES[0]), "-o", str(out)]).exit_code == 0
+        assert out.read_bytes().startswith(magic)
+
+
+def test_wide_png_is_refused(dot, tmp_path) -> None:  # type: ignore[no-untyped-def]
+    plan = tmp_path / "big.yaml"
+    assert runner.invoke(app, ["generate", "800", "-o", str(plan)]).exit_code == 0
+    result = runner.invoke(app, ["draw", str(plan), "-o", str(tmp_path / "big.png")])
+    assert result.exit_code == 2 and "would be unreadable" in result.output
+    assert not (tmp_path / "big.png").exists()
+
+
+def test_missing_dot_is_one_clear_line(tmp_path, monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    monkeypatch.setenv("PATH", str(tmp_path))  # no `dot` anywhere
+    result = runner.invoke(app, ["draw", str(SAMPLES[0]), "-o", str(tmp_path / "t.svg")])
+    assert result.exit_code == 2
+    assert result.output.strip().startswith("error: the Graphviz `dot` program is not installed")
+    assert runner.invoke(app, ["draw", str(SAMPLES[0]), "-o", str(tmp_path / "t.dot")]).exit_code == 0
+
+
+class _Collect(HTMLParser):
+    def __init__(self) -> None:
+        super().__init__()
+        self.tags: list[tuple[str, dict[str, str | None]]] = []
+        self.text: list[str] = []
+
+    def handle_starttag(self, tag, attrs):  # type: ignore[no-untyped-def]
+        self.tags.append((tag, dict(attrs)))
+
+    def handle_data(self, data):  # type: ignore[no-untyped-def]
+        self.text.append(data)
+
+
+@pytest.mark.parametrize("sample", SAMPLES, ids=lambda p: p.stem)
+def test_html_report_is_self_contained(dot, sample, tmp_path) -> None:  # type: ignore[no-untyped-def]
+    out = tmp_path / "review.html"
+    result = runner.invoke(app, ["report", str(sample), "-o", str(out)])
+    assert result.exit_code == 0, result.output
+    page = out.read_text()
+    parser = _Collect()
+    parser.feed(page)
+    tags = [t for t, _ in parser.tags]
+    assert "svg" in tags and "table" in tags
+    for tag, attrs in parser.tags:  # nothing is fetched from anywhere
+        assert tag not in ("link", "iframe", "img")
+        assert not attrs.get("src")
+        href = attrs.get("href") or attrs.get("xlink:href") or ""
+        assert href == "" or href.startswith("#"), href
+    body = " ".join(parser.text)
+    for name in biastree.load(sample).loads:
+        assert name in body
+    assert "sign-off belongs to the foundry" in body
+
+
+def _html_rows(page: str) -> dict[str, list[str]]:
+    rows = {}
+    for row in re.findall(r"<tr[^>]*>(<td data-v=.*?)</tr>", page):
+        values = re.findall(r'data-v="([^"]*)"', row)
+        rows[values[0]] = values
+    return rows
+
+
+@pytest.mark.parametrize("sample", SAMPLES, ids=lambda p: p.stem)
+def test_report_numbers_match_json(sample) -> None:  # type: ignore[no-untyped-def]
+    result = biastree.check(sample)
+    data = {l["name"]: l for l in json_of(sample)["loads"]}
+    # CSV: the very same floats
+    for row in csv.DictReader(io.StringIO(to_csv(result))):
+        load = data[row["name"]]
+        assert float(row["delivered_A"]) == load["delivered"]
+        assert float(row["error"]) == load["error"]
+        assert [float(row["delivered_min_A"]), float(row["delivered_max_A"])] == load["delivered_range"]
+        assert float(row["margin"]) == load["margin"]
+        assert float(row["compliance_margin_V"]) == load["compliance_margin"]
+        assert row["verdict"] == load["verdict"]
+    # HTML: the sortable table carries the exact numbers in data-v
+    for name, values in _html_rows(to_html(result)).items():
+        assert float(values[4]) == data[name]["delivered"]
+        assert float(values[5]) == data[name]["error"]
+        assert values[10] == data[name]["verdict"]
+    # Markdown: printed to 6 significant digits
+    for line in to_markdown(result).splitlines():
+        cells = [c.strip() for c in line.strip("|").split("|")]
+        if cells and cells[0] in data and len(cells) == 11:
+            assert si(cells[4]) == pytest.approx(data[cells[0]]["delivered"], rel=5e-6)
+            assert ("FAIL" in cells[10]) == (data[cells[0]]["verdict"] == "fail")
+
+
+def test_markdown_and_csv_cli(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    md, table = tmp_path / "r.md", tmp_path / "loads.csv"
+    result = runner.invoke(app, ["report", str(ROOT / "samples" / "failing_budgets.yaml"), "-o", str(md), "--csv", str(table)])
+    assert result.exit_code == 0, result.output
+    text = md.read_text()
+    assert "## Why loads fail" in text and "### hot_node" in text and "β loading" in text
+    assert len(table.read_text().splitlines()) == 1 + 5
