@@ -48,13 +48,8 @@ class Audit:
     def ideal(self) -> Array:
         """Current each load would get from the ratios alone (ideal mirrors)."""
         tree = self.tree
-        m_ideal = np.zeros(len(tree.mirrors))
-        m_ideal[tree.generations[0]] = self.op.i_ref[1]
-        for gen in tree.generations[1:]:
-            b = tree.m_in_branch[gen]
-            m_ideal[gen] = m_ideal[tree.b_parent[b]] * tree.b_ratio[b]
         lb = tree.l_branch
-        return m_ideal[tree.b_parent[lb]] * tree.b_ratio[lb]
+        return tree.m_ideal_in[tree.b_parent[lb]] * tree.b_ratio[lb]
 
     # --- per-load explanation -------------------------------------------
 
@@ -71,7 +66,7 @@ class Audit:
             family = "bjt" if tree.m_bipolar[m] else "mos"
             terms = []
             for key in TOPOLOGIES[mirror.topology].terms[family]:
-                value = op.m_factors[key][m, case] if key in op.m_factors else op.b_factors[key][branch, case]
+                value = op.b_factors[key][branch, case]
                 terms.append({"term": key, "label": TERM_LABELS[key], "value": float(value - 1.0)})
             gain = float(np.prod([1.0 + t["value"] for t in terms])) - 1.0
             out.append(
@@ -102,11 +97,8 @@ class Audit:
         and its own), then a running best down every path, one generation at a time.
         """
         tree, op = self.tree, self.op
-        keys = list(op.m_factors) + list(op.b_factors)
-        n_b = len(tree.b_parent)
-        stacked = np.stack(
-            [op.m_factors[k][tree.b_parent] for k in op.m_factors] + [op.b_factors[k] for k in op.b_factors]
-        ) - 1.0 if keys else np.zeros((1, n_b, 3))
+        keys = list(op.b_factors)
+        stacked = np.stack([op.b_factors[k] for k in keys]) - 1.0
         which = np.argmax(np.abs(stacked), axis=0)  # (n_b, cases)
         value = np.take_along_axis(stacked, which[None], axis=0)[0]
         mirror = np.broadcast_to(tree.b_parent[:, None], value.shape)

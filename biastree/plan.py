@@ -62,6 +62,8 @@ def Quantity(unit: str, example: str, *constraints: object) -> object:
 
 
 Current = Quantity("A", "10uA", Gt(0))
+NonNegCurrent = Quantity("A", "1uA", Ge(0))
+Resistance = Quantity("ohm", "10kohm", Gt(0))
 PositiveVoltage = Quantity("V", "3.3V", Gt(0))
 Voltage = Quantity("V", "1.5V")
 NonNegVoltage = Quantity("V", "0.3V", Ge(0))
@@ -151,6 +153,22 @@ class Mirror(_Strict):
     input_size: Positive = Field(default=1.0, description="input device size in unit devices")
     topology: Name = Field(default="simple", description="mirror topology (see `biastree topologies`)")
     branches: list[Branch] = Field(min_length=1, description="the outputs of this mirror")
+    helper_size: Positive = Field(default=1.0, description="beta_helper: size of the helper device, unit devices")
+    bleed: NonNegCurrent = Field(default=0.0, description="beta_helper: bleed current from the base line to the rail")
+    degeneration: Optional[Resistance] = Field(
+        default=None, description="degenerated: emitter resistor of the input device (outputs get R/ratio)"
+    )
+    degeneration_drop: Optional[PositiveVoltage] = Field(
+        default=None, description="degenerated: instead of a resistor, the drop across it at the ideal input current"
+    )
+    bias_current: Optional[Current] = Field(
+        default=None, description="wide_swing: current of the cascode bias device (default: the ideal input current)"
+    )
+    swing_n: Positive = Field(
+        default=1.25,
+        description="wide_swing: bias device is (W/L)/(n+1)²; n = 1 is the textbook edge of saturation, "
+        "1.25 keeps a margin",
+    )
 
     @field_validator("topology")
     @classmethod

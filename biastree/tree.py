@@ -71,6 +71,16 @@ class Tree:
                 paths[m] = (paths[int(self.b_parent[b])] if b >= 0 else ()) + (m,)
         return paths
 
+    @cached_property
+    def m_ideal_in(self) -> np.ndarray:
+        """Input current each mirror would get with ideal mirrors (ratios only)."""
+        ideal = np.zeros(len(self.mirrors))
+        ideal[self.generations[0]] = self.plan.reference.current
+        for gen in self.generations[1:]:
+            b = self.m_in_branch[gen]
+            ideal[gen] = ideal[self.b_parent[b]] * self.b_ratio[b]
+        return ideal
+
     def path(self, load: int) -> list[int]:
         """Mirror indices from the root down to the mirror that feeds ``load``."""
         return list(self.mirror_paths[int(self.b_parent[self.l_branch[load]])])
@@ -103,6 +113,31 @@ def _levels(plan: Plan) -> list[list[str]]:
     return levels
 
 
+_TOPOLOGY_KEYS = ("helper_size", "bleed", "degeneration", "degeneration_drop", "bias_current", "swing_n")
+
+
+def _topology_params(name: str, mirror: Any, topo: Any) -> list[tuple[tuple[Any, ...], str]]:
+    """Parameters given to the wrong topology, missing ones, and output limits."""
+    out = []
+    for key in _TOPOLOGY_KEYS:
+        if key in mirror.model_fields_set and key not in topo.params:
+            owners = sorted(t.name for t in TOPOLOGIES.values() if key in t.params)
+            out.append((("mirrors", name, key), f"applies to {'/'.join(owners)} mirrors, not to a {topo.name} mirror"))
+    if topo.name == "degenerated":
+        given = [k for k in ("degeneration", "degeneration_drop") if getattr(mirror, k) is not None]
+        if len(given) != 1:
+            out.append((("mirrors", name), "a degenerated mirror needs exactly one of degeneration (Ω) or degeneration_drop (V)"))
+    if topo.single_output and (len(mirror.branches) != 1 or mirror.branches[0].count != 1):
+        out.append(
+            (
+                ("mirrors", name, "branches"),
+                f"a {topo.name} mirror regulates a single output: give it one branch with count 1 "
+                "(fan out through a mirror below it)",
+            )
+        )
+    return out
+
+
 def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
     """Every structural problem of the plan as (key path, message)."""
     problems: list[tuple[tuple[Any, ...], str]] = []
@@ -128,6 +163,7 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
             problems.append(
                 (("mirrors", name, "topology"), f"topology '{topo.name}' is not available for {device.kind} devices")
             )
+        problems += _topology_params(name, mirror, topo)
 
     fed_by: dict[str, tuple[Any, ...]] = {}
     ref = plan.reference
