@@ -173,6 +173,29 @@ class Audit:
             out.append("headroom: the reference source has no voltage left (first mirror's input exceeds the supply)")
         return out
 
+    @cached_property
+    def hints(self) -> dict[int, list[str]]:
+        """Computed topology hints for failing loads (see biastree.advise)."""
+        from .advise import hints
+
+        return hints(self)
+
+    @cached_property
+    def regulation(self) -> tuple[Array, Array, Array]:
+        """Load regulation over each load's voltage range: (ΔI in A, ΔI/I_nominal,
+        ΔI/ΔV in A/V; 0 for a fixed voltage).  ΔI = I(max voltage) − I(min voltage)."""
+        plan = self.tree.plan
+        delta = self.delivered[:, 2] - self.delivered[:, 0]
+        span = np.array([plan.loads[n].v_range[2] - plan.loads[n].v_range[0] for n in self.tree.loads])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            per_volt = np.where(span > 0, delta / np.where(span > 0, span, 1.0), 0.0)
+        return delta, delta / self.delivered[:, 1], per_volt
+
+    @property
+    def rout(self) -> Array:
+        """Output resistance seen by each load at its nominal voltage, Ω."""
+        return self.op.b_rout[self.tree.l_branch, 1]
+
     def load_report(self, load: int) -> dict[str, Any]:
         """Everything known about one load, as plain data (the JSON result)."""
         tree, plan = self.tree, self.tree.plan
@@ -197,6 +220,13 @@ class Audit:
             "verdict": "pass" if self.passed[load] else "fail",
             "reasons": self.reasons(load),
             "plan_error": self.plan_term(load),
+            "rout": _finite_or_none(float(self.rout[load])),
+            "regulation": {
+                "delta_current": float(self.regulation[0][load]),
+                "fraction": float(self.regulation[1][load]),
+                "per_volt": float(self.regulation[2][load]),
+            },
+            "hints": self.hints.get(load, []),
             "stages": self.stages(load),
         }
 
@@ -207,9 +237,15 @@ class Audit:
         plan = tree.plan
         to_mirror = np.flatnonzero(~tree.b_to_load)
         inner = op.b_current[to_mirror, 1] * tree.m_mult[tree.b_parent[to_mirror]] * tree.b_count[to_mirror]
-        overhead = float(op.i_ref[1] + inner.sum())
+        extra = op.m_extra[:, 1] * tree.m_mult  # helper devices and bias sources
+        overhead = float(op.i_ref[1] + inner.sum() + extra.sum())
         delivered = float(np.sum(self.delivered[:, 1] * tree.l_mult))
-        units = tree.m_mult * np.array([plan.mirrors[m].input_size for m in tree.mirrors]) * (1.0 + tree.m_fanout)
+        per_mirror = []
+        for i, m in enumerate(tree.mirrors):
+            spec = plan.mirrors[m]
+            per_mirror.append(TOPOLOGIES[spec.topology].units(
+                spec.input_size, float(tree.m_fanout[i]), {"helper_size": spec.helper_size, "swing_n": spec.swing_n}))
+        units = tree.m_mult * np.array(per_mirror)
         mos_area = 0.0
         for i, m in enumerate(tree.mirrors):
             dev = plan.devices[plan.mirrors[m].device]
@@ -244,6 +280,10 @@ class Audit:
             "summary": self.summary(),
             "loads": [self.load_report(i) for i in range(len(self.tree.loads))],
         }
+
+
+def _finite_or_none(x: float) -> float | None:
+    return x if np.isfinite(x) else None
 
 
 def audit(op: OperatingPoint) -> Audit:

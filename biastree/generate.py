@@ -34,6 +34,7 @@ class Ranges:
     supply: float = 3.3
     load_voltage: tuple[float, float] = (1.0, 2.3)
     unit_current: float = 10e-6  # input devices are sized for about this per unit
+    topologies: tuple[str, ...] = ("simple",)  # drawn at random where the mirror allows
 
 
 def _devices(rng: np.random.Generator, r: Ranges) -> dict[str, dict[str, Any]]:
@@ -133,7 +134,36 @@ def random_plan(n_loads: int, seed: int = 1, ranges: Ranges | None = None) -> di
         "loads": loads,
     }
     _fix_targets(plan)
+    if r.topologies != ("simple",):
+        _assign_topologies(plan, r.topologies, rng)
     return plan
+
+
+def _assign_topologies(plan: dict[str, Any], names: tuple[str, ...], rng: np.random.Generator) -> None:
+    """Give each mirror a topology from ``names`` that fits its device and outputs."""
+    from .topologies import TOPOLOGIES
+
+    for mirror in plan["mirrors"].values():
+        family = "bjt" if mirror["device"] in ("qn", "qp") else "mos"
+        single = len(mirror["branches"]) == 1 and mirror["branches"][0].get("count", 1) == 1
+        fits = [n for n in names if family in TOPOLOGIES[n].kinds and (single or not TOPOLOGIES[n].single_output)]
+        if not fits:
+            continue
+        name = str(rng.choice(fits))
+        if name != "simple":
+            mirror["topology"] = name
+        if name == "degenerated":
+            mirror["degeneration_drop"] = f"{rng.uniform(0.03, 0.3):.3f}V"
+        if name == "beta_helper" and rng.random() < 0.5:
+            mirror["bleed"] = f"{rng.uniform(0.1, 2.0):.3f}uA"
+        if name in ("wilson", "wilson4", "cascode") and family == "bjt":
+            # outputs need about two V_BE from their rail: move the loads there
+            sink = mirror["device"] == "qn"
+            supply = float(plan["supply"].rstrip("V"))
+            for branch in mirror["branches"]:
+                if branch["to"] in plan["loads"]:
+                    dist = rng.uniform(1.75, supply - 0.9)
+                    plan["loads"][branch["to"]]["voltage"] = f"{dist if sink else supply - dist:.3f}V"
 
 
 def _fix_targets(plan: dict[str, Any]) -> None:

@@ -5,7 +5,7 @@ them against the schema generated from these models."""
 from __future__ import annotations
 
 import json
-from typing import Any, Literal
+from typing import Any, Literal, Optional
 
 from pydantic import BaseModel, ConfigDict, Field
 
@@ -33,6 +33,12 @@ class Stage(_Out):
     terms: list[Term]
 
 
+class Regulation(_Out):
+    delta_current: float = Field(description="I(max voltage) − I(min voltage), A")
+    fraction: float = Field(description="delta_current / delivered")
+    per_volt: float = Field(description="delta_current / voltage span, A/V (0 for a fixed voltage)")
+
+
 class LoadResult(_Out):
     name: str
     count: int = Field(description="instances of this load in the expanded tree")
@@ -52,6 +58,9 @@ class LoadResult(_Out):
     verdict: Literal["pass", "fail"]
     reasons: list[str]
     plan_error: float = Field(description="error from the ratios alone: ideal current / target − 1")
+    rout: Optional[float] = Field(description="output resistance seen by the load at its nominal voltage, Ω (null: infinite)")
+    regulation: Regulation
+    hints: list[str] = Field(description="computed topology changes that would help a failing load")
     stages: list[Stage] = Field(description="terms of each stage along the path, at the nominal voltage")
 
 
@@ -61,7 +70,9 @@ class Summary(_Out):
     passed: int
     failed: int
     reference_current: float
-    overhead_current: float = Field(description="reference plus every branch between mirrors, A")
+    overhead_current: float = Field(
+        description="reference, every branch between mirrors, helper devices and bias sources, A"
+    )
     overhead_power: float = Field(description="overhead current × supply, W")
     delivered_current: float = Field(description="sum over all load instances, A")
     supply_current: float

@@ -108,6 +108,8 @@ class Topology:
     single_output: bool = False  # only one branch with count 1 (Wilson)
     coupled_outputs: bool = False  # one output's voltage moves the others (affects Rout)
     terms: dict[str, tuple[str, ...]] = field(default_factory=lambda: dict(FAMILY_TERMS))
+    # unit devices of one mirror: (input size, fan-out Σ ratio·count, parameters) → units
+    units: Callable[[float, float, dict[str, float]], float] = lambda a0, fan, p: a0 * (1.0 + fan)
 
 
 def _converged(new: Array, old: Array) -> bool:
@@ -419,16 +421,17 @@ TOPOLOGIES: dict[str, Topology] = {
         Topology("simple", frozenset({"bjt", "mos"}), "diode-connected input device, outputs share its base/gate", _simple),
         Topology(
             "beta_helper", frozenset({"bjt"}), "emitter-follower helper supplies the base currents (β² error)",
-            _beta_helper, params=("helper_size", "bleed"),
+            _beta_helper, params=("helper_size", "bleed"), units=lambda a0, fan, p: a0 * (1.0 + fan) + p["helper_size"],
         ),
         Topology("wilson", frozenset({"bjt"}), "3-device Wilson: feedback, one output, Rout ≈ β·ro/2", _wilson,
-                 single_output=True),
+                 single_output=True, units=lambda a0, fan, p: a0 * (1.0 + 2.0 * fan)),
         Topology("wilson4", frozenset({"bjt"}), "4-device improved Wilson: equal V_CE on the mirror pair", _wilson4,
-                 single_output=True),
+                 single_output=True, units=lambda a0, fan, p: a0 * (2.0 + 2.0 * fan)),
         Topology("cascode", frozenset({"bjt", "mos"}), "stacked mirror with cascode outputs, Rout ≈ β·ro (BJT), gm·ro² (MOS)",
-                 _cascode, coupled_outputs=True),
+                 _cascode, coupled_outputs=True, units=lambda a0, fan, p: 2.0 * a0 * (1.0 + fan)),
         Topology("wide_swing", frozenset({"mos"}), "low-voltage cascode, outputs down to about 2·V_ov",
-                 _wide_swing, params=("bias_current", "swing_n")),
+                 _wide_swing, params=("bias_current", "swing_n"),
+                 units=lambda a0, fan, p: 2.0 * a0 * (1.0 + fan) + a0 / (p["swing_n"] + 1.0) ** 2),
         Topology("degenerated", frozenset({"bjt"}), "emitter resistors (R_E on the input, R_E/ratio on outputs)",
                  _degenerated, params=("degeneration", "degeneration_drop")),
     )

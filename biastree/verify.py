@@ -171,7 +171,7 @@ def verify(
     ours = np.zeros((len(tree.loads), len(cases)))
     sim = np.zeros_like(ours)
     for k, case in enumerate(cases):
-        netlist = to_spice(tree, case)
+        netlist = to_spice(tree, case, op=op)
         currents = simulated_currents(netlist, run_ngspice(netlist.text, timeout))
         ours[:, k] = op.l_current[:, CASES.index(case)]
         sim[:, k] = [currents[name] for name in tree.loads]

@@ -15,8 +15,10 @@ import re
 from dataclasses import dataclass, field
 from typing import Callable
 
+import numpy as np
+
 from ..plan import BjtModel, MosModel
-from ..solve import CASES
+from ..solve import CASES, OperatingPoint, solve, topology_params
 from ..tree import Tree
 from ..units import ZERO_CELSIUS
 
@@ -92,6 +94,10 @@ class _Context:
     node_of_mirror: dict[str, str]
     out_node: dict[tuple[str, int], str]
     mult: dict[str, float]
+    params: dict[str, np.ndarray]
+
+    def param(self, key: str, mirror: str) -> float:
+        return float(self.params[key][self.tree.mirrors.index(mirror), 0])
 
     def device(self, label: str, mirror: str, c: str, b: str, e: str, size: float, multiplicity: float) -> str:
         """One device of ``mirror``: size in unit devices, times ``multiplicity`` copies."""
@@ -104,13 +110,18 @@ class _Context:
                 f"m={_num(multiplicity)}")
 
 
-def _simple(ctx: _Context, mirror: str) -> list[str]:
+def _frame(ctx: _Context, mirror: str) -> tuple[str, str, str, str, float]:
+    """(tag, input node, rail, opposite rail, instances) of a mirror."""
     plan = ctx.tree.plan
     spec = plan.mirrors[mirror]
-    tag = ctx.names.get("mirror", mirror)
-    rail = "0" if plan.devices[spec.device].kind in ("npn", "nmos") else "vdd"
-    node = ctx.node_of_mirror[mirror]
-    mult = ctx.mult[mirror]
+    sink = plan.devices[spec.device].kind in ("npn", "nmos")
+    return (ctx.names.get("mirror", mirror), ctx.node_of_mirror[mirror], "0" if sink else "vdd",
+            "vdd" if sink else "0", ctx.mult[mirror])
+
+
+def _simple(ctx: _Context, mirror: str) -> list[str]:
+    spec = ctx.tree.plan.mirrors[mirror]
+    tag, node, rail, _, mult = _frame(ctx, mirror)
     lines = [ctx.device(f"{tag}_in", mirror, node, node, rail, spec.input_size, mult)]
     for i, branch in enumerate(spec.branches):
         out = ctx.out_node[(mirror, i)]
@@ -119,13 +130,114 @@ def _simple(ctx: _Context, mirror: str) -> list[str]:
     return lines
 
 
-WRITERS: dict[str, Writer] = {"simple": _simple}
+def _beta_helper(ctx: _Context, mirror: str) -> list[str]:
+    spec = ctx.tree.plan.mirrors[mirror]
+    tag, node, rail, other, mult = _frame(ctx, mirror)
+    base = f"b_{tag}"
+    lines = [
+        ctx.device(f"{tag}_in", mirror, node, base, rail, spec.input_size, mult),
+        ctx.device(f"{tag}_hlp", mirror, other, node, base, spec.helper_size, mult),
+    ]
+    if spec.bleed > 0:
+        a, b = (base, "0") if rail == "0" else ("vdd", base)
+        lines.append(f"i{tag}_bleed {a} {b} dc {_num(spec.bleed * mult)}")
+    for i, branch in enumerate(spec.branches):
+        lines.append(ctx.device(f"{tag}_o{i}", mirror, ctx.out_node[(mirror, i)], base, rail,
+                                branch.ratio * spec.input_size, mult * branch.count))
+    return lines
 
 
-def to_spice(tree: Tree, case: str = "nominal", source: str | None = None) -> Netlist:
+def _wilson(ctx: _Context, mirror: str, four: bool = False) -> list[str]:
+    spec = ctx.tree.plan.mirrors[mirror]
+    tag, node, rail, _, mult = _frame(ctx, mirror)
+    base, m = f"b_{tag}", spec.branches[0].ratio
+    a0 = spec.input_size
+    q1_collector = f"x_{tag}" if four else node
+    lines = [
+        ctx.device(f"{tag}_q1", mirror, q1_collector, base, rail, a0, mult),
+        ctx.device(f"{tag}_q2", mirror, base, base, rail, m * a0, mult),
+        ctx.device(f"{tag}_q3", mirror, ctx.out_node[(mirror, 0)], node, base, m * a0, mult),
+    ]
+    if four:
+        lines.append(ctx.device(f"{tag}_q4", mirror, node, node, q1_collector, a0, mult))
+    return lines
+
+
+def _wilson4(ctx: _Context, mirror: str) -> list[str]:
+    return _wilson(ctx, mirror, four=True)
+
+
+def _cascode(ctx: _Context, mirror: str) -> list[str]:
+    spec = ctx.tree.plan.mirrors[mirror]
+    tag, node, rail, _, mult = _frame(ctx, mirror)
+    base, a0 = f"b_{tag}", spec.input_size
+    lines = [
+        ctx.device(f"{tag}_in1", mirror, base, base, rail, a0, mult),
+        ctx.device(f"{tag}_in2", mirror, node, node, base, a0, mult),
+    ]
+    for i, branch in enumerate(spec.branches):
+        mid = f"x{i}_{tag}"
+        size, copies = branch.ratio * a0, mult * branch.count
+        lines.append(ctx.device(f"{tag}_o{i}", mirror, mid, base, rail, size, copies))
+        lines.append(ctx.device(f"{tag}_c{i}", mirror, ctx.out_node[(mirror, i)], node, mid, size, copies))
+    return lines
+
+
+def _wide_swing(ctx: _Context, mirror: str) -> list[str]:
+    spec = ctx.tree.plan.mirrors[mirror]
+    tag, node, rail, _, mult = _frame(ctx, mirror)
+    gate, mid, a0 = f"g_{tag}", f"x_{tag}", spec.input_size
+    bias = ctx.param("bias_current", mirror)
+    a, b = ("vdd", gate) if rail == "0" else (gate, "0")
+    lines = [
+        f"i{tag}_bias {a} {b} dc {_num(bias * mult)}",
+        ctx.device(f"{tag}_bias", mirror, gate, gate, rail, a0 / (spec.swing_n + 1.0) ** 2, mult),
+        ctx.device(f"{tag}_in1", mirror, mid, node, rail, a0, mult),
+        ctx.device(f"{tag}_in2", mirror, node, gate, mid, a0, mult),
+    ]
+    for i, branch in enumerate(spec.branches):
+        omid = f"x{i}_{tag}"
+        size, copies = branch.ratio * a0, mult * branch.count
+        lines.append(ctx.device(f"{tag}_o{i}", mirror, omid, node, rail, size, copies))
+        lines.append(ctx.device(f"{tag}_c{i}", mirror, ctx.out_node[(mirror, i)], gate, omid, size, copies))
+    return lines
+
+
+def _degenerated(ctx: _Context, mirror: str) -> list[str]:
+    spec = ctx.tree.plan.mirrors[mirror]
+    tag, node, rail, _, mult = _frame(ctx, mirror)
+    r1 = ctx.param("r_emitter", mirror)
+    lines = [
+        ctx.device(f"{tag}_in", mirror, node, node, f"e_{tag}", spec.input_size, mult),
+        f"r{tag}_in e_{tag} {rail} {_num(r1 / mult)}",
+    ]
+    for i, branch in enumerate(spec.branches):
+        copies = mult * branch.count
+        lines.append(ctx.device(f"{tag}_o{i}", mirror, ctx.out_node[(mirror, i)], node, f"e{i}_{tag}",
+                                branch.ratio * spec.input_size, copies))
+        lines.append(f"r{tag}_o{i} e{i}_{tag} {rail} {_num(r1 / branch.ratio / copies)}")
+    return lines
+
+
+WRITERS: dict[str, Writer] = {
+    "simple": _simple,
+    "beta_helper": _beta_helper,
+    "wilson": _wilson,
+    "wilson4": _wilson4,
+    "cascode": _cascode,
+    "wide_swing": _wide_swing,
+    "degenerated": _degenerated,
+}
+
+
+def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: OperatingPoint | None = None) -> Netlist:
     """The plan as an ngspice netlist, loads at the ``case`` end of their range.
 
-    ``case`` is one of ``min``, ``nominal``, ``max``.
+    ``case`` is one of ``min``, ``nominal``, ``max``.  Every mirror's input
+    node gets a ``.nodeset`` at biastree's solution (``op``, solved here if
+    not given): only a starting guess for the simulator's Newton iteration,
+    which still finds its own answer, but it spares deep trees the gmin
+    stepping that could otherwise end in a singular matrix.
     """
     if case not in CASES:
         raise ValueError(f"case must be one of {', '.join(CASES)}")
@@ -178,11 +290,18 @@ def to_spice(tree: Tree, case: str = "nominal", source: str | None = None) -> Ne
         lines.append(f"iref vdd {root_node} dc {_num(plan.reference.current)}")
     else:
         lines.append(f"iref {root_node} 0 dc {_num(plan.reference.current)}")
-    ctx = _Context(tree, names, models, node_of_mirror, out_node, mult)
+    ctx = _Context(tree, names, models, node_of_mirror, out_node, mult, topology_params(tree))
     for m in tree.mirrors:
         spec = plan.mirrors[m]
         lines.append(f"* mirror {m}: {spec.device} {spec.topology}, ×{mult[m]:g}")
         lines += WRITERS[spec.topology](ctx, m)
+    op = solve(tree, output_resistance=False) if op is None else op
+    nodeset = []
+    for i, m in enumerate(tree.mirrors):
+        v = float(op.m_v_in[i, column])
+        nodeset.append(f"v({node_of_mirror[m]})={_num(v if tree.m_sink[i] else plan.supply - v)}")
+    for k in range(0, len(nodeset), 6):
+        lines.append(".nodeset " + " ".join(nodeset[k:k + 6]))
     lines.append("* loads: ammeter (0 V) then the node voltage")
     lines += load_lines
     lines.append(".op")

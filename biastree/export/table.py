@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import numpy as np
+
 from ..audit import Audit
 from ..units import format_si
 
@@ -14,9 +16,12 @@ def to_table(result: Audit, failing_only: bool = False) -> str:
     """One row per load: path, target, delivered, error, budget, margin, compliance, verdict."""
     tree = result.tree
     plan = tree.plan
-    header = ("load", "×", "path", "target", "delivered", "error", "range", "budget", "margin", "compl.", "verdict")
+    header = ("load", "×", "path", "target", "delivered", "error", "range", "budget", "margin", "compl.", "Rout",
+              "reg./V", "verdict")
     rows = []
     names = tree.mirrors
+    rout = result.rout
+    per_volt = result.regulation[2]
     path_text = [" > ".join(names[m] for m in p) for p in tree.mirror_paths]
     parents = tree.b_parent[tree.l_branch].tolist()
     for i, name in enumerate(tree.loads):
@@ -38,11 +43,13 @@ def to_table(result: Audit, failing_only: bool = False) -> str:
                 f"±{result.tolerance[i] * 100:.3g}%",
                 _pct(result.margin[i]),
                 format_si(result.compliance[i], "V"),
+                format_si(float(rout[i]), "Ω") if np.isfinite(rout[i]) else "∞",
+                f"{per_volt[i] / result.delivered[i, 1] * 100:+.3g}%" if per_volt[i] else "",
                 "pass" if ok else "FAIL",
             )
         )
     widths = [max(len(h), *(len(r[k]) for r in rows)) if rows else len(h) for k, h in enumerate(header)]
-    right = {1, 3, 4, 5, 6, 7, 8, 9}
+    right = {1, 3, 4, 5, 6, 7, 8, 9, 10, 11}
 
     template = "  ".join(f"{{:{'>' if k in right else '<'}{w}}}" for k, w in enumerate(widths))
 
@@ -55,9 +62,12 @@ def to_table(result: Audit, failing_only: bool = False) -> str:
     if failing:
         out.append("")
         out.append("Why loads fail:")
+        hints = result.hints
         for i in failing:
             for reason in result.reasons(i):
                 out.append(f"  {tree.loads[i]}: {reason}")
+            for hint in hints.get(i, []):
+                out.append(f"  {tree.loads[i]}: hint: {hint}")
     out.append("")
     out.append(to_summary(result))
     return "\n".join(out) + "\n"
