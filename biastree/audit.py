@@ -157,10 +157,16 @@ class Audit:
             need = float(op.b_min_distance[branch, case])
             have = float(op.b_distance[branch, case])
             parent = tree.mirrors[tree.b_parent[branch]]
-            out.append(
-                f"compliance: output of {parent} needs {format_si(need, 'V')} from its rail, "
-                f"has {format_si(have, 'V')} at {format_si(plan.loads[name].v_range[case], 'V')}"
-            )
+            if have - need <= op.b_internal_margin[branch, case]:
+                out.append(
+                    f"compliance: output of {parent} needs {format_si(need, 'V')} from its rail, "
+                    f"has {format_si(have, 'V')} at {format_si(plan.loads[name].v_range[case], 'V')}"
+                )
+            else:
+                out.append(
+                    f"compliance: a device inside {parent}'s output stack is "
+                    f"{format_si(-float(op.b_internal_margin[branch, case]), 'V')} into its triode region"
+                )
         up = int(self.upstream[load])
         if up >= 0:
             parent = tree.mirrors[tree.b_parent[up]]

@@ -47,6 +47,7 @@ class OperatingPoint:
     b_current: Array
     b_distance: Array  # output node's distance from the parent's rail, V
     b_min_distance: Array  # distance below which the output leaves the active region
+    b_internal_margin: Array  # saturation margin of the devices under the output device, V (inf: none)
     b_factors: dict[str, Array]
     b_rout: Array  # small-signal output resistance of each branch, Ω
     sweeps: int
@@ -54,8 +55,8 @@ class OperatingPoint:
 
     @property
     def b_compliance(self) -> Array:
-        """Compliance margin of each branch, V (negative = output device not active)."""
-        return self.b_distance - self.b_min_distance
+        """Compliance margin of each branch, V (negative = an output device not active)."""
+        return np.minimum(self.b_distance - self.b_min_distance, self.b_internal_margin)
 
     @property
     def l_current(self) -> Array:
@@ -192,6 +193,7 @@ def solve(
     m_extra = np.zeros((n_m, n_c))
     b_current = np.zeros((n_b, n_c))
     b_min = np.zeros((n_b, n_c))
+    b_internal = np.full((n_b, n_c), np.inf)
     groups = _groups(tree)
     root = tree.generations[0]
 
@@ -210,6 +212,8 @@ def solve(
                 m_extra[g.mirrors] = out.extra
                 b_current[b] = out.current
                 b_min[b] = out.min_distance
+                if out.internal_margin is not None:
+                    b_internal[b] = out.internal_margin
                 m_i_in[tree.b_child[b[child_mirror]]] = out.current[child_mirror]
         if not np.all(np.isfinite(m_v_in)) or not np.all(np.isfinite(b_current)):
             bad = [tree.mirrors[i] for i in np.flatnonzero(~np.all(np.isfinite(m_v_in), axis=1))][:3]
@@ -238,6 +242,7 @@ def solve(
         b_current=b_current,
         b_distance=distance,
         b_min_distance=b_min,
+        b_internal_margin=b_internal,
         b_factors=factors,
         b_rout=rout,
         sweeps=sweep,

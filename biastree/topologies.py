@@ -96,6 +96,7 @@ class GroupOutput:
     current: Array  # (nb, C) current of one copy of each output
     min_distance: Array  # (nb, C) smallest distance keeping every output device active
     extra: Array  # (k, C) current drawn besides the outputs (helpers, bias), per instance
+    internal_margin: Array | None = None  # (nb, C) saturation margin of devices under the output one, V
 
 
 @dataclass(frozen=True)
@@ -300,8 +301,10 @@ def _cascode(g: GroupInput) -> GroupOutput:
     k_out = d.k_in[r] * g.ratio * scale
     vx = _mos_cascode_node(k_out, k_out, vgs1[r], v_in[r], g.distance, d.vth[r], d.lam[r])
     current = 0.5 * k_out * (vgs1[r] - d.vth[r]) ** 2 * (1.0 + d.lam[r] * vx)
-    margin = np.minimum(g.distance - vx - (v_in[r] - vx - d.vth[r]), vx - (vgs1[r] - d.vth[r]))
-    return GroupOutput(v_in, current, g.distance - margin, np.zeros_like(g.i_in))
+    # cascode device active while d − V_x ≥ V_GS4 − V_T, i.e. d ≥ V_in − V_T (= V_T + 2·V_ov)
+    top = np.broadcast_to(v_in[r] - d.vth[r], current.shape)
+    bottom = vx - (vgs1[r] - d.vth[r])
+    return GroupOutput(v_in, current, top, np.zeros_like(g.i_in), bottom)
 
 
 def _mos_cascode_node(k2: Array, k4: Array, vg2: Array, vg4: Array, d: Array, vth: Array, lam: Array) -> Array:
@@ -357,11 +360,12 @@ def _wide_swing(g: GroupInput) -> GroupOutput:
     k_out = d.k_in[r] * g.ratio * scale
     vx = _mos_cascode_node(k_out, k_out, vn[r], vg[r], g.distance, d.vth[r], d.lam[r])
     current = 0.5 * k_out * (vn[r] - d.vth[r]) ** 2 * (1.0 + d.lam[r] * vx)
-    margin = np.minimum(g.distance - vx - (vg[r] - vx - d.vth[r]), vx - (vn[r] - d.vth[r]))
+    top = np.broadcast_to(vg[r] - d.vth[r], current.shape)  # cascode device: d ≥ (n + 1)·V_ov
+    bottom = vx - (vn[r] - d.vth[r])
     # the input stack must be active too (M3: V_DS ≥ V_GS − V_T, M1: V_DS ≥ V_ov)
     input_margin = np.minimum(vn - (vg - d.vth), vx1 - (vn - d.vth))
-    margin = np.minimum(margin, input_margin[r])
-    return GroupOutput(vn, current, g.distance - margin, np.broadcast_to(i_bias, g.i_in.shape).copy())
+    internal = np.minimum(bottom, input_margin[r])
+    return GroupOutput(vn, current, top, np.broadcast_to(i_bias, g.i_in.shape).copy(), internal)
 
 
 # --- emitter degeneration ---------------------------------------------------------

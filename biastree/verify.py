@@ -176,3 +176,15 @@ def verify(
         ours[:, k] = op.l_current[:, CASES.index(case)]
         sim[:, k] = [currents[name] for name in tree.loads]
     return Comparison(tree.loads, tuple(cases), ours, sim, tolerance)
+
+
+def simulate_sweep(tree: Tree, load: str, start: float, stop: float, step: float,
+                   timeout: float = 120.0) -> tuple[np.ndarray, np.ndarray]:
+    """(node voltages, current of one instance) of ``load`` swept by ngspice `.dc`."""
+    netlist = to_spice(tree, "nominal")
+    values = run_ngspice(netlist.with_sweep(load, start, stop, step), timeout)
+    current = values[f"i({netlist.ammeters[load]})"] / netlist.instances[load]
+    sweep = next((v for k, v in values.items() if "sweep" in k), None)
+    if sweep is None:
+        sweep = start + step * np.arange(len(current))
+    return sweep, current

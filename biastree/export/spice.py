@@ -65,7 +65,12 @@ class Netlist:
     case: str
     ammeters: dict[str, str] = field(default_factory=dict)  # load name → ammeter source (lower case)
     instances: dict[str, float] = field(default_factory=dict)  # load name → instances behind the ammeter
+    sources: dict[str, str] = field(default_factory=dict)  # load name → its node-voltage source
     mirror_nodes: dict[str, str] = field(default_factory=dict)  # mirror name → input node
+
+    def with_sweep(self, load: str, start: float, stop: float, step: float) -> str:
+        """The netlist with its operating point replaced by a DC sweep of one load's voltage."""
+        return self.text.replace("\n.op\n", f"\n.dc {self.sources[load]} {_num(start)} {_num(stop)} {_num(step)}\n")
 
 
 def _model_card(name: str, dev: BjtModel | MosModel, temperature: float) -> str:
@@ -265,6 +270,7 @@ def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: O
     out_node: dict[tuple[str, int], str] = {}
     load_lines: list[str] = []
     ammeters: dict[str, str] = {}
+    sources: dict[str, str] = {}
     instances: dict[str, float] = {}
     for b in range(len(tree.b_parent)):
         parent = tree.mirrors[tree.b_parent[b]]
@@ -279,6 +285,7 @@ def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: O
             # ammeter oriented so that the delivered current reads positive
             a, c = (f"l_{tag}", node) if sink else (node, f"l_{tag}")
             ammeters[load] = f"va_{tag}"
+            sources[load] = f"vl_{tag}"
             instances[load] = float(tree.l_mult[tree.b_child[b]])
             load_lines += [f"va_{tag} {a} {c} dc 0", f"vl_{tag} l_{tag} 0 dc {_num(voltage)}"]
         else:
@@ -309,4 +316,4 @@ def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: O
     for load in tree.loads:
         lines.append(f"*   {ammeters[load]} -> {load} (x{instances[load]:g})")
     lines.append(".end")
-    return Netlist("\n".join(lines) + "\n", case, ammeters, instances, node_of_mirror)
+    return Netlist("\n".join(lines) + "\n", case, ammeters, instances, sources, node_of_mirror)
