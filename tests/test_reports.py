@@ -211,13 +211,17 @@ def test_report_numbers_match_json(sample) -> None:  # type: ignore[no-untyped-d
     for name, values in _html_rows(to_html(result)).items():
         assert float(values[4]) == data[name]["delivered"]
         assert float(values[5]) == data[name]["error"]
-        assert values[10] == data[name]["verdict"]
+        assert values[11] == data[name]["verdict"]
     # Markdown: printed to 6 significant digits
+    seen = 0
     for line in to_markdown(result).splitlines():
         cells = [c.strip() for c in line.strip("|").split("|")]
-        if cells and cells[0] in data and len(cells) == 11:
+        if cells and cells[0] in data and len(cells) == 12:
             assert si(cells[4]) == pytest.approx(data[cells[0]]["delivered"], rel=5e-6)
-            assert ("FAIL" in cells[10]) == (data[cells[0]]["verdict"] == "fail")
+            assert ("FAIL" in cells[11]) == (data[cells[0]]["verdict"] == "fail")
+            seen += 1
+    assert seen == len(data)
+    assert len(_html_rows(to_html(result))) == len(data)
 
 
 def test_markdown_and_csv_cli(tmp_path) -> None:  # type: ignore[no-untyped-def]

@@ -5,6 +5,8 @@ from __future__ import annotations
 
 from html import escape
 
+import numpy as np
+
 from ..audit import Audit
 from ..units import format_si
 from .breakdown import breakdown, where
@@ -137,7 +139,7 @@ def to_html(result: Audit, svg: str | None = None, source: str | None = None) ->
     h += ["<h2>Loads</h2>", "<p>Click a column heading to sort.</p>",
           '<table class="sortable"><thead><tr>']
     for head in ("load", "×", "path", "target", "delivered", "error", "worst error", "budget", "margin",
-                 "compliance", "verdict"):
+                 "compliance", "Rout", "verdict"):
         h.append(f'<th class="sort">{head}</th>')
     h.append("</tr></thead><tbody>")
     for i, name in enumerate(tree.loads):
@@ -155,6 +157,8 @@ def to_html(result: Audit, svg: str | None = None, source: str | None = None) ->
             + _td(f"±{result.tolerance[i] * 100:.3g}%", result.tolerance[i])
             + _td(_pct(result.margin[i]), result.margin[i])
             + _td(format_si(result.compliance[i], "V", 4), result.compliance[i])
+            + _td(format_si(float(result.rout[i]), "Ω", 4) if np.isfinite(result.rout[i]) else "∞",
+                  result.rout[i] if np.isfinite(result.rout[i]) else 1e300)
             + _td(verdict, "pass" if ok else "fail", num=False) + "</tr>"
         )
     h.append("</tbody></table>")
@@ -167,6 +171,7 @@ def to_html(result: Audit, svg: str | None = None, source: str | None = None) ->
         for i in failing[:MAX_BREAKDOWNS]:
             h.append(f'<h3 id="fail-{i}">{escape(tree.loads[i])}</h3><ul>')
             h += [f"<li>{escape(r)}</li>" for r in result.reasons(i)]
+            h += [f"<li><b>hint:</b> {escape(x)}</li>" for x in result.hints.get(i, [])]
             h.append(f"</ul><p>Error terms {escape(where(result, i))}, stage by stage "
                      "(they compound: Π(1 + term) − 1 = the load's error):</p>")
             h.append(bar_chart(breakdown(result, i)))

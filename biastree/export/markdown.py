@@ -15,6 +15,10 @@ def _pct(x: float) -> str:
     return f"{x * 100:+.3f}%"
 
 
+def _rout(value: float) -> str:
+    return format_si(value, "Ω", 4) if value != float("inf") else "∞"
+
+
 def _cell(text: str) -> str:
     return text.replace("|", "\\|")
 
@@ -51,8 +55,8 @@ def to_markdown(result: Audit, source: str | None = None) -> str:
                            for k, v in dev.model_dump(by_alias=True, exclude={"kind"}).items() if v is not None)
         out.append(f"| {_cell(name)} | {dev.kind} | {_cell(params)} |")
     out += ["", "## Loads", "",
-            "| load | × | path | target | delivered | error | range | budget | margin | compliance | verdict |",
-            "|---|--:|---|--:|--:|--:|--:|--:|--:|--:|---|"]
+            "| load | × | path | target | delivered | error | range | budget | margin | compliance | Rout | verdict |",
+            "|---|--:|---|--:|--:|--:|--:|--:|--:|--:|--:|---|"]
     for i, name in enumerate(tree.loads):
         path = " > ".join(tree.mirrors[m] for m in tree.path(i))
         rng = "" if result.error[i, 0] == result.error[i, 2] else f"{_pct(result.error[i, 0])}..{_pct(result.error[i, 2])}"
@@ -60,7 +64,7 @@ def to_markdown(result: Audit, source: str | None = None) -> str:
             f"| {_cell(name)} | {int(tree.l_mult[i])} | {_cell(path)} | {format_si(result.target[i], 'A', 4)} | "
             f"{format_si(result.delivered[i, 1], 'A', 6)} | {_pct(result.error[i, 1])} | {rng} | "
             f"±{result.tolerance[i] * 100:.3g}% | {_pct(result.margin[i])} | {format_si(result.compliance[i], 'V', 4)} | "
-            f"{'pass' if result.passed[i] else '**FAIL**'} |"
+            f"{_rout(float(result.rout[i]))} | {'pass' if result.passed[i] else '**FAIL**'} |"
         )
     failing = [i for i in range(len(tree.loads)) if not result.passed[i]]
     if failing:
@@ -68,6 +72,7 @@ def to_markdown(result: Audit, source: str | None = None) -> str:
         for i in failing:
             out += [f"### {tree.loads[i]}", ""]
             out += [f"- {_cell(r)}" for r in result.reasons(i)]
+            out += [f"- hint: {_cell(h)}" for h in result.hints.get(i, [])]
             out += ["", f"Error terms {where(result, i)}, stage by stage "
                         "(they compound: Π(1 + term) − 1 = error):", "",
                     "| stage | effect | term |", "|---|---|--:|"]
