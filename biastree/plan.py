@@ -64,11 +64,20 @@ def Quantity(unit: str, example: str, *constraints: object) -> object:
 Current = Quantity("A", "10uA", Gt(0))
 NonNegCurrent = Quantity("A", "1uA", Ge(0))
 Resistance = Quantity("ohm", "10kohm", Gt(0))
+VoltMeter = Quantity("V*m", "5mV*um", Ge(0))
+FractionMeter = Quantity("%*m", "1%*um", Ge(0))
+Area = Quantity("m^2", "4um^2", Gt(0))
+SignedVoltage = Quantity("V", "20mV")
+SignedFraction = Quantity("%", "-10%")
+PerKelvin = Quantity("1/K", "50ppm/K")
+SignedVoltagePerKelvin = Quantity("V/K", "-1mV/K")
+Distance = Quantity("m", "1.5mm", Ge(0))
 PositiveVoltage = Quantity("V", "3.3V", Gt(0))
 Voltage = Quantity("V", "1.5V")
 NonNegVoltage = Quantity("V", "0.3V", Ge(0))
 Fraction = Quantity("%", "1%", Ge(0))
 PositiveFraction = Quantity("%", "5%", Gt(0))
+PositiveNumber = Quantity("1", "3", Gt(0))
 Positive = Quantity("1", "120", Gt(0))
 NonNegative = Quantity("1", "3", Ge(0))
 Length = Quantity("m", "1um", Gt(0))
@@ -103,6 +112,13 @@ class BjtModel(_Strict):
     eg: EnergyEV = Field(default=1.11, description="band gap EG for the IS temperature law, eV (SPICE default 1.11)")
     xtb: NonNegative = Field(default=0.0, description="BF temperature exponent XTB (SPICE default 0)")
     tnom: Temperature = Field(default=300.15, description="temperature at which the parameters are given (default 27C)")
+    area: Optional[Area] = Field(default=None, description="emitter area of one unit device (for the matching law)")
+    a_is_pair: Optional[FractionMeter] = Field(
+        default=None, description="σ(ΔIS/IS) of a PAIR of devices × √(emitter area), e.g. 2%*um (Pelgrom-style)"
+    )
+    a_is_single: Optional[FractionMeter] = Field(
+        default=None, description="σ(ΔIS/IS) of ONE device × √(emitter area) (= pair value / √2)"
+    )
 
     @property
     def vaf(self) -> float:
@@ -122,6 +138,15 @@ class MosModel(_Strict):
     lambda_: InverseVoltage = Field(default=0.0, alias="lambda", description="channel-length modulation λ, 1/V")
     w: Length = Field(description="gate width of one unit device")
     l: Length = Field(description="gate length of one unit device")  # noqa: E741
+    tnom: Temperature = Field(default=300.15, description="temperature at which kp and vth are given (default 27C)")
+    vth_tc: SignedVoltagePerKelvin = Field(default=0.0, description="threshold temperature coefficient d|VT|/dT, V/K")
+    mobility_exp: float = Field(default=-1.5, description="kp ∝ (T/tnom)^mobility_exp (default −1.5)")
+    a_vt_pair: Optional[VoltMeter] = Field(
+        default=None, description="Pelgrom A_VT: σ(ΔVT) of a PAIR × √(WL), e.g. 5mV*um (Pelgrom et al. 1989)"
+    )
+    a_vt_single: Optional[VoltMeter] = Field(default=None, description="σ(VT) of ONE device × √(WL) (= pair / √2)")
+    a_beta_pair: Optional[FractionMeter] = Field(default=None, description="Pelgrom A_β: σ(Δβ/β) of a PAIR × √(WL)")
+    a_beta_single: Optional[FractionMeter] = Field(default=None, description="σ(Δβ/β) of ONE device × √(WL)")
 
 
 DeviceModel = Annotated[Union[BjtModel, MosModel], Field(discriminator="kind")]
@@ -133,6 +158,9 @@ class Reference(_Strict):
     current: Current = Field(description="reference current")
     tolerance: Fraction = Field(default=0.0, description="reference current tolerance, e.g. 1%")
     feeds: Name = Field(description="name of the mirror whose input the reference drives")
+    tempco: PerKelvin = Field(default=0.0, description="linear temperature coefficient, e.g. 50ppm/K")
+    tempco2: float = Field(default=0.0, description="quadratic temperature coefficient, 1/K²")
+    tnom: Temperature = Field(default=300.15, description="temperature at which current is given (default 27C)")
 
 
 class Branch(_Strict):
@@ -214,6 +242,56 @@ class Compliance(_Strict):
     )
 
 
+class Corner(_Strict):
+    """A process corner: global shifts applied to every device of a family."""
+
+    beta: SignedFraction = Field(default=0.0, description="relative shift of every bipolar β, e.g. -20%")
+    early: SignedFraction = Field(default=0.0, description="relative shift of every Early voltage")
+    is_: SignedFraction = Field(default=0.0, alias="is", description="relative shift of every IS")
+    kp: SignedFraction = Field(default=0.0, description="relative shift of every MOS kp")
+    vth: SignedVoltage = Field(default=0.0, description="shift of every MOS |VT|, e.g. 30mV")
+    lambda_: SignedFraction = Field(default=0.0, alias="lambda", description="relative shift of every λ")
+
+
+class Conditions(_Strict):
+    """Operating conditions a sign-off must cover; `check` uses the worst."""
+
+    temperatures: list[Temperature] = Field(default_factory=list, description="die temperatures, e.g. [-40C, 27C, 125C]")
+    supplies: list[PositiveVoltage] = Field(default_factory=list, description="supply voltages, e.g. [3.0V, 3.6V]")
+    corners: dict[Name, Corner] = Field(default_factory=dict, description="named process corners")
+
+
+class Spread(_Strict):
+    """Random variation: how many σ of mismatch a budget must absorb, and global process spread (1σ)."""
+
+    k_sigma: PositiveNumber = Field(default=3.0, description="budgets must hold with this many σ of mismatch")
+    beta: Fraction = Field(default=0.0, description="1σ global spread of β (Monte Carlo only)")
+    vth: NonNegVoltage = Field(default=0.0, description="1σ global spread of MOS |VT| (Monte Carlo only)")
+    kp: Fraction = Field(default=0.0, description="1σ global spread of MOS kp (Monte Carlo only)")
+
+
+class Matched(_Strict):
+    """Loads whose current ratio must hold (e.g. two halves of a differential block)."""
+
+    loads: list[Name] = Field(min_length=2, max_length=2, description="the two loads")
+    tolerance: PositiveFraction = Field(description="budget on the ratio's deviation, e.g. 0.5%")
+
+
+class Floorplan(_Strict):
+    """Where mirrors and loads sit, and the gradients across the die."""
+
+    positions: dict[Name, tuple[Distance, Distance]] = Field(
+        default_factory=dict, description="[x, y] of mirrors and loads, e.g. [0.5mm, 1.2mm]"
+    )
+    thermal_gradient: Quantity("K/m", "2K/mm", Ge(0)) = Field(default=0.0, description="temperature gradient, K/mm")  # type: ignore[valid-type]
+    rail_gradient: Quantity("V/m", "1mV/mm", Ge(0)) = Field(default=0.0, description="IR-drop gradient of the rails, mV/mm")  # type: ignore[valid-type]
+    remote: list[Name] = Field(
+        default_factory=list,
+        description="loads whose output device sits at the load (the mirror's base/gate line is routed there)",
+    )
+    long_line: Distance = Field(default=5e-4, description="a base/gate line longer than this is flagged")
+
+
 class Plan(_Strict):
     """One bias network: a reference current, mirrors, and the loads they feed."""
 
@@ -225,3 +303,7 @@ class Plan(_Strict):
     mirrors: dict[Name, Mirror] = Field(min_length=1, description="named mirror stages")
     loads: dict[Name, Load] = Field(min_length=1, description="named blocks that consume bias current")
     compliance: Compliance = Field(default_factory=Compliance, description="compliance limits")
+    conditions: Conditions = Field(default_factory=Conditions, description="temperatures, supplies and corners to cover")
+    spread: Spread = Field(default_factory=Spread, description="mismatch budget and global process spread")
+    matched: dict[Name, Matched] = Field(default_factory=dict, description="load pairs whose ratio must hold")
+    floorplan: Optional[Floorplan] = Field(default=None, description="positions and gradients across the die")

@@ -14,14 +14,13 @@ same code runs over samples or corners by giving the parameters more columns.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from . import devices
 from .devices import Array
 from .errors import SolveError
-from .plan import BjtModel
+from .conditions import Columns, default_columns, device_arrays
 from .topologies import TOPOLOGIES, DeviceArrays, GroupInput
 from .tree import Tree
 
@@ -52,6 +51,7 @@ class OperatingPoint:
     b_rout: Array  # small-signal output resistance of each branch, Ω
     sweeps: int
     cases: tuple[str, ...] = field(default=CASES)
+    columns: Columns | None = None
 
     @property
     def b_compliance(self) -> Array:
@@ -61,29 +61,6 @@ class OperatingPoint:
     @property
     def l_current(self) -> Array:
         return self.b_current[self.tree.l_branch]
-
-
-def device_arrays(tree: Tree, temperature: float | None = None) -> DeviceArrays:
-    """Per-mirror device parameters (shape (n_mirrors, 1)) at ``temperature`` (K)."""
-    plan = tree.plan
-    kelvin = plan.temperature if temperature is None else temperature
-    n = len(tree.mirrors)
-    names = ("is_in", "beta", "early", "k_in", "vth", "lam", "size_in")
-    cols = {k: np.full(n, np.nan) for k in names}
-    for i, name in enumerate(tree.mirrors):
-        mirror = plan.mirrors[name]
-        dev = plan.devices[mirror.device]
-        cols["size_in"][i] = mirror.input_size
-        if isinstance(dev, BjtModel):
-            cols["is_in"][i] = float(devices.bjt_is_at(dev.is_, kelvin, dev.tnom, dev.xti, dev.eg)) * mirror.input_size
-            cols["beta"][i] = float(devices.bjt_beta_at(dev.beta, kelvin, dev.tnom, dev.xtb))
-            cols["early"][i] = dev.vaf
-        else:
-            cols["k_in"][i] = dev.kp * dev.w * mirror.input_size / dev.l
-            cols["vth"][i] = dev.vth
-            cols["lam"][i] = dev.lambda_
-    vt = np.full(n, float(devices.thermal_voltage(kelvin)))
-    return DeviceArrays("mixed", vt[:, None], *(cols[k][:, None] for k in names))
 
 
 def topology_params(tree: Tree) -> dict[str, Array]:
@@ -102,13 +79,6 @@ def topology_params(tree: Tree) -> dict[str, Array]:
         out["bias_current"][i] = m.bias_current if m.bias_current is not None else ideal[i]
         out["swing_n"][i] = m.swing_n
     return out
-
-
-def load_voltages(tree: Tree) -> Array:
-    """(n_loads, 3): each load's node voltage at (min, nominal, max)."""
-    plan = tree.plan
-    loads = plan.loads
-    return np.array([loads[name].v_range for name in tree.loads], dtype=float).reshape(-1, 3)
 
 
 @dataclass(frozen=True)
@@ -139,33 +109,43 @@ def _groups(tree: Tree) -> list[list[_Group]]:
     return out
 
 
-def _group_input(tree: Tree, g: _Group, dev: DeviceArrays, params: dict[str, Array], i_in: Array,
-                 distance: Array, is_scale: Array | None = None) -> GroupInput:
-    b = g.branches
-    return GroupInput(
-        dev=dev.take(g.mirrors, g.family),
-        params={k: v[g.mirrors] for k, v in params.items()},
-        i_in=i_in[g.mirrors],
-        row=g.row,
-        ratio=tree.b_ratio[b][:, None],
-        count=tree.b_count[b][:, None],
-        distance=distance,
-        supply=tree.plan.supply,
-        is_scale=None if is_scale is None else is_scale[b],
-    )
+@dataclass(frozen=True)
+class _Context:
+    tree: Tree
+    dev: DeviceArrays
+    params: dict[str, Array]
+    cols: Columns
+
+    def group_input(self, g: _Group, i_in: Array, distance: Array, dev: DeviceArrays | None = None) -> GroupInput:
+        b = g.branches
+        c = self.cols
+        pick = lambda a: None if a is None else a[b]  # noqa: E731
+        return GroupInput(
+            dev=(dev or self.dev).take(g.mirrors, g.family),
+            params={k: v[g.mirrors] for k, v in self.params.items()},
+            i_in=i_in[g.mirrors],
+            row=g.row,
+            ratio=self.tree.b_ratio[b][:, None],
+            count=self.tree.b_count[b][:, None],
+            distance=distance,
+            supply=c.supply[None, :],
+            is_scale=pick(c.is_scale),
+            vt_shift=pick(c.vt_shift),
+            k_scale=pick(c.k_scale),
+        )
 
 
 def solve(
     tree: Tree,
-    dev: DeviceArrays | None = None,
-    i_ref: float | Array | None = None,
-    is_scale: Array | None = None,
+    columns: Columns | None = None,
     output_resistance: bool = True,
+    is_scale: Array | None = None,
 ) -> OperatingPoint:
-    """Solve the operating point of every mirror and branch.
-
-    ``is_scale`` (n_branches, 1) multiplies each output device's IS (for
-    mismatch studies); ``output_resistance=False`` skips the small-signal pass.
+    """Solve the operating point of every mirror and branch, in every column
+    of ``columns`` (default: the three ends of the load voltages at the plan's
+    conditions).  ``is_scale`` (n_branches, 1) multiplies each output device's
+    IS relative to its input device (a quick mismatch study);
+    ``output_resistance=False`` skips the term split and the small-signal pass.
 
     >>> import biastree
     >>> op = biastree.solve(biastree.load("samples/bipolar_small.yaml"))
@@ -173,29 +153,31 @@ def solve(
     True
     """
     plan = tree.plan
-    dev = device_arrays(tree) if dev is None else dev
-    params = topology_params(tree)
-    i_ref = plan.reference.current if i_ref is None else i_ref
-    supply = plan.supply
+    cols = default_columns(tree) if columns is None else columns
+    if is_scale is not None:
+        cols = replace(cols, is_scale=np.broadcast_to(is_scale, (len(tree.b_parent), cols.size)))
+    dev = device_arrays(tree, cols)
+    ctx = _Context(tree, dev, topology_params(tree), cols)
+    supply = cols.supply[None, :]
     n_m, n_b = len(tree.mirrors), len(tree.b_parent)
-    n_c = len(CASES)
+    n_c = cols.size
 
     # Output nodes that feed loads sit at fixed voltages.
-    rail = np.where(tree.m_sink, 0.0, supply)[:, None]
-    v_load = load_voltages(tree)
+    rail = np.where(tree.m_sink[:, None], 0.0, supply)
     distance = np.zeros((n_b, n_c))
     lb = tree.l_branch
-    distance[lb] = np.abs(v_load - rail[tree.b_parent[lb]])
+    distance[lb] = np.abs(cols.v_load - rail[tree.b_parent[lb]])
     to_mirror = np.flatnonzero(~tree.b_to_load)
 
     m_i_in = np.zeros((n_m, n_c))
-    m_v_in = np.where(tree.m_bipolar, 0.7, np.nan_to_num(dev.vth[:, 0]) + 0.2)[:, None] * np.ones((1, n_c))
+    m_v_in = np.where(tree.m_bipolar[:, None], 0.7, np.nan_to_num(dev.vth) + 0.2) * np.ones((1, n_c))
     m_extra = np.zeros((n_m, n_c))
     b_current = np.zeros((n_b, n_c))
     b_min = np.zeros((n_b, n_c))
     b_internal = np.full((n_b, n_c), np.inf)
     groups = _groups(tree)
     root = tree.generations[0]
+    i_ref = cols.i_ref[None, :]
 
     for sweep in range(1, MAX_SWEEPS + 1):
         previous = m_v_in.copy()
@@ -207,7 +189,7 @@ def solve(
                 dist = distance[b]
                 dist[child_mirror] = supply - m_v_in[tree.b_child[b[child_mirror]]]
                 distance[b] = dist
-                out = TOPOLOGIES[g.topology].solve(_group_input(tree, g, dev, params, m_i_in, dist, is_scale))
+                out = TOPOLOGIES[g.topology].solve(ctx.group_input(g, m_i_in, dist))
                 m_v_in[g.mirrors] = out.v_in
                 m_extra[g.mirrors] = out.extra
                 b_current[b] = out.current
@@ -231,11 +213,14 @@ def solve(
     distance[to_mirror] = supply - m_v_in[tree.b_child[to_mirror]]
     if plan.compliance.bjt_forward_bias:
         b_min = b_min - np.where(tree.m_bipolar[tree.b_parent], plan.compliance.bjt_forward_bias, 0.0)[:, None]
-    factors = _factors(tree, groups, dev, params, m_i_in, distance, b_current, is_scale)
-    rout = _rout(tree, groups, dev, params, m_i_in, distance, is_scale) if output_resistance else np.full((n_b, n_c), np.nan)
+    if output_resistance:
+        factors = _factors(ctx, groups, m_i_in, distance, b_current)
+        rout = _rout(ctx, groups, m_i_in, distance)
+    else:
+        factors, rout = {}, np.full((n_b, n_c), np.nan)
     return OperatingPoint(
         tree=tree,
-        i_ref=np.full(n_c, i_ref, dtype=float),
+        i_ref=cols.i_ref.astype(float),
         m_i_in=m_i_in,
         m_v_in=m_v_in,
         m_extra=m_extra,
@@ -246,20 +231,22 @@ def solve(
         b_factors=factors,
         b_rout=rout,
         sweeps=sweep,
+        cases=cols.names,
+        columns=cols,
     )
 
 
-def _factors(tree: Tree, groups: list[list[_Group]], dev: DeviceArrays, params: dict[str, Array], i_in: Array,
-             distance: Array, current: Array, is_scale: Array | None) -> dict[str, Array]:
+def _factors(ctx: _Context, groups: list[list[_Group]], i_in: Array, distance: Array, current: Array) -> dict[str, Array]:
     """Split each branch's gain into terms: the gain with ideal output devices
     (V_A → ∞, λ = 0) over the size ratio, and what the real ones add to it."""
+    tree = ctx.tree
     n_b, n_c = current.shape
     ideal_gain = np.ones((n_b, n_c))
-    ideal_dev = dev.ideal_outputs()
+    ideal_dev = ctx.dev.ideal_outputs()
     for generation in groups:
         for g in generation:
             b = g.branches
-            out = TOPOLOGIES[g.topology].solve(_group_input(tree, g, ideal_dev, params, i_in, distance[b], is_scale))
+            out = TOPOLOGIES[g.topology].solve(ctx.group_input(g, i_in, distance[b], ideal_dev))
             ideal_gain[b] = out.current / (i_in[tree.b_parent[b]] * tree.b_ratio[b][:, None])
     real_gain = current / (i_in[tree.b_parent] * tree.b_ratio[:, None])
     bip = tree.m_bipolar[tree.b_parent][:, None]
@@ -273,8 +260,7 @@ def _factors(tree: Tree, groups: list[list[_Group]], dev: DeviceArrays, params: 
 ROUT_STEP = 1e-3  # V: central difference of the output current
 
 
-def _rout(tree: Tree, groups: list[list[_Group]], dev: DeviceArrays, params: dict[str, Array], i_in: Array,
-          distance: Array, is_scale: Array | None) -> Array:
+def _rout(ctx: _Context, groups: list[list[_Group]], i_in: Array, distance: Array) -> Array:
     """Output resistance of every branch: 1/(∂I_out/∂V_out) with the input
     current held, by a central difference of the exact DC solution (the
     small-signal model is the derivative of the same equations).  Where one
@@ -290,8 +276,8 @@ def _rout(tree: Tree, groups: list[list[_Group]], dev: DeviceArrays, params: dic
                 step = np.full((len(b), 1), ROUT_STEP)
                 if position is not None:
                     step = np.where((g.position == position)[:, None], ROUT_STEP, 0.0)
-                hi = topo.solve(_group_input(tree, g, dev, params, i_in, distance[b] + step, is_scale)).current
-                lo = topo.solve(_group_input(tree, g, dev, params, i_in, distance[b] - step, is_scale)).current
+                hi = topo.solve(ctx.group_input(g, i_in, distance[b] + step)).current
+                lo = topo.solve(ctx.group_input(g, i_in, distance[b] - step)).current
                 with np.errstate(divide="ignore"):
                     r = 2.0 * ROUT_STEP / (hi - lo)
                 sel = slice(None) if position is None else (g.position == position)

@@ -76,7 +76,12 @@ class GroupInput:
     count: Array  # (nb, 1)
     distance: Array  # (nb, C) output node distance from the mirror's rail
     supply: float
-    is_scale: Array | None = None  # (nb, 1|C) multiplies each output device's IS (mismatch)
+    is_scale: Array | None = None  # (nb, 1|C) output/input IS ratio error (bipolar mismatch)
+    vt_shift: Array | None = None  # (nb, 1|C) VT(output) − VT(input), V (MOS mismatch)
+    k_scale: Array | None = None  # (nb, 1|C) KP(output)/KP(input) (MOS mismatch)
+
+    def mos_mismatch(self) -> tuple[Array | float, Array | float]:
+        return (0.0 if self.vt_shift is None else self.vt_shift, 1.0 if self.k_scale is None else self.k_scale)
 
     def fanout(self) -> Array:
         out = np.zeros(self.i_in.shape[:1] + (1,))
@@ -151,8 +156,12 @@ def _simple(g: GroupInput) -> GroupOutput:
         current = x_in[r] * g.ratio * scale * devices.early_factor(g.distance - vbe[r], d.early[r])
         return GroupOutput(vbe, current, np.broadcast_to(vbe[r], current.shape), np.zeros_like(g.i_in))
     vgs = devices.mos_vgs(g.i_in, d.k_in, d.vth, d.lam)
-    current = g.i_in[r] * g.ratio * scale * devices.clm_factor(g.distance, d.lam[r]) / devices.clm_factor(vgs[r], d.lam[r])
-    vmin = np.broadcast_to((vgs - d.vth)[r], current.shape)
+    dvt, ks = g.mos_mismatch()
+    vov_in = vgs - d.vth
+    mismatch = ks * ((vov_in[r] - dvt) / vov_in[r]) ** 2
+    current = (g.i_in[r] * g.ratio * mismatch * devices.clm_factor(g.distance, d.lam[r])
+               / devices.clm_factor(vgs[r], d.lam[r]))
+    vmin = np.broadcast_to(vov_in[r] - dvt, current.shape)
     return GroupOutput(vgs, current, vmin, np.zeros_like(g.i_in))
 
 
@@ -217,8 +226,8 @@ def _wilson_core(g: GroupInput, four: bool) -> GroupOutput:
     x = g.i_in / a0
     for _ in range(_ITER):
         v2 = _vbe(x, is_unit, d.vt)
-        ie3 = x * m * a0 + x * (a0 + m * a0) / d.beta
-        is3 = is_unit * m * a0 * scale
+        ie3 = x * m * a0 * scale + x * (a0 + m * a0 * scale) / d.beta  # Q2 carries the mismatch of the pair
+        is3 = is_unit * m * a0
         x3 = _x_at_vcb(ie3, lambda x3_: dist - v2 - _vbe(x3_, is3, d.vt), d.early, d.beta)
         vbe3 = _vbe(x3, is3, d.vt)
         ic1 = g.i_in - x3 / d.beta
@@ -298,9 +307,11 @@ def _cascode(g: GroupInput) -> GroupOutput:
     vgs1 = devices.mos_vgs(g.i_in, d.k_in, d.vth, d.lam)
     vgs3 = devices.mos_vgs(g.i_in, d.k_in, d.vth, d.lam)  # top diode: V_DS = V_GS too (γ = 0: no body effect)
     v_in = vgs1 + vgs3
-    k_out = d.k_in[r] * g.ratio * scale
-    vx = _mos_cascode_node(k_out, k_out, vgs1[r], v_in[r], g.distance, d.vth[r], d.lam[r])
-    current = 0.5 * k_out * (vgs1[r] - d.vth[r]) ** 2 * (1.0 + d.lam[r] * vx)
+    dvt, ks = g.mos_mismatch()
+    k_out = d.k_in[r] * g.ratio * ks
+    vth_out = d.vth[r] + dvt  # the output mirror device's threshold (cascode device nominal)
+    vx = _mos_cascode_node(k_out, d.k_in[r] * g.ratio, vgs1[r] - dvt, v_in[r], g.distance, d.vth[r], d.lam[r])
+    current = 0.5 * k_out * (vgs1[r] - vth_out) ** 2 * (1.0 + d.lam[r] * vx)
     # cascode device active while d − V_x ≥ V_GS4 − V_T, i.e. d ≥ V_in − V_T (= V_T + 2·V_ov)
     top = np.broadcast_to(v_in[r] - d.vth[r], current.shape)
     bottom = vx - (vgs1[r] - d.vth[r])
@@ -357,9 +368,10 @@ def _wide_swing(g: GroupInput) -> GroupOutput:
             vn = new
             break
         vn = new
-    k_out = d.k_in[r] * g.ratio * scale
-    vx = _mos_cascode_node(k_out, k_out, vn[r], vg[r], g.distance, d.vth[r], d.lam[r])
-    current = 0.5 * k_out * (vn[r] - d.vth[r]) ** 2 * (1.0 + d.lam[r] * vx)
+    dvt, ks = g.mos_mismatch()
+    k_out = d.k_in[r] * g.ratio * ks
+    vx = _mos_cascode_node(k_out, d.k_in[r] * g.ratio, vn[r] - dvt, vg[r], g.distance, d.vth[r], d.lam[r])
+    current = 0.5 * k_out * (vn[r] - d.vth[r] - dvt) ** 2 * (1.0 + d.lam[r] * vx)
     top = np.broadcast_to(vg[r] - d.vth[r], current.shape)  # cascode device: d ≥ (n + 1)·V_ov
     bottom = vx - (vn[r] - d.vth[r])
     # the input stack must be active too (M3: V_DS ≥ V_GS − V_T, M1: V_DS ≥ V_ov)

@@ -55,7 +55,12 @@ UNIT_SYMBOLS: dict[str, tuple[str, ...]] = {
     "C": ("C",),  # temperature: °C or K, stored in K
     "V/K": ("V/K", "V/C"),
     "1/K": ("1/K", "/K", "1/C", "/C"),
+    "K/m": ("K/m", "C/m"),
+    "V/m": ("V/m",),
     "eV": ("eV",),
+    "V*m": (),  # matching coefficient A_VT, e.g. 5mV*um
+    "%*m": (),  # matching coefficient A_beta or A_IS, e.g. 1%*um
+    "m^2": (),  # area, e.g. 4um^2
 }
 
 _NUMBER = re.compile(r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*(.*?)\s*$")
@@ -123,6 +128,12 @@ def _parse_text(value: str, unit: str) -> float:
         return _finite(_scaled(number, _prefix_value(suffix, text, "%")), text)
     if unit == "C":
         return _temperature(number, suffix, text)
+    if unit in ("V*m", "%*m"):
+        return _finite(_scaled(number, _product(suffix, text, unit)), text)
+    if unit == "m^2":
+        return _finite(_scaled(number, _area(suffix, text)), text)
+    if unit in _RATIOS:
+        return _finite(_scaled(number, _ratio(suffix, text, unit)), text)
     symbols = UNIT_SYMBOLS[unit]
     for symbol in sorted(symbols, key=len, reverse=True):
         if suffix.endswith(symbol):
@@ -135,6 +146,61 @@ def _parse_text(value: str, unit: str) -> float:
             shown = symbols[0] if symbols else "no unit"
             raise UnitError(f"'{text}' has unit {other}, expected {shown}")
     return _finite(_scaled(number, _prefix_value(suffix, text, unit)), text)
+
+
+def _split_product(suffix: str) -> tuple[str, str] | None:
+    for sep in ("*", "·", "."):
+        if sep in suffix:
+            left, _, right = suffix.partition(sep)
+            return left.strip(), right.strip()
+    return None
+
+
+def _product(suffix: str, text: str, unit: str) -> int:
+    """Power of ten of a matching coefficient such as '5mV*um' (V·m) or '1%*um' (fraction·m)."""
+    if suffix == "":
+        return 0
+    parts = _split_product(suffix)
+    first = "V" if unit == "V*m" else "%"
+    if parts is None or not parts[0].endswith(first) or not parts[1].endswith("m"):
+        shown = "5mV*um" if unit == "V*m" else "1%*um"
+        raise UnitError(f"'{text}' is not a matching coefficient (write it like {shown})")
+    left = parts[0][: -len(first)]
+    power = -2 if first == "%" else 0
+    return power + _prefix_value(left, text, unit) + _prefix_value(parts[1][:-1], text, unit)
+
+
+# units written as numerator/denominator, each part with its own prefix
+_RATIOS = {"K/m": ("K", "m"), "V/m": ("V", "m"), "1/K": ("", "K")}
+_FRACTIONS = {"ppm": -6, "%": -2, "1": 0, "": 0}
+
+
+def _ratio(suffix: str, text: str, unit: str) -> int:
+    """Power of ten of '2K/mm', '1mV/mm', '50ppm/K' (prefixes on both sides)."""
+    if suffix == "":
+        return 0
+    num_unit, den_unit = _RATIOS[unit]
+    num, sep, den = suffix.partition("/")
+    if not sep or not den.endswith(den_unit):
+        raise UnitError(f"'{text}' is not a value in {unit}")
+    power = -_prefix_value(den[: -len(den_unit)], text, unit)
+    if num_unit == "":
+        if num not in _FRACTIONS:
+            raise UnitError(f"'{text}' is not a value in {unit} (use e.g. 50ppm/K or 0.005/K)")
+        return power + _FRACTIONS[num]
+    if not num.endswith(num_unit):
+        raise UnitError(f"'{text}' is not a value in {unit}")
+    return power + _prefix_value(num[: -len(num_unit)], text, unit)
+
+
+def _area(suffix: str, text: str) -> int:
+    """Power of ten of an area such as '4um^2' (the prefix is squared)."""
+    if suffix == "":
+        return 0
+    for tail in ("m^2", "m2", "m²"):
+        if suffix.endswith(tail):
+            return 2 * _prefix_value(suffix[: -len(tail)], text, "m^2")
+    raise UnitError(f"'{text}' is not an area (write it like 4um^2)")
 
 
 def _temperature(number_text: str, suffix: str, text: str) -> float:
