@@ -18,6 +18,7 @@ from typing import Callable
 import numpy as np
 
 from ..plan import BjtModel, MosModel
+from ..conditions import condition_columns, reference_current
 from ..solve import CASES, OperatingPoint, solve, topology_params
 from ..tree import Tree
 from ..units import ZERO_CELSIUS
@@ -81,9 +82,12 @@ def _model_card(name: str, dev: BjtModel | MosModel, temperature: float) -> str:
         params += [f"xti={_num(dev.xti)}", f"eg={_num(dev.eg)}", f"xtb={_num(dev.xtb)}",
                    f"tnom={_num(dev.tnom - ZERO_CELSIUS)}"]
         return f".model {name} {dev.kind} ({' '.join(params)})"
-    vto = dev.vth if dev.kind == "nmos" else -dev.vth
-    # MOS parameters are taken as valid at the plan temperature: tnom = temp.
-    params = ["level=1", f"kp={_num(dev.kp)}", f"vto={_num(vto)}", f"lambda={_num(dev.lambda_)}",
+    # Level 1 has no linear VT tempco: write the card evaluated at the temperature
+    # (biastree's law, see biastree.conditions) with tnom = temp, so ngspice applies no law of its own.
+    vth = dev.vth + dev.vth_tc * (temperature - dev.tnom)
+    kp = dev.kp * (temperature / dev.tnom) ** dev.mobility_exp
+    vto = vth if dev.kind == "nmos" else -vth
+    params = ["level=1", f"kp={_num(kp)}", f"vto={_num(vto)}", f"lambda={_num(dev.lambda_)}",
               f"tnom={_num(temperature - ZERO_CELSIUS)}"]
     return f".model {name} {dev.kind} ({' '.join(params)})"
 
@@ -235,10 +239,12 @@ WRITERS: dict[str, Writer] = {
 }
 
 
-def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: OperatingPoint | None = None) -> Netlist:
+def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: OperatingPoint | None = None,
+             temperature: float | None = None, supply: float | None = None) -> Netlist:
     """The plan as an ngspice netlist, loads at the ``case`` end of their range.
 
-    ``case`` is one of ``min``, ``nominal``, ``max``.  Every mirror's input
+    ``case`` is one of ``min``, ``nominal``, ``max``; ``temperature`` (K) and
+    ``supply`` (V) override the plan's conditions.  Every mirror's input
     node gets a ``.nodeset`` at biastree's solution (``op``, solved here if
     not given): only a starting guess for the simulator's Newton iteration,
     which still finds its own answer, but it spares deep trees the gmin
@@ -248,6 +254,8 @@ def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: O
         raise ValueError(f"case must be one of {', '.join(CASES)}")
     column = CASES.index(case)
     plan = tree.plan
+    kelvin = plan.temperature if temperature is None else temperature
+    vdd = plan.supply if supply is None else supply
     names = Names()
     names.get("node", "vdd")
     from .. import __version__
@@ -257,13 +265,13 @@ def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: O
         f"* biastree {__version__}: bias tree '{title}' from {source or 'a plan'}; load voltages at {case}",
         "* Design estimate for cross-checking; sign-off needs the foundry's models.",
         OPTIONS,
-        f".temp {_num(plan.temperature - ZERO_CELSIUS)}",
+        f".temp {_num(kelvin - ZERO_CELSIUS)}",
     ]
     models: dict[str, str] = {}
     for name, dev in plan.devices.items():
         models[name] = names.get("model", name)
-        lines.append(_model_card(models[name], dev, plan.temperature))
-    lines.append(f"vdd vdd 0 dc {_num(plan.supply)}")
+        lines.append(_model_card(models[name], dev, kelvin))
+    lines.append(f"vdd vdd 0 dc {_num(vdd)}")
 
     node_of_mirror = {m: "n_" + names.get("mirror", m) for m in tree.mirrors}
     mult = {m: float(tree.m_mult[i]) for i, m in enumerate(tree.mirrors)}
@@ -293,20 +301,23 @@ def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: O
 
     root = tree.mirrors[0]
     root_node = node_of_mirror[root]
+    i_ref = float(reference_current(plan, np.array(kelvin)))
     if tree.m_sink[0]:
-        lines.append(f"iref vdd {root_node} dc {_num(plan.reference.current)}")
+        lines.append(f"iref vdd {root_node} dc {_num(i_ref)}")
     else:
-        lines.append(f"iref {root_node} 0 dc {_num(plan.reference.current)}")
+        lines.append(f"iref {root_node} 0 dc {_num(i_ref)}")
     ctx = _Context(tree, names, models, node_of_mirror, out_node, mult, topology_params(tree))
     for m in tree.mirrors:
         spec = plan.mirrors[m]
         lines.append(f"* mirror {m}: {spec.device} {spec.topology}, ×{mult[m]:g}")
         lines += WRITERS[spec.topology](ctx, m)
-    op = solve(tree, output_resistance=False) if op is None else op
+    if op is None:
+        cols = condition_columns(tree, [kelvin], [vdd], [""], ends=CASES) if (temperature or supply) else None
+        op = solve(tree, cols, output_resistance=False)
     nodeset = []
     for i, m in enumerate(tree.mirrors):
         v = float(op.m_v_in[i, column])
-        nodeset.append(f"v({node_of_mirror[m]})={_num(v if tree.m_sink[i] else plan.supply - v)}")
+        nodeset.append(f"v({node_of_mirror[m]})={_num(v if tree.m_sink[i] else vdd - v)}")
     for k in range(0, len(nodeset), 6):
         lines.append(".nodeset " + " ".join(nodeset[k:k + 6]))
     lines.append("* loads: ammeter (0 V) then the node voltage")
