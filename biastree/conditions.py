@@ -42,6 +42,7 @@ class Columns:
     is_scale: Array | None = None  # (n_branches, C) output/input IS ratio error (mismatch)
     vt_shift: Array | None = None  # (n_branches, C) V
     k_scale: Array | None = None  # (n_branches, C)
+    remote: object | None = None  # floorplan offsets of remote output devices (biastree.floorplan.Remote)
 
     @property
     def size(self) -> int:
@@ -79,6 +80,8 @@ def reference_current(plan: Plan, kelvin: Array) -> Array:
 
 def default_columns(tree: Tree) -> Columns:
     """The three ends of every load's voltage range at the plan's own conditions."""
+    from .floorplan import remote_offsets
+
     plan = tree.plan
     n = len(ENDS)
     temperature = np.full(n, plan.temperature)
@@ -89,6 +92,7 @@ def default_columns(tree: Tree) -> Columns:
         i_ref=reference_current(plan, temperature),
         v_load=load_voltages(tree),
         corner=("",) * n,
+        remote=remote_offsets(tree),
     )
 
 
@@ -116,6 +120,8 @@ def condition_columns(tree: Tree, temperatures: list[float] | None = None, suppl
         f"{t - ZERO_CELSIUS:g}C {s:g}V{(' ' + c) if c else ''} {e}" for t, s, c, e in combos
     )
     temperature = np.array([c[0] for c in combos], dtype=float)
+    from .floorplan import remote_offsets
+
     return Columns(
         names=names,
         temperature=temperature,
@@ -124,6 +130,7 @@ def condition_columns(tree: Tree, temperatures: list[float] | None = None, suppl
         v_load=v[:, [ENDS.index(c[3]) for c in combos]],
         corner=tuple(c[2] for c in combos),
         shifts=_corner_shifts(plan, [c[2] for c in combos]),
+        remote=remote_offsets(tree),
     )
 
 

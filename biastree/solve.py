@@ -20,6 +20,7 @@ import numpy as np
 
 from .devices import Array
 from .errors import SolveError
+from . import devices
 from .conditions import Columns, default_columns, device_arrays
 from .topologies import TOPOLOGIES, DeviceArrays, GroupInput
 from .tree import Tree
@@ -116,10 +117,14 @@ class _Context:
     params: dict[str, Array]
     cols: Columns
 
-    def group_input(self, g: _Group, i_in: Array, distance: Array, dev: DeviceArrays | None = None) -> GroupInput:
+    def group_input(self, g: _Group, i_in: Array, distance: Array, dev: DeviceArrays | None = None,
+                    b_current: Array | None = None) -> GroupInput:
         b = g.branches
         c = self.cols
         pick = lambda a: None if a is None else a[b]  # noqa: E731
+        is_scale, vt_shift, k_scale = pick(c.is_scale), pick(c.vt_shift), pick(c.k_scale)
+        if c.remote is not None and b_current is not None:
+            is_scale, vt_shift, k_scale = self._remote(g, b_current, distance, is_scale, vt_shift, k_scale)
         return GroupInput(
             dev=(dev or self.dev).take(g.mirrors, g.family),
             params={k: v[g.mirrors] for k, v in self.params.items()},
@@ -129,10 +134,47 @@ class _Context:
             count=self.tree.b_count[b][:, None],
             distance=distance,
             supply=c.supply[None, :],
-            is_scale=pick(c.is_scale),
-            vt_shift=pick(c.vt_shift),
-            k_scale=pick(c.k_scale),
+            is_scale=is_scale,
+            vt_shift=vt_shift,
+            k_scale=k_scale,
         )
+
+    def _remote(self, g: _Group, b_current: Array, distance: Array, is_scale: Array | None, vt_shift: Array | None,
+                k_scale: Array | None) -> tuple[Array | None, Array | None, Array | None]:
+        """Fold a remote output device's temperature and rail offset into its
+        mismatch inputs (exact at convergence; see biastree.floorplan)."""
+        remote = self.cols.remote
+        b = g.branches
+        dt, dv = remote.delta_t[b][:, None], remote.delta_v[b][:, None]
+        if not (np.any(dt) or np.any(dv)):
+            return is_scale, vt_shift, k_scale
+        dev = self.dev.take(self.tree.b_parent[b])
+        t = self.cols.temperature[None, :]
+        if g.family == "bjt":
+            plan = self.tree.plan
+            models = [plan.devices[plan.mirrors[self.tree.mirrors[p]].device] for p in self.tree.b_parent[b]]
+            xti = np.array([m.xti for m in models])[:, None]
+            eg = np.array([m.eg for m in models])[:, None]
+            vt, vt_hot = dev.vt, devices.thermal_voltage(t + dt)
+            is_ratio = devices.bjt_is_at(1.0, t + dt, t, xti, eg)
+            # the warm device's real V_BE, from its current in the previous sweep
+            # (its own IS and V_T; the first sweep starts from 0.7 V)
+            is_hot = dev.is_in / dev.size_in * dev.size_in * self.tree.b_ratio[b][:, None] * is_ratio
+            with np.errstate(divide="ignore", invalid="ignore"):
+                vbe = np.where(b_current[b] > 0, vt_hot * np.log(b_current[b] / is_hot), 0.7)
+                early = 1.0 + np.maximum(distance - vbe - dv, 0.0) / dev.early  # its collector at the output node
+                vbe = np.where(b_current[b] > 0, vt_hot * np.log(b_current[b] / (is_hot * early)), 0.7)
+            factor = is_ratio * np.exp(vbe / vt_hot - vbe / vt) * np.exp(-dv / vt)
+            return (factor if is_scale is None else is_scale * factor), vt_shift, k_scale
+        plan = self.tree.plan
+        models = [plan.devices[plan.mirrors[self.tree.mirrors[p]].device] for p in self.tree.b_parent[b]]
+        tc = np.array([m.vth_tc for m in models])[:, None]
+        mu = np.array([m.mobility_exp for m in models])[:, None]
+        shift = dv + tc * dt  # |VT| rises with tc·ΔT; the rail offset eats into V_GS
+        # kp law, and the drain-source voltage the offset rail takes away (λ term)
+        scale = ((t + dt) / t) ** mu * (1.0 + dev.lam * (distance - dv)) / (1.0 + dev.lam * distance)
+        return (is_scale, shift if vt_shift is None else vt_shift + shift,
+                scale if k_scale is None else k_scale * scale)
 
 
 def solve(
@@ -189,7 +231,7 @@ def solve(
                 dist = distance[b]
                 dist[child_mirror] = supply - m_v_in[tree.b_child[b[child_mirror]]]
                 distance[b] = dist
-                out = TOPOLOGIES[g.topology].solve(ctx.group_input(g, m_i_in, dist))
+                out = TOPOLOGIES[g.topology].solve(ctx.group_input(g, m_i_in, dist, b_current=b_current))
                 m_v_in[g.mirrors] = out.v_in
                 m_extra[g.mirrors] = out.extra
                 b_current[b] = out.current
@@ -215,7 +257,7 @@ def solve(
         b_min = b_min - np.where(tree.m_bipolar[tree.b_parent], plan.compliance.bjt_forward_bias, 0.0)[:, None]
     if output_resistance:
         factors = _factors(ctx, groups, m_i_in, distance, b_current)
-        rout = _rout(ctx, groups, m_i_in, distance)
+        rout = _rout(ctx, groups, m_i_in, distance, b_current)
     else:
         factors, rout = {}, np.full((n_b, n_c), np.nan)
     return OperatingPoint(
@@ -242,16 +284,25 @@ def _factors(ctx: _Context, groups: list[list[_Group]], i_in: Array, distance: A
     tree = ctx.tree
     n_b, n_c = current.shape
     ideal_gain = np.ones((n_b, n_c))
+    local_gain = np.ones((n_b, n_c))  # ideal outputs and no floorplan offsets
     ideal_dev = ctx.dev.ideal_outputs()
+    local = replace(ctx, cols=replace(ctx.cols, remote=None))
     for generation in groups:
         for g in generation:
             b = g.branches
-            out = TOPOLOGIES[g.topology].solve(ctx.group_input(g, i_in, distance[b], ideal_dev))
-            ideal_gain[b] = out.current / (i_in[tree.b_parent[b]] * tree.b_ratio[b][:, None])
+            ideal_in = i_in[tree.b_parent[b]] * tree.b_ratio[b][:, None]
+            out = TOPOLOGIES[g.topology].solve(ctx.group_input(g, i_in, distance[b], ideal_dev, current))
+            ideal_gain[b] = out.current / ideal_in
+            if ctx.cols.remote is not None:
+                out = TOPOLOGIES[g.topology].solve(local.group_input(g, i_in, distance[b], ideal_dev, current))
+                local_gain[b] = out.current / ideal_in
+            else:
+                local_gain[b] = ideal_gain[b]
     real_gain = current / (i_in[tree.b_parent] * tree.b_ratio[:, None])
     bip = tree.m_bipolar[tree.b_parent][:, None]
     return {
-        "beta": np.where(bip, ideal_gain, 1.0),
+        "beta": np.where(bip, local_gain, 1.0),
+        "gradient": ideal_gain / local_gain,
         "early": np.where(bip, real_gain / ideal_gain, 1.0),
         "lambda": np.where(bip, 1.0, real_gain / ideal_gain),
     }
@@ -260,7 +311,7 @@ def _factors(ctx: _Context, groups: list[list[_Group]], i_in: Array, distance: A
 ROUT_STEP = 1e-3  # V: central difference of the output current
 
 
-def _rout(ctx: _Context, groups: list[list[_Group]], i_in: Array, distance: Array) -> Array:
+def _rout(ctx: _Context, groups: list[list[_Group]], i_in: Array, distance: Array, ctx_current: Array) -> Array:
     """Output resistance of every branch: 1/(∂I_out/∂V_out) with the input
     current held, by a central difference of the exact DC solution (the
     small-signal model is the derivative of the same equations).  Where one
@@ -276,8 +327,8 @@ def _rout(ctx: _Context, groups: list[list[_Group]], i_in: Array, distance: Arra
                 step = np.full((len(b), 1), ROUT_STEP)
                 if position is not None:
                     step = np.where((g.position == position)[:, None], ROUT_STEP, 0.0)
-                hi = topo.solve(ctx.group_input(g, i_in, distance[b] + step)).current
-                lo = topo.solve(ctx.group_input(g, i_in, distance[b] - step)).current
+                hi = topo.solve(ctx.group_input(g, i_in, distance[b] + step, b_current=ctx_current)).current
+                lo = topo.solve(ctx.group_input(g, i_in, distance[b] - step, b_current=ctx_current)).current
                 with np.errstate(divide="ignore"):
                     r = 2.0 * ROUT_STEP / (hi - lo)
                 sel = slice(None) if position is None else (g.position == position)

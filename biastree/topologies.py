@@ -34,8 +34,9 @@ TERM_LABELS = {
     "beta": "β loading",
     "early": "Early effect",
     "lambda": "channel-length modulation",
+    "gradient": "die gradient",
 }
-FAMILY_TERMS = {"bjt": ("beta", "early"), "mos": ("lambda",)}
+FAMILY_TERMS = {"bjt": ("beta", "early", "gradient"), "mos": ("lambda", "gradient")}
 _TOL = 1e-15
 _ITER = 200
 
@@ -83,9 +84,12 @@ class GroupInput:
     def mos_mismatch(self) -> tuple[Array | float, Array | float]:
         return (0.0 if self.vt_shift is None else self.vt_shift, 1.0 if self.k_scale is None else self.k_scale)
 
-    def fanout(self) -> Array:
-        out = np.zeros(self.i_in.shape[:1] + (1,))
-        np.add.at(out, self.row, self.ratio * self.count)
+    def fanout(self, scale: Array | float = 1.0) -> Array:
+        """Σ ratio·count over each mirror's branches; with ``scale``, each output
+        device weighted by its IS scale (its base current scales with it)."""
+        weights = np.asarray(self.ratio * self.count * scale)
+        out = np.zeros((self.i_in.shape[0], weights.shape[1]))
+        np.add.at(out, self.row, weights)
         return out
 
     def segment_sum(self, per_branch: Array) -> Array:
@@ -151,7 +155,7 @@ def _simple(g: GroupInput) -> GroupOutput:
     d, r = g.dev, g.row
     scale = 1.0 if g.is_scale is None else g.is_scale
     if d.family == "bjt":
-        x_in = g.i_in / (1.0 + (1.0 + g.fanout()) / d.beta)  # IS·A0·e^(VBE/VT)
+        x_in = g.i_in / (1.0 + (1.0 + g.fanout(scale)) / d.beta)  # IS·A0·e^(VBE/VT)
         vbe = _vbe(x_in, d.is_in, d.vt)
         current = x_in[r] * g.ratio * scale * devices.early_factor(g.distance - vbe[r], d.early[r])
         return GroupOutput(vbe, current, np.broadcast_to(vbe[r], current.shape), np.zeros_like(g.i_in))
@@ -185,7 +189,7 @@ def _beta_helper(g: GroupInput) -> GroupOutput:
     is_unit = d.is_in / a0
     is_b = is_unit * g.params["helper_size"]
     bleed = g.params["bleed"]
-    fan = g.fanout()
+    fan = g.fanout(scale)
     x = g.i_in / a0
     for _ in range(_ITER):
         vbe = _vbe(x, is_unit, d.vt)
@@ -277,7 +281,7 @@ def _cascode(g: GroupInput) -> GroupOutput:
     a0 = d.size_in
     if d.family == "bjt":
         is_unit = d.is_in / a0
-        fan = g.fanout()
+        fan = g.fanout(scale)
         ib4_sum = np.zeros_like(g.i_in)
         for _ in range(_ITER):
             ie3 = g.i_in - ib4_sum

@@ -221,6 +221,9 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
         if name not in fed_by:
             problems.append((("loads", name), "never fed: no branch drives this load"))
 
+    from .floorplan import check_floorplan
+
+    problems += check_floorplan(plan)
     for name, load in loads.items():
         lo, _, hi = load.v_range
         if lo < 0 or hi > plan.supply:

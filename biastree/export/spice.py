@@ -19,6 +19,7 @@ import numpy as np
 
 from ..plan import BjtModel, MosModel
 from ..conditions import condition_columns, reference_current
+from ..floorplan import remote_offsets as tree_remote
 from ..solve import CASES, OperatingPoint, solve, topology_params
 from ..tree import Tree
 from ..units import ZERO_CELSIUS
@@ -105,18 +106,52 @@ class _Context:
     mult: dict[str, float]
     params: dict[str, np.ndarray]
 
+    remote_lines: list[str] = field(default_factory=list)
+    hot_models: list[str] = field(default_factory=list)
+    kelvin: float = 300.15
+
     def param(self, key: str, mirror: str) -> float:
         return float(self.params[key][self.tree.mirrors.index(mirror), 0])
 
-    def device(self, label: str, mirror: str, c: str, b: str, e: str, size: float, multiplicity: float) -> str:
+    def out_rail(self, mirror: str, i: int, rail: str) -> tuple[str, str]:
+        """(rail node, extra instance parameters) of branch i's output device: a remote
+        device gets its own rail, offset by the IR drop, and its temperature offset."""
+        tree = self.tree
+        remote = tree_remote(tree)
+        m = tree.mirrors.index(mirror)
+        b = int(np.flatnonzero((tree.b_parent == m) & (tree.b_index == i))[0])
+        if remote is None or not (remote.delta_v[b] or remote.delta_t[b]):
+            return rail, ""
+        tag = f"{self.names.get('mirror', mirror)}_o{i}"
+        node = f"r_{tag}"
+        dv = float(remote.delta_v[b])
+        # the remote rail sits ΔV towards the other rail (ground up, supply down)
+        self.remote_lines.append(f"vr_{tag} {node} {rail} dc {_num(dv if rail == '0' else -dv)}")
+        bipolar = bool(tree.m_bipolar[m])
+        extra = ""
+        if remote.delta_t[b] and bipolar:
+            extra = f" dtemp={_num(float(remote.delta_t[b]))}"
+        elif remote.delta_t[b]:
+            # a MOS card is evaluated at its temperature: the warmer device gets its own card
+            model = f"{self.models[tree.plan.mirrors[mirror].device]}_{tag}"
+            dev = tree.plan.devices[tree.plan.mirrors[mirror].device]
+            self.hot_models.append(_model_card(model, dev, self.kelvin + float(remote.delta_t[b])))
+            extra = f"@model={model} dtemp={_num(float(remote.delta_t[b]))}"
+        return node, extra
+
+    def device(self, label: str, mirror: str, c: str, b: str, e: str, size: float, multiplicity: float,
+               extra: str = "", bulk: str | None = None) -> str:
         """One device of ``mirror``: size in unit devices, times ``multiplicity`` copies."""
         plan = self.tree.plan
         dev = plan.devices[plan.mirrors[mirror].device]
         model = self.models[plan.mirrors[mirror].device]
         if isinstance(dev, BjtModel):
-            return f"q{label} {c} {b} {e} {model} area={_num(size * multiplicity)}"
-        return (f"m{label} {c} {b} {e} {e} {model} w={_num(dev.w * size)} l={_num(dev.l)} "
-                f"m={_num(multiplicity)}")
+            return f"q{label} {c} {b} {e} {model} area={_num(size * multiplicity)}{extra}"
+        if extra.startswith("@model="):
+            model, _, rest = extra[len("@model="):].partition(" ")
+            extra = " " + rest if rest else ""
+        return (f"m{label} {c} {b} {e} {bulk or e} {model} w={_num(dev.w * size)} l={_num(dev.l)} "
+                f"m={_num(multiplicity)}{extra}")
 
 
 def _frame(ctx: _Context, mirror: str) -> tuple[str, str, str, str, float]:
@@ -134,8 +169,9 @@ def _simple(ctx: _Context, mirror: str) -> list[str]:
     lines = [ctx.device(f"{tag}_in", mirror, node, node, rail, spec.input_size, mult)]
     for i, branch in enumerate(spec.branches):
         out = ctx.out_node[(mirror, i)]
-        lines.append(ctx.device(f"{tag}_o{i}", mirror, out, node, rail, branch.ratio * spec.input_size,
-                                mult * branch.count))
+        erail, extra = ctx.out_rail(mirror, i, rail)
+        lines.append(ctx.device(f"{tag}_o{i}", mirror, out, node, erail, branch.ratio * spec.input_size,
+                                mult * branch.count, extra))
     return lines
 
 
@@ -151,8 +187,9 @@ def _beta_helper(ctx: _Context, mirror: str) -> list[str]:
         a, b = (base, "0") if rail == "0" else ("vdd", base)
         lines.append(f"i{tag}_bleed {a} {b} dc {_num(spec.bleed * mult)}")
     for i, branch in enumerate(spec.branches):
-        lines.append(ctx.device(f"{tag}_o{i}", mirror, ctx.out_node[(mirror, i)], base, rail,
-                                branch.ratio * spec.input_size, mult * branch.count))
+        erail, extra = ctx.out_rail(mirror, i, rail)
+        lines.append(ctx.device(f"{tag}_o{i}", mirror, ctx.out_node[(mirror, i)], base, erail,
+                                branch.ratio * spec.input_size, mult * branch.count, extra))
     return lines
 
 
@@ -187,8 +224,10 @@ def _cascode(ctx: _Context, mirror: str) -> list[str]:
     for i, branch in enumerate(spec.branches):
         mid = f"x{i}_{tag}"
         size, copies = branch.ratio * a0, mult * branch.count
-        lines.append(ctx.device(f"{tag}_o{i}", mirror, mid, base, rail, size, copies))
-        lines.append(ctx.device(f"{tag}_c{i}", mirror, ctx.out_node[(mirror, i)], node, mid, size, copies))
+        erail, extra = ctx.out_rail(mirror, i, rail)
+        lines.append(ctx.device(f"{tag}_o{i}", mirror, mid, base, erail, size, copies, extra))
+        lines.append(ctx.device(f"{tag}_c{i}", mirror, ctx.out_node[(mirror, i)], node, mid, size, copies,
+                                bulk=rail))
     return lines
 
 
@@ -207,8 +246,10 @@ def _wide_swing(ctx: _Context, mirror: str) -> list[str]:
     for i, branch in enumerate(spec.branches):
         omid = f"x{i}_{tag}"
         size, copies = branch.ratio * a0, mult * branch.count
-        lines.append(ctx.device(f"{tag}_o{i}", mirror, omid, node, rail, size, copies))
-        lines.append(ctx.device(f"{tag}_c{i}", mirror, ctx.out_node[(mirror, i)], gate, omid, size, copies))
+        erail, extra = ctx.out_rail(mirror, i, rail)
+        lines.append(ctx.device(f"{tag}_o{i}", mirror, omid, node, erail, size, copies, extra))
+        lines.append(ctx.device(f"{tag}_c{i}", mirror, ctx.out_node[(mirror, i)], gate, omid, size, copies,
+                                bulk=rail))
     return lines
 
 
@@ -222,9 +263,10 @@ def _degenerated(ctx: _Context, mirror: str) -> list[str]:
     ]
     for i, branch in enumerate(spec.branches):
         copies = mult * branch.count
+        erail, extra = ctx.out_rail(mirror, i, rail)
         lines.append(ctx.device(f"{tag}_o{i}", mirror, ctx.out_node[(mirror, i)], node, f"e{i}_{tag}",
-                                branch.ratio * spec.input_size, copies))
-        lines.append(f"r{tag}_o{i} e{i}_{tag} {rail} {_num(r1 / branch.ratio / copies)}")
+                                branch.ratio * spec.input_size, copies, extra))
+        lines.append(f"r{tag}_o{i} e{i}_{tag} {erail} {_num(r1 / branch.ratio / copies)}")
     return lines
 
 
@@ -306,7 +348,7 @@ def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: O
         lines.append(f"iref vdd {root_node} dc {_num(i_ref)}")
     else:
         lines.append(f"iref {root_node} 0 dc {_num(i_ref)}")
-    ctx = _Context(tree, names, models, node_of_mirror, out_node, mult, topology_params(tree))
+    ctx = _Context(tree, names, models, node_of_mirror, out_node, mult, topology_params(tree), kelvin=kelvin)
     for m in tree.mirrors:
         spec = plan.mirrors[m]
         lines.append(f"* mirror {m}: {spec.device} {spec.topology}, ×{mult[m]:g}")
@@ -320,6 +362,10 @@ def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: O
         nodeset.append(f"v({node_of_mirror[m]})={_num(v if tree.m_sink[i] else vdd - v)}")
     for k in range(0, len(nodeset), 6):
         lines.append(".nodeset " + " ".join(nodeset[k:k + 6]))
+    if ctx.remote_lines:
+        lines.append("* remote output devices: their rail offset by the IR drop (floorplan)")
+        lines += ctx.remote_lines
+        lines += ctx.hot_models
     lines.append("* loads: ammeter (0 V) then the node voltage")
     lines += load_lines
     lines.append(".op")
