@@ -16,8 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .audit import Audit, audit
-from .solve import solve
+from .audit import Audit
 from .topologies import TOPOLOGIES
 from .tree import build
 from .units import format_percent, format_si
@@ -76,7 +75,12 @@ def _trial(result: Audit, mirror: str, topology: str) -> Trial:
     changed = type(spec)(topology=topology, **keep)
     new_plan = plan.model_copy(update={"mirrors": {**plan.mirrors, mirror: changed}})
     try:
-        return Trial(mirror, topology, audit(solve(build(new_plan), output_resistance=False)))
+        # the same verdict pipeline as the original (conditions and mismatch included)
+        from . import check
+
+        tree = build(new_plan)
+        return Trial(mirror, topology, check(tree, conditions=result.conditions is not None,
+                                             mismatch=result.spread is not None, k_sigma=result.k_sigma))
     except Exception as exc:  # a candidate that cannot be solved is simply not suggested
         return Trial(mirror, topology, None, str(exc))
 
@@ -106,7 +110,7 @@ def hints(result: Audit) -> dict[int, list[str]]:
             if trial is None or trial.result is None:
                 continue
             new = trial.result
-            err = float(new.error[i, int(new.worst_case[i])])
+            err, _ = new.worst_error(i)
             if new.passed[i]:
                 status = "would pass"
             else:

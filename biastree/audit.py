@@ -39,6 +39,9 @@ class Audit:
     upstream: Array  # (n_loads,) first branch on the path (to a mirror) out of compliance, −1 none
     passed: Array  # bool (n_loads,)
     reference_headroom: float  # supply − input voltage of the first mirror, V
+    conditions: Any = None  # biastree.corners.ConditionResult, when the plan lists conditions
+    spread: Any = None  # biastree.spread.Analytic, when devices carry matching coefficients
+    k_sigma: float = 3.0
 
     @property
     def tree(self):  # type: ignore[no-untyped-def]
@@ -132,25 +135,46 @@ class Audit:
             best = (self.tree.mirrors[int(m[load])], TERM_LABELS[keys[int(k[load])]], float(v[load]))
         return best
 
+    @property
+    def sigma(self) -> Array:
+        """(n_loads,) first-order mismatch σ of each load's current (0 without coefficients)."""
+        return self.spread.mismatch if self.spread is not None else np.zeros(len(self.target))
+
+    def worst_error(self, load: int) -> tuple[float, str]:
+        """Largest |error| over the voltage range and (when listed) the plan's conditions."""
+        plan = self.tree.plan
+        name = self.tree.loads[load]
+        worst = int(self.worst_case[load])
+        err = float(self.error[load, worst])
+        at = ""
+        if isinstance(plan.loads[name].voltage, tuple):
+            at = f"at {CASES[worst]} voltage {format_si(plan.loads[name].v_range[worst], 'V')}"
+        if self.conditions is not None:
+            cond = float(self.conditions.worst_error[load])
+            if abs(cond) > abs(err):
+                return cond, f"at {self.conditions.worst_name(load)}"
+        return err, at
+
     def reasons(self, load: int) -> list[str]:
         """Why a load fails, in a designer's words (empty when it passes)."""
         tree, op = self.tree, self.op
         plan = tree.plan
         name = tree.loads[load]
         out = []
-        worst = int(self.worst_case[load])
-        err = float(self.error[load, worst])
-        used = abs(err) + self.reference_tolerance
-        if used > self.tolerance[load]:
-            at = ""
-            if isinstance(plan.loads[name].voltage, tuple):
-                at = f" at {CASES[worst]} voltage {format_si(plan.loads[name].v_range[worst], 'V')}"
+        err, at = self.worst_error(load)
+        if self.margin[load] < 0:
             ref = f" + reference {self.reference_tolerance * 100:.3g} %" if self.reference_tolerance else ""
+            mm = f" + {self.k_sigma:g}σ mismatch {self.k_sigma * self.sigma[load] * 100:.3g} %" if self.sigma[load] else ""
             stage, label, value = self.largest_term(load)
             out.append(
-                f"budget: error {format_percent(err)}{ref} exceeds ±{self.tolerance[load] * 100:.3g} %{at}; "
-                f"largest term: {label} at {stage} ({format_percent(value)})"
+                f"budget: error {format_percent(err)}{mm}{ref} exceeds ±{self.tolerance[load] * 100:.3g} %"
+                f"{' ' + at if at else ''}; largest {'nominal ' if self.conditions is not None else ''}term: "
+                f"{label} at {stage} ({format_percent(value)})"
             )
+        if self.conditions is not None and self.compliance[load] >= 0 and self.conditions.compliance[load] < 0:
+            k = int(self.conditions.compliance_index[load])
+            out.append(f"compliance: the output device leaves its active region at {self.conditions.columns.names[k]} "
+                       f"({format_si(float(self.conditions.compliance[load]), 'V')})")
         if self.compliance[load] < 0:
             case = int(self.compliance_case[load])
             branch = tree.l_branch[load]
@@ -202,6 +226,28 @@ class Audit:
         """Output resistance seen by each load at its nominal voltage, Ω."""
         return self.op.b_rout[self.tree.l_branch, 1]
 
+    def floorplan_note(self, load: int) -> dict[str, Any] | None:
+        """Gradient cost of a remote load (its output device far from its mirror)."""
+        remote = self.op.columns.remote if self.op.columns is not None else None
+        if remote is None:
+            return None
+        b = int(self.tree.l_branch[load])
+        if not remote.distance[b]:
+            return None
+        fp = self.tree.plan.floorplan
+        term = float(self.op.b_factors["gradient"][b, 1] - 1.0) if "gradient" in self.op.b_factors else 0.0
+        return {"distance": float(remote.distance[b]), "delta_t": float(remote.delta_t[b]),
+                "delta_v": float(remote.delta_v[b]), "term": term, "long_line": bool(remote.distance[b] > fp.long_line)}
+
+    def floorplan_text(self, load: int) -> str | None:
+        note = self.floorplan_note(load)
+        if note is None or not note["long_line"]:
+            return None
+        mirror = self.tree.mirrors[self.tree.b_parent[self.tree.l_branch[load]]]
+        return (f"floorplan: {self.tree.loads[load]} shares {mirror}'s base/gate line over {note['distance'] * 1e3:.3g} mm "
+                f"(ΔT {note['delta_t']:.3g} K, rail offset {note['delta_v'] * 1e3:.3g} mV): {format_percent(note['term'])}; "
+                "routing the current from an output device beside the mirror would remove this term")
+
     def load_report(self, load: int) -> dict[str, Any]:
         """Everything known about one load, as plain data (the JSON result)."""
         tree, plan = self.tree, self.tree.plan
@@ -233,6 +279,17 @@ class Audit:
                 "per_volt": float(self.regulation[2][load]),
             },
             "hints": self.hints.get(load, []),
+            "floorplan": self.floorplan_note(load),
+            "conditions": None if self.conditions is None else {
+                "worst_error": float(self.conditions.worst_error[load]),
+                "at": self.conditions.worst_name(load),
+                "compliance_margin": float(self.conditions.compliance[load]),
+            },
+            "mismatch": None if self.spread is None else {
+                "sigma": float(self.sigma[load]),
+                "k": self.k_sigma,
+                "stages": [{"mirror": m, "sigma": s} for m, s in self.spread.stage_sigmas(load)],
+            },
             "stages": self.stages(load),
         }
 
@@ -285,15 +342,36 @@ class Audit:
             "temperature": plan.temperature,
             "summary": self.summary(),
             "loads": [self.load_report(i) for i in range(len(self.tree.loads))],
+            "matched": self.matched(),
         }
+
+    def matched(self) -> list[dict[str, Any]]:
+        """Each matched pair: nominal ratio error, first-order σ of the ratio, verdict."""
+        tree, plan = self.tree, self.tree.plan
+        out = []
+        for name, group in plan.matched.items():
+            a, b = (tree.loads.index(n) for n in group.loads)
+            ideal = self.ideal[a] / self.ideal[b]
+            error = float(self.delivered[a, 1] / self.delivered[b, 1] / ideal - 1.0)
+            sigma = self.spread.ratio_sigma(a, b) if self.spread is not None else 0.0
+            used = abs(error) + self.k_sigma * sigma
+            out.append({"name": name, "loads": list(group.loads), "ratio_error": error, "sigma": sigma,
+                        "k": self.k_sigma, "tolerance": group.tolerance,
+                        "verdict": "pass" if used <= group.tolerance else "fail"})
+        return out
 
 
 def _finite_or_none(x: float) -> float | None:
     return x if np.isfinite(x) else None
 
 
-def audit(op: OperatingPoint) -> Audit:
-    """Compare every load's current with its budget and explain the result."""
+def audit(op: OperatingPoint, conditions: Any = None, spread: Any = None, k_sigma: float | None = None) -> Audit:
+    """Compare every load's current with its budget and explain the result.
+
+    ``conditions`` (biastree.corners.evaluate) widens the error to the worst
+    over the plan's temperatures, supplies and corners; ``spread``
+    (biastree.spread.analytic) adds k·σ of mismatch to the budget's use.
+    """
     tree = op.tree
     plan = tree.plan
     target = np.array([plan.loads[n].current for n in tree.loads], dtype=float)
@@ -303,7 +381,11 @@ def audit(op: OperatingPoint) -> Audit:
     worst = np.argmax(np.abs(error), axis=1)
     worst_abs = np.abs(error[np.arange(len(target)), worst])
     ref_tol = plan.reference.tolerance
-    margin = tolerance - worst_abs - ref_tol
+    k = plan.spread.k_sigma if k_sigma is None else k_sigma
+    if conditions is not None:
+        worst_abs = np.maximum(worst_abs, np.abs(conditions.worst_error))
+    sigma = spread.mismatch if spread is not None else 0.0
+    margin = tolerance - worst_abs - k * sigma - ref_tol
 
     comp = op.b_compliance
     l_comp = comp[tree.l_branch]
@@ -322,6 +404,8 @@ def audit(op: OperatingPoint) -> Audit:
 
     reference_headroom = float(plan.supply - op.m_v_in[tree.generations[0][0], 1])
     passed = (margin >= 0) & (compliance >= 0) & (upstream < 0) & (reference_headroom > 0)
+    if conditions is not None:
+        passed &= (conditions.compliance >= 0) & (conditions.headroom >= 0)
     return Audit(
         op=op,
         target=target,
@@ -336,4 +420,7 @@ def audit(op: OperatingPoint) -> Audit:
         upstream=upstream,
         passed=passed,
         reference_headroom=reference_headroom,
+        conditions=conditions,
+        spread=spread,
+        k_sigma=k,
     )

@@ -96,9 +96,14 @@ def check(
         Optional[str], typer.Option(help="allow this much BJT base-collector forward bias, e.g. 0.3V")
     ] = None,
     output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file instead of stdout")] = None,
+    k_sigma: Annotated[Optional[float], typer.Option(help="budgets must hold with this many σ of mismatch (plan default 3)")] = None,
+    conditions: Annotated[bool, typer.Option(help="also solve the plan's temperatures, supplies and corners")] = True,
+    mismatch: Annotated[bool, typer.Option(help="add k·σ of mismatch when devices carry matching coefficients")] = True,
 ) -> None:
     """Solve the plan and audit every load against its budget (exit 1 if any fails)."""
-    result = biastree.audit(biastree.solve(_load(plan, forward_bias)))
+    if k_sigma is not None and k_sigma <= 0:
+        raise BiasTreeError("--k-sigma: must be > 0")
+    result = biastree.check(_load(plan, forward_bias), conditions=conditions, mismatch=mismatch, k_sigma=k_sigma)
     if json:
         from .export.json import to_json
 
@@ -107,7 +112,8 @@ def check(
         from .export.table import to_table
 
         _emit(to_table(result, failing_only=failing), output)
-    raise typer.Exit(0 if bool(result.passed.all()) else 1)
+    matched_ok = all(m["verdict"] == "pass" for m in result.matched())
+    raise typer.Exit(0 if bool(result.passed.all()) and matched_ok else 1)
 
 
 class SchemaKind(str, Enum):
@@ -218,7 +224,7 @@ def draw(
     from .export.dot import to_dot
     from .files import write_atomic
 
-    result = biastree.audit(biastree.solve(_load(plan)))
+    result = biastree.check(_load(plan))
     diagram = to_dot(result, only_failing=only_failing, depth=depth, annotate=annotate.value, expand=expand)
     for note in diagram.notes:
         typer.echo(f"note: {note}", err=True)
@@ -248,7 +254,7 @@ def report(
     """Write a review report: inputs, verdicts, tree diagram, load table, why loads fail."""
     from .files import write_atomic
 
-    result = biastree.audit(biastree.solve(_load(plan)))
+    result = biastree.check(_load(plan))
     kind = fmt.value if fmt else ("md" if output.suffix.lower() in (".md", ".markdown") else "html")
     if kind == "md":
         from .export.markdown import to_markdown
@@ -271,6 +277,100 @@ def report(
 
         write_atomic(csv, to_csv(result))
     write_atomic(output, text)
+
+
+@app.command()
+@guarded
+def spread(
+    plan: PlanArg,
+    samples: Annotated[int, typer.Option(help="Monte Carlo samples", min=2)] = 1000,
+    seed: Annotated[int, typer.Option(help="random seed (same seed, same numbers)")] = 1,
+    json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    reference: Annotated[bool, typer.Option(help="sample the reference tolerance (as 3σ)")] = True,
+    process: Annotated[bool, typer.Option(help="sample the plan's global process spread")] = True,
+    output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file")] = None,
+) -> None:
+    """Monte Carlo of device mismatch (and reference and process spread), against first-order σ."""
+    from .export.spread_table import to_spread_json, to_spread_table
+    from .spread import analytic, monte_carlo
+
+    tree = _load(plan)
+    an = analytic(tree)
+    if not an.sigmas.any:
+        raise BiasTreeError(f"{plan}: no device has matching coefficients (a_is_pair/a_vt_pair/…); nothing to spread")
+    work = samples * len(tree.b_parent)
+    show = work > 2_000_000 and not json and sys.stderr.isatty()
+
+    def progress(done: int, total: int) -> None:
+        if show:
+            bar = "#" * int(30 * done / total)
+            typer.echo(f"\r[{bar:<30}] {done}/{total} samples", err=True, nl=done == total)
+
+    mc = monte_carlo(tree, samples, seed, include_reference=reference, include_process=process, progress=progress)
+    _emit(to_spread_json(mc, an) if json else to_spread_table(mc, an), output)
+
+
+@app.command()
+@guarded
+def sweep(
+    plan: PlanArg,
+    temperature: Annotated[Optional[str], typer.Option(help="START:STOP:STEP, e.g. -40C:125C:5C")] = None,
+    supply: Annotated[Optional[str], typer.Option(help="START:STOP:STEP, e.g. 3.0V:3.6V:0.1V")] = None,
+    corner: Annotated[Optional[list[str]], typer.Option(help="process corner(s) from the plan")] = None,
+    all_ends: Annotated[bool, typer.Option("--all-ends", help="each load at min, nominal and max voltage")] = False,
+    json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    csv: Annotated[Optional[Path], typer.Option("--csv", help="also write every load × condition as CSV")] = None,
+    output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file")] = None,
+) -> None:
+    """Solve the plan over temperature, supply and corners; each load's worst case and where."""
+    from .corners import evaluate, parse_range, sweep_columns
+    from .export.spread_table import sweep_data, to_sweep_csv, to_sweep_table
+
+    tree = _load(plan)
+    try:
+        temps = parse_range(temperature, "C") if temperature else None
+        sups = parse_range(supply, "V") if supply else None
+    except ValueError as exc:
+        raise BiasTreeError(f"sweep: {exc}") from None
+    for name in corner or []:
+        if name not in tree.plan.conditions.corners:
+            known = ", ".join(tree.plan.conditions.corners) or "none in the plan"
+            raise BiasTreeError(f"--corner: no corner named '{name}' (known: {known})")
+    ends = ("min", "nominal", "max") if all_ends else ("nominal",)
+    result = evaluate(tree, sweep_columns(tree, temps, sups, corner, ends))
+    if csv is not None:
+        from .files import write_atomic
+
+        write_atomic(csv, to_sweep_csv(result))
+    if json:
+        import json as _json
+
+        _emit(_json.dumps(sweep_data(result), indent=1) + "\n", output)
+    else:
+        _emit(to_sweep_table(result), output)
+
+
+@app.command()
+@guarded
+def corners(
+    plan: PlanArg,
+    json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file")] = None,
+) -> None:
+    """The plan's corner matrix (temperatures × supplies × corners × voltage ends): worst case per load."""
+    from .corners import evaluate, has_conditions
+    from .export.spread_table import sweep_data, to_sweep_table
+
+    tree = _load(plan)
+    if not has_conditions(tree):
+        raise BiasTreeError(f"{plan}: the plan lists no conditions (conditions: temperatures/supplies/corners)")
+    result = evaluate(tree)
+    if json:
+        import json as _json
+
+        _emit(_json.dumps(sweep_data(result), indent=1) + "\n", output)
+    else:
+        _emit(to_sweep_table(result), output)
 
 
 @app.command()

@@ -33,6 +33,41 @@ class Stage(_Out):
     terms: list[Term]
 
 
+class ConditionsTerm(_Out):
+    worst_error: float = Field(description="error of largest magnitude over the plan's conditions")
+    at: str = Field(description="the condition where it happens")
+    compliance_margin: float = Field(description="smallest compliance margin over the conditions, V")
+
+
+class StageSigma(_Out):
+    mirror: str
+    sigma: float = Field(description="relative σ this stage adds (its pair of devices)")
+
+
+class MismatchTerm(_Out):
+    sigma: float = Field(description="first-order relative σ of the load's current from mismatch")
+    k: float = Field(description="budgets hold with k·σ")
+    stages: list[StageSigma]
+
+
+class MatchedResult(_Out):
+    name: str
+    loads: list[str]
+    ratio_error: float = Field(description="nominal ratio / ideal ratio − 1")
+    sigma: float = Field(description="first-order σ of the ratio (only what the loads do not share)")
+    k: float
+    tolerance: float
+    verdict: Literal["pass", "fail"]
+
+
+class FloorplanTerm(_Out):
+    distance: float = Field(description="mirror to load, m")
+    delta_t: float = Field(description="output device warmer than the mirror's input device, K")
+    delta_v: float = Field(description="output device's rail offset towards the other rail, V")
+    term: float = Field(description="error this adds (nominal)")
+    long_line: bool = Field(description="the shared base/gate line is longer than the floorplan's long_line")
+
+
 class Regulation(_Out):
     delta_current: float = Field(description="I(max voltage) − I(min voltage), A")
     fraction: float = Field(description="delta_current / delivered")
@@ -61,6 +96,9 @@ class LoadResult(_Out):
     rout: Optional[float] = Field(description="output resistance seen by the load at its nominal voltage, Ω (null: infinite)")
     regulation: Regulation
     hints: list[str] = Field(description="computed topology changes that would help a failing load")
+    floorplan: Optional[FloorplanTerm] = Field(description="gradient cost of a remote output device")
+    conditions: Optional[ConditionsTerm] = Field(description="worst case over temperatures, supplies, corners")
+    mismatch: Optional[MismatchTerm] = Field(description="mismatch σ (when devices carry matching coefficients)")
     stages: list[Stage] = Field(description="terms of each stage along the path, at the nominal voltage")
 
 
@@ -91,6 +129,7 @@ class CheckResult(_Out):
     temperature: float = Field(description="K")
     summary: Summary
     loads: list[LoadResult]
+    matched: list[MatchedResult]
 
 
 def results_schema() -> dict[str, Any]:

@@ -16,8 +16,8 @@ def to_table(result: Audit, failing_only: bool = False) -> str:
     """One row per load: path, target, delivered, error, budget, margin, compliance, verdict."""
     tree = result.tree
     plan = tree.plan
-    header = ("load", "×", "path", "target", "delivered", "error", "range", "budget", "margin", "compl.", "Rout",
-              "reg./V", "verdict")
+    header = ("load", "×", "path", "target", "delivered", "error", "range", "worst cond.", "kσ", "budget", "margin",
+              "compl.", "Rout", "reg./V", "verdict")
     rows = []
     names = tree.mirrors
     rout = result.rout
@@ -40,6 +40,8 @@ def to_table(result: Audit, failing_only: bool = False) -> str:
                 format_si(result.delivered[i, 1], "A", 4),
                 _pct(result.error[i, 1]),
                 span,
+                _pct(float(result.conditions.worst_error[i])) if result.conditions is not None else "",
+                f"{result.k_sigma * result.sigma[i] * 100:.3g}%" if result.spread is not None else "",
                 f"±{result.tolerance[i] * 100:.3g}%",
                 _pct(result.margin[i]),
                 format_si(result.compliance[i], "V"),
@@ -48,8 +50,15 @@ def to_table(result: Audit, failing_only: bool = False) -> str:
                 "pass" if ok else "FAIL",
             )
         )
+    right = set(range(1, 14)) - {2}
+    # drop the columns this plan has nothing for
+    empty = [k for k in (7, 8) if all(not r[k] for r in rows)] if rows else [7, 8]
+    if empty:
+        keep = [k for k in range(len(header)) if k not in empty]
+        header = tuple(header[k] for k in keep)
+        rows = [tuple(r[k] for k in keep) for r in rows]
+        right = {keep.index(k) for k in right if k in keep}
     widths = [max(len(h), *(len(r[k]) for r in rows)) if rows else len(h) for k, h in enumerate(header)]
-    right = {1, 3, 4, 5, 6, 7, 8, 9, 10, 11}
 
     template = "  ".join(f"{{:{'>' if k in right else '<'}{w}}}" for k, w in enumerate(widths))
 
@@ -68,6 +77,19 @@ def to_table(result: Audit, failing_only: bool = False) -> str:
                 out.append(f"  {tree.loads[i]}: {reason}")
             for hint in hints.get(i, []):
                 out.append(f"  {tree.loads[i]}: hint: {hint}")
+    notes = [t for t in (result.floorplan_text(i) for i in range(len(tree.loads))) if t]
+    if notes:
+        out.append("")
+        out += notes
+    for m in result.matched():
+        out.append("")
+        out.append(f"matched {m['name']} ({' / '.join(m['loads'])}): ratio error {_pct(m['ratio_error'])}, "
+                   f"{m['k']:g}σ = {m['k'] * m['sigma'] * 100:.3g}%, budget ±{m['tolerance'] * 100:.3g}%: "
+                   + ("pass" if m["verdict"] == "pass" else "FAIL"))
+    if result.conditions is not None:
+        out.append("")
+        out.append(f"conditions: {len(result.conditions.columns.names)} combinations of temperature × supply × "
+                   "corner × load-voltage end; 'worst cond.' is the largest error among them")
     out.append("")
     out.append(to_summary(result))
     return "\n".join(out) + "\n"
