@@ -172,12 +172,12 @@ def analytic(tree: Tree) -> Analytic:
     s_k = (gain[:, 3] / gain[:, 0] - 1.0) / _H
     result = Analytic(tree, device_sigmas(tree), s_is, s_vt, s_k, np.zeros(n_b), tree.plan.reference.tolerance / 3.0)
     local = result.local_var(np.arange(n_b))
-    b_var = local.copy()
-    for gen in tree.generations[1:]:  # add what the input current of each mirror already carries
-        above = b_var[tree.m_in_branch[gen]]
-        for m, v in zip(gen.tolist(), above.tolist()):
-            b_var[tree.b_parent == m] += v
-    return replace(result, b_var=b_var)
+    # variance carried by each mirror's input current, generation by generation
+    m_var = np.zeros(len(tree.mirrors))
+    for gen in tree.generations[1:]:
+        b = tree.m_in_branch[gen]
+        m_var[gen] = m_var[tree.b_parent[b]] + local[b]
+    return replace(result, b_var=local + m_var[tree.b_parent])
 
 
 # --- Monte Carlo -----------------------------------------------------------------

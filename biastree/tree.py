@@ -95,6 +95,26 @@ def is_sink(kind: str) -> bool:
     return kind in ("npn", "nmos")
 
 
+def _check_spread(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
+    """Matching coefficients given twice or without an area; matched pairs naming nothing."""
+    out: list[tuple[tuple[Any, ...], str]] = []
+    for name, dev in plan.devices.items():
+        pairs = (("a_is_pair", "a_is_single"),) if isinstance(dev, BjtModel) else (
+            ("a_vt_pair", "a_vt_single"), ("a_beta_pair", "a_beta_single"))
+        for pair, one in pairs:
+            if getattr(dev, pair) is not None and getattr(dev, one) is not None:
+                out.append((("devices", name, one), f"give either {pair} (a pair's σ) or {one} (one device's), not both"))
+        if isinstance(dev, BjtModel) and (dev.a_is_pair or dev.a_is_single) and dev.area is None:
+            out.append((("devices", name), "a bipolar matching coefficient needs the unit device's emitter area (area: 4um^2)"))
+    for name, group in plan.matched.items():
+        for k, load in enumerate(group.loads):
+            if load not in plan.loads:
+                out.append((("matched", name, "loads", k), f"no load named '{load}'{_hint(load, list(plan.loads))}"))
+        if len(set(group.loads)) != len(group.loads):
+            out.append((("matched", name, "loads"), "a matched pair needs two different loads"))
+    return out
+
+
 def _levels(plan: Plan) -> list[list[str]]:
     """Mirrors reachable from the reference, level by level (breadth first)."""
     levels: list[list[str]] = []
@@ -224,6 +244,7 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
     from .floorplan import check_floorplan
 
     problems += check_floorplan(plan)
+    problems += _check_spread(plan)
     for name, load in loads.items():
         lo, _, hi = load.v_range
         if lo < 0 or hi > plan.supply:

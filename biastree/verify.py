@@ -188,3 +188,60 @@ def simulate_sweep(tree: Tree, load: str, start: float, stop: float, step: float
     if sweep is None:
         sweep = start + step * np.arange(len(current))
     return sweep, current
+
+
+def ngspice_monte_carlo(tree: Tree, samples: int, seed: int = 1, timeout: float = 600.0) -> np.ndarray:
+    """(n_loads, samples): load currents from an ngspice Monte Carlo of the
+    exported netlist — every bipolar device's area scaled by e^δ, δ normal with
+    the device's σ(ΔIS/IS) (``alter`` in a ``.control`` loop, ``sgauss``,
+    ``setseed``).  Simple bipolar mirrors only: the devices map one to one."""
+    from .spread import device_sigmas
+
+    plan = tree.plan
+    for name in tree.mirrors:
+        spec = plan.mirrors[name]
+        if spec.topology != "simple" or plan.devices[spec.device].kind not in ("npn", "pnp"):
+            raise SimulatorError("ngspice Monte Carlo is written for simple bipolar mirrors only")
+    netlist = to_spice(tree, "nominal")
+    sig = device_sigmas(tree)
+    lines = netlist.text.splitlines()
+    areas = {}
+    for line in lines:
+        if line.startswith("q"):
+            parts = line.split()
+            areas[parts[0]] = float(parts[-1].split("=")[1])
+    alters = []
+    names = {}
+    for i, m in enumerate(tree.mirrors):
+        tag = netlist.mirror_nodes[m][2:]
+        names[f"q{tag}_in"] = float(sig.in_is[i])
+    for b in range(len(tree.b_parent)):
+        m = tree.mirrors[tree.b_parent[b]]
+        tag = netlist.mirror_nodes[m][2:]
+        names[f"q{tag}_o{int(tree.b_index[b])}"] = float(sig.out_is[b])
+    for dev, sigma in names.items():
+        alters.append(f"  alter {dev} area = {areas[dev]!r}*exp({sigma!r}*sgauss(0))")
+    loads = list(tree.loads)
+    vectors = [f"i{k}" for k in range(len(loads))]
+    control = [".control", f"setseed {int(seed)}", f"let n = {int(samples)}", "let k = 0"]
+    control += ["while k < n"] + alters + ["  op"]
+    control += [f"  let {v} = i({netlist.ammeters[l]})" for v, l in zip(vectors, loads)]
+    control += ["  echo MC " + " ".join(f"$&{v}" for v in vectors)]
+    control += ["  destroy", "  let k = k + 1", "end", ".endc"]
+    text = "\n".join(lines[:-1] + control + [".end"]) + "\n"
+    exe = find_ngspice()
+    with tempfile.TemporaryDirectory(prefix="biastree-mc-") as tmp:
+        folder = Path(tmp)
+        (folder / "mc.cir").write_text(text.replace(".op\n", ""), encoding="utf-8")
+        try:
+            proc = subprocess.run([exe, "-b", "mc.cir"], cwd=folder, capture_output=True, text=True,
+                                  timeout=timeout, stdin=subprocess.DEVNULL)
+        except subprocess.TimeoutExpired:
+            raise SimulatorError(f"ngspice Monte Carlo did not finish within {timeout:g} s") from None
+    rows = [line.split()[1:] for line in proc.stdout.splitlines() if line.startswith("MC ")]
+    if len(rows) != samples:
+        raise SimulatorError(f"ngspice Monte Carlo gave {len(rows)} of {samples} samples: "
+                             f"{(proc.stderr or proc.stdout).strip()[-300:]}")
+    currents = np.array(rows, dtype=float).T
+    inst = np.array([netlist.instances[l] for l in loads])[:, None]
+    return currents / inst

@@ -1,0 +1,70 @@
+"""Monte Carlo speed: biastree on a generated plan of 10,000 loads, and
+biastree against ngspice on the same small plan (same number of op runs).
+
+    python benchmarks/bench_spread.py [--loads 10000] [--samples 1000]
+
+Invented data (biastree.generate, with matching coefficients added).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import time
+
+import biastree
+from biastree.generate import Ranges, random_plan
+from biastree.spread import analytic, monte_carlo
+
+
+def with_matching(plan: dict) -> dict:
+    for dev in plan["devices"].values():
+        if dev["kind"] in ("npn", "pnp"):
+            dev.update(area="10um^2", a_is_pair="2%*um")
+        else:
+            dev.update(a_vt_pair="5mV*um", a_beta_pair="1%*um")
+    return plan
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser()
+    parser.add_argument("--loads", type=int, default=10_000)
+    parser.add_argument("--samples", type=int, default=1000)
+    parser.add_argument("--small-samples", type=int, default=1000)
+    args = parser.parse_args()
+
+    tree = biastree.loads(json.dumps(with_matching(random_plan(args.loads, seed=7))), "bench", "json")
+    start = time.perf_counter()
+    mc = monte_carlo(tree, args.samples, seed=1)
+    elapsed = time.perf_counter() - start
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    per = elapsed / (args.samples * len(tree.loads)) * 1e9
+    print(f"Monte Carlo: {args.loads} loads ({len(tree.mirrors)} mirrors, {len(tree.b_parent)} branches), "
+          f"{args.samples} samples: {elapsed:.2f} s ({per:.0f} ns per sample-load), peak memory {peak:.0f} MB, "
+          f"{os.cpu_count()} cores")
+    start = time.perf_counter()
+    analytic(tree)
+    print(f"first-order σ of every load: {time.perf_counter() - start:.2f} s")
+    del mc
+
+    # same small plan, same number of op runs, both tools (simple bipolar mirrors: what the
+    # ngspice Monte Carlo writer supports)
+    from biastree.verify import ngspice_monte_carlo
+
+    small = biastree.loads(json.dumps(with_matching(random_plan(12, seed=3, ranges=Ranges(families=("bjt",))))),
+                           "small", "json")
+    n = args.small_samples
+    start = time.perf_counter()
+    monte_carlo(small, n, seed=1, include_reference=False, include_process=False)
+    ours = time.perf_counter() - start
+    start = time.perf_counter()
+    ngspice_monte_carlo(small, n, seed=1)
+    theirs = time.perf_counter() - start
+    print(f"small plan ({len(small.loads)} loads, {len(small.mirrors)} mirrors), {n} samples: biastree {ours:.3f} s, "
+          f"ngspice {theirs:.2f} s: ngspice takes {theirs / ours:.0f}× as long")
+
+
+if __name__ == "__main__":
+    main()
