@@ -232,7 +232,7 @@ class Audit:
         if remote is None:
             return None
         b = int(self.tree.l_branch[load])
-        if not remote.distance[b]:
+        if not (remote.distance[b] or remote.delta_t[b] or remote.delta_v[b]):
             return None
         fp = self.tree.plan.floorplan
         term = float(self.op.b_factors["gradient"][b, 1] - 1.0) if "gradient" in self.op.b_factors else 0.0

@@ -43,14 +43,19 @@ def remote_offsets(tree: Tree) -> Remote | None:
     if fp is None or not fp.remote:
         return None
     n_b = len(tree.b_parent)
-    dist = np.zeros(n_b)
+    dist, dt, dv = np.zeros(n_b), np.zeros(n_b), np.zeros(n_b)
     for name in fp.remote:
         i = tree.loads.index(name)
         b = int(tree.l_branch[i])
         mirror = tree.mirrors[tree.b_parent[b]]
-        (x0, y0), (x1, y1) = fp.positions[mirror], fp.positions[name]
-        dist[b] = math.hypot(x1 - x0, y1 - y0)
-    return Remote(dist * fp.thermal_gradient, dist * fp.rail_gradient, dist)
+        if mirror in fp.positions and name in fp.positions:
+            (x0, y0), (x1, y1) = fp.positions[mirror], fp.positions[name]
+            dist[b] = math.hypot(x1 - x0, y1 - y0)
+        if name in fp.offsets:  # explicit offsets win over gradient × distance
+            dt[b], dv[b] = fp.offsets[name].temperature, fp.offsets[name].rail
+        else:
+            dt[b], dv[b] = dist[b] * fp.thermal_gradient, dist[b] * fp.rail_gradient
+    return Remote(dt, dv, dist)
 
 
 def check_floorplan(plan: Any) -> list[tuple[tuple[Any, ...], str]]:
@@ -70,6 +75,9 @@ def check_floorplan(plan: Any) -> list[tuple[tuple[Any, ...], str]]:
         if feeder is not None and plan.mirrors[feeder].topology in ("wilson", "wilson4"):
             out.append((("floorplan", "remote", k), f"'{name}' is fed by a Wilson mirror, whose output cannot be remote"))
         for who in (name, feeder):
-            if who is not None and who not in fp.positions:
-                out.append((("floorplan", "remote", k), f"'{name}' is remote, so '{who}' needs a position"))
+            if who is not None and who not in fp.positions and name not in fp.offsets:
+                out.append((("floorplan", "remote", k), f"'{name}' is remote, so '{who}' needs a position (or give offsets)"))
+    for name in fp.offsets:
+        if name not in fp.remote:
+            out.append((("floorplan", "offsets", name), f"'{name}' is not listed under remote"))
     return out

@@ -277,6 +277,13 @@ class Matched(_Strict):
     tolerance: PositiveFraction = Field(description="budget on the ratio's deviation, e.g. 0.5%")
 
 
+class Offset(_Strict):
+    """A remote output device's offsets from its mirror's input device."""
+
+    temperature: Quantity("K", "2K") = Field(default=0.0, description="warmer by, K")  # type: ignore[valid-type]
+    rail: SignedVoltage = Field(default=0.0, description="rail moved towards the other rail by, V")
+
+
 class Floorplan(_Strict):
     """Where mirrors and loads sit, and the gradients across the die."""
 
@@ -290,6 +297,10 @@ class Floorplan(_Strict):
         description="loads whose output device sits at the load (the mirror's base/gate line is routed there)",
     )
     long_line: Distance = Field(default=5e-4, description="a base/gate line longer than this is flagged")
+    offsets: dict[Name, Offset] = Field(
+        default_factory=dict,
+        description="explicit offsets of a remote load's output device (instead of gradient × distance)",
+    )
 
 
 class Plan(_Strict):

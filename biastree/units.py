@@ -56,6 +56,7 @@ UNIT_SYMBOLS: dict[str, tuple[str, ...]] = {
     "V/K": ("V/K", "V/C"),
     "1/K": ("1/K", "/K", "1/C", "/C"),
     "K/m": ("K/m", "C/m"),
+    "K": ("K",),  # a temperature difference
     "V/m": ("V/m",),
     "eV": ("eV",),
     "V*m": (),  # matching coefficient A_VT, e.g. 5mV*um
