@@ -28,7 +28,7 @@ class Ranges:
     families: tuple[str, ...] = ("bjt", "mos")
     ratio: tuple[float, float] = (0.25, 4.0)
     max_count: int = 4
-    max_mirror_count: int = 2
+    max_mirror_count: int = 1  # copies of whole subtrees multiply instance counts quickly
     beta: tuple[float, float] = (50.0, 250.0)
     early: tuple[float, float] = (20.0, 150.0)
     supply: float = 3.3
