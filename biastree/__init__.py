@@ -83,12 +83,13 @@ def load(path: Union[str, Path]) -> Tree:
 
 
 def check(path_or_tree: Union[str, Path, Tree], conditions: bool = True, mismatch: bool = True,
-          k_sigma: float | None = None) -> Audit:
+          k_sigma: float | None = None, detail: bool = True) -> Audit:
     """Load (if given a path), solve and audit a plan in one call.
 
     When the plan lists operating conditions they are all solved and the
     worst case counts; when its devices carry matching coefficients, k·σ of
     mismatch (k from the plan's spread.k_sigma unless given) counts too.
+    ``detail=False`` skips the error terms and output resistances (verdicts only).
     """
     from .corners import evaluate, has_conditions
     from .spread import analytic, device_sigmas
@@ -96,4 +97,4 @@ def check(path_or_tree: Union[str, Path, Tree], conditions: bool = True, mismatc
     tree = path_or_tree if isinstance(path_or_tree, Tree) else load(path_or_tree)
     cond = evaluate(tree) if conditions and has_conditions(tree) else None
     spread = analytic(tree) if mismatch and device_sigmas(tree).any else None
-    return audit(solve(tree), cond, spread, k_sigma)
+    return audit(solve(tree, output_resistance=detail), cond, spread, k_sigma)

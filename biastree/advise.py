@@ -12,17 +12,17 @@ number comes from a re-solve.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
 
 from .audit import Audit
 from .topologies import TOPOLOGIES
-from .tree import build
 from .units import format_percent, format_si
 
-MAX_TRIALS = 16  # re-solves of the whole tree per audit
-MAX_MIRRORS = 5000  # above this, hints are skipped (each trial re-solves everything)
+MAX_TRIALS = 12  # re-solves of the whole tree per audit
+MAX_MIRRORS = 2500  # above this, hints are skipped (each trial re-solves everything)
 
 _FOR_TERM = {
     "β loading": ("beta_helper", "wilson"),
@@ -78,9 +78,11 @@ def _trial(result: Audit, mirror: str, topology: str) -> Trial:
         # the same verdict pipeline as the original (conditions and mismatch included)
         from . import check
 
-        tree = build(new_plan)
+        # same structure, other topology: no need to check the tree again
+        tree = dataclasses.replace(result.tree, plan=new_plan)
         return Trial(mirror, topology, check(tree, conditions=result.conditions is not None,
-                                             mismatch=result.spread is not None, k_sigma=result.k_sigma))
+                                             mismatch=result.spread is not None, k_sigma=result.k_sigma,
+                                             detail=False))
     except Exception as exc:  # a candidate that cannot be solved is simply not suggested
         return Trial(mirror, topology, None, str(exc))
 

@@ -57,7 +57,8 @@ class Audit:
     # --- per-load explanation -------------------------------------------
 
     def stages(self, load: int, case: int = 1) -> list[dict[str, Any]]:
-        """Stage-by-stage terms along the load's path, at one case."""
+        """Stage-by-stage terms along the load's path, at one case (empty terms when
+        the operating point was solved without them)."""
         tree, op = self.tree, self.op
         plan = tree.plan
         path = tree.path(load)
@@ -69,6 +70,8 @@ class Audit:
             family = "bjt" if tree.m_bipolar[m] else "mos"
             terms = []
             for key in TOPOLOGIES[mirror.topology].terms[family]:
+                if key not in op.b_factors:
+                    continue
                 value = op.b_factors[key][branch, case]
                 terms.append({"term": key, "label": TERM_LABELS[key], "value": float(value - 1.0)})
             gain = float(np.prod([1.0 + t["value"] for t in terms])) - 1.0
@@ -100,8 +103,9 @@ class Audit:
         and its own), then a running best down every path, one generation at a time.
         """
         tree, op = self.tree, self.op
-        keys = list(op.b_factors)
-        stacked = np.stack([op.b_factors[k] for k in keys]) - 1.0
+        keys = list(op.b_factors) or ["beta"]
+        n = len(tree.b_parent)
+        stacked = (np.stack([op.b_factors[k] for k in keys]) if op.b_factors else np.ones((1, n, op.b_current.shape[1]))) - 1.0
         which = np.argmax(np.abs(stacked), axis=0)  # (n_b, cases)
         value = np.take_along_axis(stacked, which[None], axis=0)[0]
         mirror = np.broadcast_to(tree.b_parent[:, None], value.shape)
