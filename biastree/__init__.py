@@ -92,9 +92,9 @@ def check(path_or_tree: Union[str, Path, Tree], conditions: bool = True, mismatc
     ``detail=False`` skips the error terms and output resistances (verdicts only).
     """
     from .corners import evaluate, has_conditions
-    from .spread import analytic, device_sigmas
+    from .spread import analytic, has_coefficients
 
     tree = path_or_tree if isinstance(path_or_tree, Tree) else load(path_or_tree)
     cond = evaluate(tree) if conditions and has_conditions(tree) else None
-    spread = analytic(tree) if mismatch and device_sigmas(tree).any else None
+    spread = analytic(tree) if mismatch and has_coefficients(tree.plan) else None
     return audit(solve(tree, output_resistance=detail), cond, spread, k_sigma)

@@ -139,7 +139,7 @@ class Audit:
             best = (self.tree.mirrors[int(m[load])], TERM_LABELS[keys[int(k[load])]], float(v[load]))
         return best
 
-    @property
+    @cached_property
     def sigma(self) -> Array:
         """(n_loads,) first-order mismatch σ of each load's current (0 without coefficients)."""
         return self.spread.mismatch if self.spread is not None else np.zeros(len(self.target))

@@ -59,30 +59,33 @@ def single(pair: float | None, one: float | None) -> float:
     return 0.0 if pair is None else pair / math.sqrt(2.0)
 
 
+def has_coefficients(plan: object) -> bool:
+    """Whether any device model carries a matching coefficient."""
+    keys = ("a_is_pair", "a_is_single", "a_vt_pair", "a_vt_single", "a_beta_pair", "a_beta_single")
+    return any(getattr(dev, k, None) for dev in plan.devices.values() for k in keys)  # type: ignore[attr-defined]
+
+
 def device_sigmas(tree: Tree) -> DeviceSigmas:
     plan = tree.plan
-    n_m, n_b = len(tree.mirrors), len(tree.b_parent)
-    out = {k: np.zeros(n) for k, n in (("in_is", n_m), ("out_is", n_b), ("in_vt", n_m), ("out_vt", n_b),
-                                         ("in_k", n_m), ("out_k", n_b))}
+    n_m = len(tree.mirrors)
+    # per-mirror single-device coefficients and unit areas (zero where not given)
+    a_is, a_vt, a_k, unit = np.zeros(n_m), np.zeros(n_m), np.zeros(n_m), np.ones(n_m)
     size_in = np.array([plan.mirrors[m].input_size for m in tree.mirrors])
-    size_out = tree.b_ratio * size_in[tree.b_parent]
     for i, name in enumerate(tree.mirrors):
         dev = plan.devices[plan.mirrors[name].device]
-        branches = tree.b_parent == i
         if isinstance(dev, BjtModel):
-            a = single(dev.a_is_pair, dev.a_is_single)
-            if a and dev.area:
-                out["in_is"][i] = a / math.sqrt(dev.area * size_in[i])
-                out["out_is"][branches] = a / np.sqrt(dev.area * size_out[branches])
+            if dev.area:
+                a_is[i], unit[i] = single(dev.a_is_pair, dev.a_is_single), dev.area
         else:
-            unit_area = dev.w * dev.l
-            a_vt = single(dev.a_vt_pair, dev.a_vt_single)
-            a_k = single(dev.a_beta_pair, dev.a_beta_single)
-            out["in_vt"][i] = a_vt / math.sqrt(unit_area * size_in[i])
-            out["out_vt"][branches] = a_vt / np.sqrt(unit_area * size_out[branches])
-            out["in_k"][i] = a_k / math.sqrt(unit_area * size_in[i])
-            out["out_k"][branches] = a_k / np.sqrt(unit_area * size_out[branches])
-    return DeviceSigmas(**out)
+            unit[i] = dev.w * dev.l
+            a_vt[i] = single(dev.a_vt_pair, dev.a_vt_single)
+            a_k[i] = single(dev.a_beta_pair, dev.a_beta_single)
+    p = tree.b_parent
+    size_out = tree.b_ratio * size_in[p]
+    root_in = np.sqrt(unit * size_in)
+    root_out = np.sqrt(unit[p] * size_out)
+    return DeviceSigmas(in_is=a_is / root_in, out_is=a_is[p] / root_out, in_vt=a_vt / root_in,
+                        out_vt=a_vt[p] / root_out, in_k=a_k / root_in, out_k=a_k[p] / root_out)
 
 
 @dataclass(frozen=True)

@@ -5,7 +5,10 @@ from __future__ import annotations
 import numpy as np
 
 from ..audit import Audit
-from ..units import format_si
+from ..units import format_si, format_si_array
+
+
+MAX_REASONS = 200  # failing loads explained in the terminal; --json has them all
 
 
 def _pct(x: float) -> str:
@@ -19,6 +22,10 @@ def to_table(result: Audit, failing_only: bool = False) -> str:
     header = ("load", "×", "path", "target", "delivered", "error", "range", "worst cond.", "kσ", "budget", "margin",
               "compl.", "Rout", "reg./V", "verdict")
     rows = []
+    target_text = format_si_array(result.target, "A")
+    delivered_text = format_si_array(result.delivered[:, 1], "A", 4)
+    compliance_text = format_si_array(result.compliance, "V")
+    rout_text = format_si_array(np.where(np.isfinite(result.rout), result.rout, 0.0), "Ω")
     names = tree.mirrors
     rout = result.rout
     per_volt = result.regulation[2]
@@ -36,16 +43,16 @@ def to_table(result: Audit, failing_only: bool = False) -> str:
                 name,
                 str(int(tree.l_mult[i])),
                 path,
-                format_si(result.target[i], "A"),
-                format_si(result.delivered[i, 1], "A", 4),
+                target_text[i],
+                delivered_text[i],
                 _pct(result.error[i, 1]),
                 span,
                 _pct(float(result.conditions.worst_error[i])) if result.conditions is not None else "",
                 f"{result.k_sigma * result.sigma[i] * 100:.3g}%" if result.spread is not None else "",
                 f"±{result.tolerance[i] * 100:.3g}%",
                 _pct(result.margin[i]),
-                format_si(result.compliance[i], "V"),
-                format_si(float(rout[i]), "Ω") if np.isfinite(rout[i]) else "∞",
+                compliance_text[i],
+                rout_text[i] if np.isfinite(rout[i]) else "∞",
                 f"{per_volt[i] / result.delivered[i, 1] * 100:+.3g}%" if per_volt[i] else "",
                 "pass" if ok else "FAIL",
             )
@@ -72,11 +79,13 @@ def to_table(result: Audit, failing_only: bool = False) -> str:
         out.append("")
         out.append("Why loads fail:")
         hints = result.hints
-        for i in failing:
+        for i in failing[:MAX_REASONS]:
             for reason in result.reasons(i):
                 out.append(f"  {tree.loads[i]}: {reason}")
             for hint in hints.get(i, []):
                 out.append(f"  {tree.loads[i]}: hint: {hint}")
+        if len(failing) > MAX_REASONS:
+            out.append(f"  … and {len(failing) - MAX_REASONS} more failing loads (every reason is in --json)")
     notes = [t for t in (result.floorplan_text(i) for i in range(len(tree.loads))) if t]
     if notes:
         out.append("")
