@@ -31,3 +31,9 @@ def where(result: Audit, load: int) -> str:
     if isinstance(spec.voltage, tuple):
         return f"at the {CASES[case]} end of its voltage range ({volts})"
     return f"at its node voltage ({volts})"
+
+
+def device_parameters(dev: object) -> str:
+    """A device model's parameters as one line of text (reports)."""
+    data = dev.model_dump(by_alias=True, exclude={"kind"})  # type: ignore[attr-defined]
+    return ", ".join(f"{k}={v:.4g}" if isinstance(v, float) else f"{k}={v}" for k, v in data.items() if v is not None)

@@ -9,7 +9,7 @@ import numpy as np
 
 from ..audit import Audit
 from ..units import format_si
-from .breakdown import breakdown, where
+from .breakdown import breakdown, device_parameters, where
 from .dot import FAIL_COLOUR, PASS_COLOUR
 from .markdown import CAUTION
 
@@ -120,8 +120,7 @@ def to_html(result: Audit, svg: str | None = None, source: str | None = None) ->
         "<h3>Device models</h3><table><tr><th>model</th><th>kind</th><th>parameters</th></tr>",
     ]
     for name, dev in plan.devices.items():
-        params = ", ".join(f"{k}={v:.4g}" if isinstance(v, float) else f"{k}={v}"
-                           for k, v in dev.model_dump(by_alias=True, exclude={"kind"}).items() if v is not None)
+        params = device_parameters(dev)
         h.append(f"<tr><td>{escape(name)}</td><td>{dev.kind}</td><td>{escape(params)}</td></tr>")
     h.append("</table><h3>Mirrors</h3><table><tr><th>mirror</th><th>device</th><th>topology</th><th>copies</th>"
              "<th>input current</th><th>input voltage</th><th>fan-out</th></tr>")

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 from ..audit import Audit
 from ..units import format_si
-from .breakdown import breakdown, where
+from .breakdown import breakdown, device_parameters, where
 
 CAUTION = ("Design estimates: sign-off belongs to the foundry's device models and "
            "transistor-level simulation.")
@@ -51,8 +51,7 @@ def to_markdown(result: Audit, source: str | None = None) -> str:
         "|---|---|---|",
     ]
     for name, dev in plan.devices.items():
-        params = ", ".join(f"{k}={v:.4g}" if isinstance(v, float) else f"{k}={v}"
-                           for k, v in dev.model_dump(by_alias=True, exclude={"kind"}).items() if v is not None)
+        params = device_parameters(dev)
         out.append(f"| {_cell(name)} | {dev.kind} | {_cell(params)} |")
     out += ["", "## Loads", "",
             "| load | × | path | target | delivered | error | range | budget | margin | compliance | Rout | verdict |",

@@ -221,12 +221,20 @@ def _cascode(ctx: _Context, mirror: str) -> list[str]:
         ctx.device(f"{tag}_in1", mirror, base, base, rail, a0, mult),
         ctx.device(f"{tag}_in2", mirror, node, node, base, a0, mult),
     ]
+    return lines + _stacked_outputs(ctx, mirror, base, node)
+
+
+def _stacked_outputs(ctx: _Context, mirror: str, mirror_gate: str, cascode_gate: str) -> list[str]:
+    """Per branch: a mirror device (on its rail, maybe remote) under a cascode device."""
+    spec = ctx.tree.plan.mirrors[mirror]
+    tag, _, rail, _, mult = _frame(ctx, mirror)
+    lines = []
     for i, branch in enumerate(spec.branches):
         mid = f"x{i}_{tag}"
-        size, copies = branch.ratio * a0, mult * branch.count
+        size, copies = branch.ratio * spec.input_size, mult * branch.count
         erail, extra = ctx.out_rail(mirror, i, rail)
-        lines.append(ctx.device(f"{tag}_o{i}", mirror, mid, base, erail, size, copies, extra))
-        lines.append(ctx.device(f"{tag}_c{i}", mirror, ctx.out_node[(mirror, i)], node, mid, size, copies,
+        lines.append(ctx.device(f"{tag}_o{i}", mirror, mid, mirror_gate, erail, size, copies, extra))
+        lines.append(ctx.device(f"{tag}_c{i}", mirror, ctx.out_node[(mirror, i)], cascode_gate, mid, size, copies,
                                 bulk=rail))
     return lines
 
@@ -243,14 +251,7 @@ def _wide_swing(ctx: _Context, mirror: str) -> list[str]:
         ctx.device(f"{tag}_in1", mirror, mid, node, rail, a0, mult),
         ctx.device(f"{tag}_in2", mirror, node, gate, mid, a0, mult),
     ]
-    for i, branch in enumerate(spec.branches):
-        omid = f"x{i}_{tag}"
-        size, copies = branch.ratio * a0, mult * branch.count
-        erail, extra = ctx.out_rail(mirror, i, rail)
-        lines.append(ctx.device(f"{tag}_o{i}", mirror, omid, node, erail, size, copies, extra))
-        lines.append(ctx.device(f"{tag}_c{i}", mirror, ctx.out_node[(mirror, i)], gate, omid, size, copies,
-                                bulk=rail))
-    return lines
+    return lines + _stacked_outputs(ctx, mirror, node, gate)
 
 
 def _degenerated(ctx: _Context, mirror: str) -> list[str]:
