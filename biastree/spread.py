@@ -26,7 +26,7 @@ from typing import Callable
 
 import numpy as np
 
-from .conditions import Columns, default_columns
+from .conditions import default_columns
 from .devices import Array
 from .plan import BjtModel
 from .solve import solve

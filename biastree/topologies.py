@@ -221,7 +221,7 @@ def _wilson_core(g: GroupInput, four: bool) -> GroupOutput:
       input node:  I_in = IC1 + IB3,   IC1 = X·A0·(1 + VCB1/VA)
     VCB1 = VBE3 (three devices) or VBE3 − VBE4 (four devices: Q4 carries IC1).
     """
-    d, r = g.dev, g.row  # one branch per mirror, so row == arange(k)
+    d = g.dev  # one branch per mirror: branch rows and mirror rows coincide
     scale = 1.0 if g.is_scale is None else g.is_scale
     a0 = d.size_in
     is_unit = d.is_in / a0
@@ -357,7 +357,6 @@ def _wide_swing(g: GroupInput) -> GroupOutput:
     default: the mirror's ideal input current) and is counted as overhead.
     """
     d, r = g.dev, g.row
-    scale = 1.0 if g.is_scale is None else g.is_scale
     n = g.params["swing_n"]
     i_bias = g.params["bias_current"]
     k5 = d.k_in / (n + 1.0) ** 2

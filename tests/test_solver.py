@@ -15,7 +15,7 @@ from scipy.optimize import brentq
 
 import biastree
 from biastree.devices import thermal_voltage
-from biastree.generate import Ranges, random_plan
+from biastree.generate import random_plan
 
 from helpers import tree_of
 
