@@ -74,6 +74,8 @@ def to_table(result: Audit, failing_only: bool = False) -> str:
 
     out = [line(header), line(tuple("-" * w for w in widths))]
     out += [line(r) for r in rows]
+    out.append("margin: budget left after the worst error, kσ and the reference tolerance; compl.: volts the output "
+               "device has to spare; reg./V: current change per volt of the node")
     failing = [i for i in range(len(tree.loads)) if not result.passed[i]]
     if failing:
         out.append("")
