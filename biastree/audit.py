@@ -73,6 +73,8 @@ class Audit:
                 if key not in op.b_factors:
                     continue
                 value = op.b_factors[key][branch, case]
+                if key == "gradient" and value == 1.0:
+                    continue  # only remote output devices have a gradient term
                 terms.append({"term": key, "label": TERM_LABELS[key], "value": float(value - 1.0)})
             gain = float(np.prod([1.0 + t["value"] for t in terms])) - 1.0
             out.append(

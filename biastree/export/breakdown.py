@@ -37,3 +37,15 @@ def device_parameters(dev: object) -> str:
     """A device model's parameters as one line of text (reports)."""
     data = dev.model_dump(by_alias=True, exclude={"kind"})  # type: ignore[attr-defined]
     return ", ".join(f"{k}={v:.4g}" if isinstance(v, float) else f"{k}={v}" for k, v in data.items() if v is not None)
+
+
+def budget_use(result: Audit, load: int) -> str:
+    """How the load's budget is used: worst error, k·σ mismatch, reference tolerance."""
+    err, at = result.worst_error(load)
+    parts = [f"|error| {abs(err) * 100:.3g} %" + (f" ({at})" if at else "")]
+    if result.spread is not None:
+        parts.append(f"{result.k_sigma:g}σ mismatch {result.k_sigma * float(result.sigma[load]) * 100:.3g} %")
+    if result.reference_tolerance:
+        parts.append(f"reference {result.reference_tolerance * 100:.3g} %")
+    used = float(result.tolerance[load] - result.margin[load])
+    return f"budget use: {' + '.join(parts)} = {used * 100:.3g} % of ±{result.tolerance[load] * 100:.3g} %"

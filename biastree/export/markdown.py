@@ -5,7 +5,7 @@ from __future__ import annotations
 
 from ..audit import Audit
 from ..units import format_si
-from .breakdown import breakdown, device_parameters, where
+from .breakdown import breakdown, budget_use, device_parameters, where
 
 CAUTION = ("Design estimates: sign-off belongs to the foundry's device models and "
            "transistor-level simulation.")
@@ -65,6 +65,12 @@ def to_markdown(result: Audit, source: str | None = None) -> str:
             f"±{result.tolerance[i] * 100:.3g}% | {_pct(result.margin[i])} | {format_si(result.compliance[i], 'V', 4)} | "
             f"{_rout(float(result.rout[i]))} | {'pass' if result.passed[i] else '**FAIL**'} |"
         )
+    notes = [t for t in (result.floorplan_text(i) for i in range(len(tree.loads))) if t]
+    notes += [f"matched pair {m['name']}: ratio error {m['ratio_error'] * 100:+.3g} %, {m['k']:g}σ = "
+              f"{m['k'] * m['sigma'] * 100:.3g} %, budget ±{m['tolerance'] * 100:.3g} %: {m['verdict']}"
+              for m in result.matched()]
+    if notes:
+        out += ["", "## Notes", ""] + [f"- {_cell(n)}" for n in notes]
     failing = [i for i in range(len(tree.loads)) if not result.passed[i]]
     if failing:
         out += ["", "## Why loads fail", ""]
@@ -76,6 +82,6 @@ def to_markdown(result: Audit, source: str | None = None) -> str:
                         "(they compound: Π(1 + term) − 1 = error):", "",
                     "| stage | effect | term |", "|---|---|--:|"]
             out += [f"| {_cell(st)} | {_cell(label)} | {_pct(v)} |" for st, label, v in breakdown(result, i)]
-            out.append("")
+            out += ["", _cell(budget_use(result, i)), ""]
     out += ["", f"_{CAUTION}_", ""]
     return "\n".join(out)
