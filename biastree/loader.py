@@ -278,6 +278,15 @@ _MESSAGES = {
 }
 
 
+def _value_at(data: Any, path: tuple[Any, ...]) -> Any:
+    for key in path:
+        try:
+            data = data[key]
+        except (KeyError, IndexError, TypeError):
+            return None
+    return data
+
+
 def _describe(err: dict[str, Any], data: Any) -> tuple[tuple[Any, ...], str]:
     """Turn one pydantic error into (path, message) in our words."""
     loc = tuple(err["loc"])
@@ -288,9 +297,15 @@ def _describe(err: dict[str, Any], data: Any) -> tuple[tuple[Any, ...], str]:
     # A [min, max] voltage that failed both union members: report it once.
     if "voltage" in loc:
         i = loc.index("voltage")
-        if len(loc) > i + 1 and loc[i + 1] in ("float", "tuple[float, float]") or (
-            len(loc) > i + 1 and isinstance(loc[i + 1], str) and loc[i + 1].startswith(("function-", "tuple"))
-        ):
+        branch = loc[i + 1] if len(loc) > i + 1 else None
+        if isinstance(branch, str) and branch.startswith(("float", "function-", "tuple")):
+            # a union of "one value" and "[min, max]": keep only the branch the input was meant for
+            value = _value_at(data, loc[:i + 1])
+            is_list = isinstance(value, list)
+            if is_list and len(value) != 2:
+                return loc[: i + 1], f"must be a value or a [min, max] pair (got {len(value)} values)"
+            if is_list != branch.startswith("tuple"):
+                return (), ""  # the other branch's complaint: dropped
             loc = loc[: i + 1] + tuple(k for k in loc[i + 2:] if isinstance(k, int))
     if kind == "extra_forbidden":
         key = loc[-1]
@@ -309,6 +324,8 @@ def _describe(err: dict[str, Any], data: Any) -> tuple[tuple[Any, ...], str]:
             close = difflib.get_close_matches(str(key), sorted(allowed), n=1, cutoff=0.6)
             message += f" (did you mean '{close[0]}'?)" if close else f"; allowed: {', '.join(sorted(allowed))}"
         return loc, message
+    if kind == "model_type":
+        return loc, "must be a mapping of keys"
     if kind == "union_tag_invalid":
         return loc + ("kind",), "must be one of npn, pnp, nmos, pmos"
     if kind == "union_tag_not_found":
@@ -332,6 +349,8 @@ def validate(doc: Document) -> Plan:
         seen = set()
         for err in exc.errors(include_url=False):
             loc, message = _describe(err, doc.data)
+            if not message:
+                continue
             key = (loc, message)
             if key in seen:
                 continue

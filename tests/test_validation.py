@@ -154,3 +154,20 @@ def test_json_plan_equivalent(write_plan) -> None:  # type: ignore[no-untyped-de
     a = biastree.check(write_plan(GOOD))
     b = biastree.check(write_plan(json.dumps(data), "plan.json"))
     assert (a.delivered == b.delivered).all()
+
+
+def test_voltage_union_errors_name_one_problem(write_plan) -> None:  # type: ignore[no-untyped-def]
+    # A voltage is a value or a [min, max] pair: each mistake gets one message, not one per alternative.
+    text = GOOD.replace("voltage: 1.5V", "voltage: [1V]").replace("voltage: [0.8V, 2.4V]", "voltage: [0.8A, 2.4V]")
+    code, out = run_check(write_plan(text))
+    errors = [l.split("/")[-1] for l in out.splitlines() if l.startswith("error:")]
+    assert code == 2
+    assert errors == [
+        "plan.yaml:16: loads.adc_bias.voltage: must be a value or a [min, max] pair (got 1 values)",
+        "plan.yaml:17: loads.amp_tail.voltage[0]: '0.8A' has unit A, expected V",
+    ]
+
+
+def test_null_section_is_a_clear_error(write_plan) -> None:  # type: ignore[no-untyped-def]
+    code, out = run_check(write_plan(GOOD.replace("reference: {current: 10uA, tolerance: 1%, feeds: m_top}", "reference:")))
+    assert code == 2 and "plan.yaml:7: reference: must be a mapping of keys" in out
