@@ -197,6 +197,9 @@ class Audit:
                     f"compliance: a device inside {parent}'s output stack is "
                     f"{format_si(-float(op.b_internal_margin[branch, case]), 'V')} into its triode region"
                 )
+        if np.any(self.delivered[load] <= 0):
+            out.append("model: no positive current — the output is far outside its active region, so the "
+                       "numbers above are extrapolations; fix the compliance first")
         up = int(self.upstream[load])
         if up >= 0:
             parent = tree.mirrors[tree.b_parent[up]]

@@ -177,12 +177,8 @@ class _Context:
                 scale if k_scale is None else k_scale * scale)
 
 
-def solve(
-    tree: Tree,
-    columns: Columns | None = None,
-    output_resistance: bool = True,
-    is_scale: Array | None = None,
-) -> OperatingPoint:
+def solve(tree: Tree, columns: Columns | None = None, output_resistance: bool = True,
+          is_scale: Array | None = None) -> OperatingPoint:
     """Solve the operating point of every mirror and branch, in every column
     of ``columns`` (default: the three ends of the load voltages at the plan's
     conditions).  ``is_scale`` (n_branches, 1) multiplies each output device's
@@ -194,6 +190,18 @@ def solve(
     >>> op.sweeps < 10
     True
     """
+    # Outside a device's valid region the equations can produce NaN on the way;
+    # they are caught as a SolveError with the mirror named, not as numpy warnings.
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        return _solve(tree, columns, output_resistance, is_scale)
+
+
+def _solve(
+    tree: Tree,
+    columns: Columns | None = None,
+    output_resistance: bool = True,
+    is_scale: Array | None = None,
+) -> OperatingPoint:
     plan = tree.plan
     cols = default_columns(tree) if columns is None else columns
     if is_scale is not None:
