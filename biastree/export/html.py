@@ -137,8 +137,10 @@ def to_html(result: Audit, svg: str | None = None, source: str | None = None) ->
         h.append("<p>(diagram not included)</p>")
     h += ["<h2>Loads</h2>", "<p>Click a column heading to sort.</p>",
           '<table class="sortable"><thead><tr>']
+    extra_heads = (["worst cond."] if result.conditions is not None else []) + (
+        [f"{result.k_sigma:g}σ"] if result.spread is not None else [])
     for head in ("load", "×", "path", "target", "delivered", "error", "worst error", "budget", "margin",
-                 "compliance", "Rout", "verdict"):
+                 "compliance", "Rout", "verdict", *extra_heads):
         h.append(f'<th class="sort">{head}</th>')
     h.append("</tr></thead><tbody>")
     for i, name in enumerate(tree.loads):
@@ -158,7 +160,12 @@ def to_html(result: Audit, svg: str | None = None, source: str | None = None) ->
             + _td(format_si(result.compliance[i], "V", 4), result.compliance[i])
             + _td(format_si(float(result.rout[i]), "Ω", 4) if np.isfinite(result.rout[i]) else "∞",
                   result.rout[i] if np.isfinite(result.rout[i]) else 1e300)
-            + _td(verdict, "pass" if ok else "fail", num=False) + "</tr>"
+            + _td(verdict, "pass" if ok else "fail", num=False)
+            + (_td(_pct(float(result.conditions.worst_error[i])) + f" ({escape(result.conditions.worst_name(i))})",
+                   float(result.conditions.worst_error[i])) if result.conditions is not None else "")
+            + (_td(f"{result.k_sigma * float(result.sigma[i]) * 100:.3g}%", result.k_sigma * float(result.sigma[i]))
+               if result.spread is not None else "")
+            + "</tr>"
         )
     h.append("</tbody></table>")
     notes = [t for t in (result.floorplan_text(i) for i in range(len(tree.loads))) if t]
