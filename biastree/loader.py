@@ -345,6 +345,8 @@ def validate(doc: Document) -> Plan:
     try:
         return Plan.model_validate(doc.data)
     except ValidationError as exc:
+        from .tree import raw_name_problems
+
         problems = []
         seen = set()
         for err in exc.errors(include_url=False):
@@ -356,6 +358,12 @@ def validate(doc: Document) -> Plan:
                 continue
             seen.add(key)
             problems.append(Problem(format_path(loc), message, doc.line_of(loc)))
+        # names that resolve to nothing are worth reporting in the same run
+        flagged = {p.path for p in problems}
+        for loc, message in raw_name_problems(doc.data):
+            if format_path(loc) not in flagged:
+                problems.append(Problem(format_path(loc), message, doc.line_of(loc)))
+        problems.sort(key=lambda p: (p.line is None, p.line or 0))
         raise PlanError(problems, doc.source) from None
 
 

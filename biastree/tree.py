@@ -158,6 +158,50 @@ def _topology_params(name: str, mirror: Any, topo: Any) -> list[tuple[tuple[Any,
     return out
 
 
+def _no_device(name: str, known: list[str]) -> str:
+    return f"no device model named '{name}'{_hint(name, known)}"
+
+
+def _no_target(name: str, known: list[str]) -> str:
+    return f"no mirror or load named '{name}'{_hint(name, known)}"
+
+
+def _no_feed(name: str, mirrors: list[str], loads: list[str]) -> str:
+    if name in loads:
+        return f"'{name}' is a load; the reference must feed a mirror"
+    return f"no mirror named '{name}'{_hint(name, mirrors)}"
+
+
+def raw_name_problems(data: Any) -> list[tuple[tuple[Any, ...], str]]:
+    """Names that resolve to nothing, found in raw (not yet validated) plan data.
+
+    Used when field validation already failed, so that one run still reports
+    every problem it can: a misspelt key and a branch to a misspelt load together.
+    """
+    if not isinstance(data, dict):
+        return []
+    def names(section: str) -> list[str]:
+        value = data.get(section)
+        return list(value) if isinstance(value, dict) else []
+    devices, mirrors, loads = names("devices"), names("mirrors"), names("loads")
+    out: list[tuple[tuple[Any, ...], str]] = []
+    ref = data.get("reference")
+    if isinstance(ref, dict) and isinstance(ref.get("feeds"), str) and ref["feeds"] not in mirrors and mirrors:
+        out.append((("reference", "feeds"), _no_feed(ref["feeds"], mirrors, loads)))
+    for name in mirrors:
+        spec = data["mirrors"][name]
+        if not isinstance(spec, dict):
+            continue
+        if isinstance(spec.get("device"), str) and devices and spec["device"] not in devices:
+            out.append((("mirrors", name, "device"), _no_device(spec["device"], devices)))
+        branches = spec.get("branches")
+        for i, branch in enumerate(branches if isinstance(branches, list) else []):
+            target = branch.get("to") if isinstance(branch, dict) else None
+            if isinstance(target, str) and target not in mirrors and target not in loads:
+                out.append((("mirrors", name, "branches", i, "to"), _no_target(target, mirrors + loads)))
+    return out
+
+
 def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
     """Every structural problem of the plan as (key path, message)."""
     problems: list[tuple[tuple[Any, ...], str]] = []
@@ -172,9 +216,7 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
     for name, mirror in mirrors.items():
         device = devices.get(mirror.device)
         if device is None:
-            problems.append(
-                (("mirrors", name, "device"), f"no device model named '{mirror.device}'{_hint(mirror.device, list(devices))}")
-            )
+            problems.append((("mirrors", name, "device"), _no_device(mirror.device, list(devices))))
             continue
         kinds[name] = device.kind
         family = "bjt" if isinstance(device, BjtModel) else "mos"
@@ -189,17 +231,15 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
     ref = plan.reference
     if ref.feeds in mirrors:
         fed_by[ref.feeds] = ("reference", "feeds")
-    elif ref.feeds in loads:
-        problems.append((("reference", "feeds"), f"'{ref.feeds}' is a load; the reference must feed a mirror"))
     else:
-        problems.append((("reference", "feeds"), f"no mirror named '{ref.feeds}'{_hint(ref.feeds, list(mirrors))}"))
+        problems.append((("reference", "feeds"), _no_feed(ref.feeds, list(mirrors), list(loads))))
 
     for name, mirror in mirrors.items():
         for i, branch in enumerate(mirror.branches):
             where = ("mirrors", name, "branches", i, "to")
             target = branch.to
             if target not in mirrors and target not in loads:
-                problems.append((where, f"no mirror or load named '{target}'{_hint(target, list(mirrors) + list(loads))}"))
+                problems.append((where, _no_target(target, list(mirrors) + list(loads))))
                 continue
             if target == name:
                 problems.append((where, f"mirror '{name}' cannot feed itself"))

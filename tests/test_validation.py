@@ -171,3 +171,16 @@ def test_voltage_union_errors_name_one_problem(write_plan) -> None:  # type: ign
 def test_null_section_is_a_clear_error(write_plan) -> None:  # type: ignore[no-untyped-def]
     code, out = run_check(write_plan(GOOD.replace("reference: {current: 10uA, tolerance: 1%, feeds: m_top}", "reference:")))
     assert code == 2 and "plan.yaml:7: reference: must be a mapping of keys" in out
+
+
+def test_field_and_name_errors_in_one_run(write_plan) -> None:  # type: ignore[no-untyped-def]
+    # A misspelt key and a branch to a misspelt load: both in the same run, in file order.
+    text = GOOD.replace("beta: 120", "betta: 120").replace("{to: amp_tail, ratio: 1, count: 2}", "{to: amp_tial, ratio: 1, count: 2}")
+    code, out = run_check(write_plan(text))
+    errors = [l for l in out.splitlines() if l.startswith("error:")]
+    assert code == 2
+    assert any("devices.qn.betta: unknown key" in e for e in errors)
+    assert any("mirrors.m_left.branches[0].to: no mirror or load named 'amp_tial' (did you mean 'amp_tail'?)" in e
+               for e in errors)
+    lines = [int(e.split(".yaml:")[1].split(":")[0]) for e in errors]
+    assert lines == sorted(lines)
