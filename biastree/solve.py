@@ -21,13 +21,13 @@ import numpy as np
 from .devices import Array
 from .errors import SolveError
 from . import devices
+from .conditions import ENDS as CASES  # the ends of each load's voltage range
 from .conditions import Columns, default_columns, device_arrays
 from .topologies import TOPOLOGIES, DeviceArrays, GroupInput
 from .tree import Tree
 
 VOLTAGE_TOL = 1e-12  # V: sweeps stop when no input voltage moves more than this
 MAX_SWEEPS = 200
-CASES = ("min", "nominal", "max")
 
 
 @dataclass(frozen=True)
@@ -159,7 +159,7 @@ class _Context:
             is_ratio = devices.bjt_is_at(1.0, t + dt, t, xti, eg)
             # the warm device's real V_BE, from its current in the previous sweep
             # (its own IS and V_T; the first sweep starts from 0.7 V)
-            is_hot = dev.is_in / dev.size_in * dev.size_in * self.tree.b_ratio[b][:, None] * is_ratio
+            is_hot = dev.is_in * self.tree.b_ratio[b][:, None] * is_ratio  # IS of the output device, warm
             with np.errstate(divide="ignore", invalid="ignore"):
                 vbe = np.where(b_current[b] > 0, vt_hot * np.log(b_current[b] / is_hot), 0.7)
                 early = 1.0 + np.maximum(distance - vbe - dv, 0.0) / dev.early  # its collector at the output node

@@ -275,6 +275,11 @@ def format_si_array(values: object, unit: str = "", digits: int = 3) -> list[str
     return out
 
 
+def signed_percent(fraction: float, decimals: int = 2) -> str:
+    """A fraction as a signed percentage with fixed decimals: ``-0.0198 -> '-1.98%'``."""
+    return f"{fraction * 100:+.{decimals}f}%"
+
+
 def format_percent(fraction: float, digits: int = 3) -> str:
     """A fraction as a percentage with sign: ``-0.0198 -> '-1.98 %'``."""
     return f"{fraction * 100:+.{digits}g} %"

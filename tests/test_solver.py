@@ -211,3 +211,18 @@ def test_json_roundtrip_of_generated_plan(tmp_path) -> None:  # type: ignore[no-
     b = biastree.check(tmp_path / "a.json")
     assert (a.delivered == b.delivered).all()
     assert json.loads((tmp_path / "a.json").read_text())["title"].endswith("(invented data)")
+
+
+def test_vectorised_largest_term_matches_the_stage_walk() -> None:
+    # The audit finds each load's largest term two ways (vectorised for the table, a
+    # per-load walk for the breakdown); they must name the same stage, effect and value.
+    for name in ("failing_budgets", "cmos_soc", "mixed_topologies", "die_spread"):
+        result = biastree.check(f"samples/{name}.yaml", conditions=False, mismatch=False)
+        for i in range(len(result.tree.loads)):
+            best = ("plan", "ratio arithmetic", result.plan_term(i))
+            for stage in result.stages(i, int(result.worst_case[i])):
+                for term in stage["terms"]:
+                    if abs(term["value"]) > abs(best[2]):
+                        best = (stage["mirror"], term["label"], term["value"])
+            got = result.largest_term(i)
+            assert got[:2] == best[:2] and got[2] == pytest.approx(best[2], abs=1e-15)

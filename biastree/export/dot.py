@@ -14,7 +14,7 @@ from html import escape
 import numpy as np
 
 from ..audit import Audit
-from ..units import format_si
+from ..units import format_si, signed_percent
 
 PASS_COLOUR, PASS_FILL = "#00796b", "#e0f2ef"
 FAIL_COLOUR, FAIL_FILL = "#c0392b", "#fbe3df"
@@ -39,7 +39,7 @@ def _q(name: str) -> str:
 
 
 def _pct(x: float) -> str:
-    return f"{x * 100:+.2f}%"
+    return signed_percent(x, 2)
 
 
 def _rows(title: str, lines: list[str], colour: str) -> str:

@@ -8,7 +8,7 @@ from html import escape
 import numpy as np
 
 from ..audit import Audit
-from ..units import format_si
+from ..units import format_si, signed_percent
 from .breakdown import breakdown, budget_use, device_parameters, where
 from .dot import FAIL_COLOUR, PASS_COLOUR
 from .markdown import CAUTION
@@ -49,7 +49,7 @@ MAX_BREAKDOWNS = 300  # failing loads explained with a chart; beyond that the pa
 
 
 def _pct(x: float) -> str:
-    return f"{x * 100:+.3f}%"
+    return signed_percent(x, 3)
 
 
 def _td(text: str, value: object, num: bool = True, cls: str = "") -> str:

@@ -4,7 +4,7 @@ that keep reviews in text."""
 from __future__ import annotations
 
 from ..audit import Audit
-from ..units import format_si
+from ..units import format_si, signed_percent
 from .breakdown import breakdown, budget_use, device_parameters, where
 
 CAUTION = ("Design estimates: sign-off belongs to the foundry's device models and "
@@ -12,7 +12,7 @@ CAUTION = ("Design estimates: sign-off belongs to the foundry's device models an
 
 
 def _pct(x: float) -> str:
-    return f"{x * 100:+.3f}%"
+    return signed_percent(x, 3)
 
 
 def _rout(value: float) -> str:

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass, field
-from typing import Callable
+from typing import Any, Callable
 
 import numpy as np
 
@@ -109,6 +109,7 @@ class _Context:
     remote_lines: list[str] = field(default_factory=list)
     hot_models: list[str] = field(default_factory=list)
     kelvin: float = 300.15
+    remote: Any = None  # biastree.floorplan.Remote of the plan, or None
 
     def param(self, key: str, mirror: str) -> float:
         return float(self.params[key][self.tree.mirrors.index(mirror), 0])
@@ -117,7 +118,7 @@ class _Context:
         """(rail node, extra instance parameters) of branch i's output device: a remote
         device gets its own rail, offset by the IR drop, and its temperature offset."""
         tree = self.tree
-        remote = tree_remote(tree)
+        remote = self.remote
         m = tree.mirrors.index(mirror)
         b = int(np.flatnonzero((tree.b_parent == m) & (tree.b_index == i))[0])
         if remote is None or not (remote.delta_v[b] or remote.delta_t[b]):
@@ -349,7 +350,8 @@ def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: O
         lines.append(f"iref vdd {root_node} dc {_num(i_ref)}")
     else:
         lines.append(f"iref {root_node} 0 dc {_num(i_ref)}")
-    ctx = _Context(tree, names, models, node_of_mirror, out_node, mult, topology_params(tree), kelvin=kelvin)
+    ctx = _Context(tree, names, models, node_of_mirror, out_node, mult, topology_params(tree), kelvin=kelvin,
+                   remote=tree_remote(tree))
     for m in tree.mirrors:
         spec = plan.mirrors[m]
         lines.append(f"* mirror {m}: {spec.device} {spec.topology}, ×{mult[m]:g}")

@@ -5,14 +5,14 @@ from __future__ import annotations
 import numpy as np
 
 from ..audit import Audit
-from ..units import format_si, format_si_array
+from ..units import format_si, format_si_array, signed_percent
 
 
 MAX_REASONS = 200  # failing loads explained in the terminal; --json has them all
 
 
 def _pct(x: float) -> str:
-    return f"{x * 100:+.2f}%"
+    return signed_percent(x, 2)
 
 
 def to_table(result: Audit, failing_only: bool = False) -> str:
