@@ -20,6 +20,7 @@ import numpy as np
 
 from . import devices
 from .devices import Array
+from .floorplan import remote_offsets
 from .plan import BjtModel, Corner, Plan
 from .topologies import DeviceArrays
 from .tree import Tree
@@ -80,8 +81,6 @@ def reference_current(plan: Plan, kelvin: Array) -> Array:
 
 def default_columns(tree: Tree) -> Columns:
     """The three ends of every load's voltage range at the plan's own conditions."""
-    from .floorplan import remote_offsets
-
     plan = tree.plan
     n = len(ENDS)
     temperature = np.full(n, plan.temperature)
@@ -120,8 +119,6 @@ def condition_columns(tree: Tree, temperatures: list[float] | None = None, suppl
         f"{t - ZERO_CELSIUS:g}C {s:g}V{(' ' + c) if c else ''} {e}" for t, s, c, e in combos
     )
     temperature = np.array([c[0] for c in combos], dtype=float)
-    from .floorplan import remote_offsets
-
     return Columns(
         names=names,
         temperature=temperature,
