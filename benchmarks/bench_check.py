@@ -21,9 +21,9 @@ import time
 from pathlib import Path
 
 import biastree
-from biastree.export.table import to_table
-from biastree.generate import random_plan, to_text
-from biastree.loader import load_document, validate
+from biastree.input.generate import random_plan, to_text
+from biastree.input.loader import load_document, validate
+from biastree.output.table import to_table
 
 
 def best(fn, repeat: int):  # type: ignore[no-untyped-def]

@@ -13,10 +13,10 @@ import time
 from pathlib import Path
 
 import biastree
-from biastree.export.dot import to_dot
-from biastree.export.html import to_html
-from biastree.export.render import render, svg_body
-from biastree.generate import random_plan, to_text
+from biastree.input.generate import random_plan, to_text
+from biastree.output.dot import to_dot
+from biastree.output.html import to_html
+from biastree.output.render import render, svg_body
 
 
 def main() -> None:

@@ -15,8 +15,8 @@ import resource
 import time
 
 import biastree
-from biastree.generate import Ranges, random_plan
-from biastree.spread import analytic, monte_carlo
+from biastree.analysis.spread import analytic, monte_carlo
+from biastree.input.generate import Ranges, random_plan
 
 
 def with_matching(plan: dict) -> dict:
@@ -51,7 +51,7 @@ def main() -> None:
 
     # same small plan, same number of op runs, both tools (simple bipolar mirrors: what the
     # ngspice Monte Carlo writer supports)
-    from biastree.verify import ngspice_monte_carlo
+    from biastree.sim.verify import ngspice_monte_carlo
 
     small = biastree.loads(json.dumps(with_matching(random_plan(12, seed=3, ranges=Ranges(families=("bjt",))))),
                            "small", "json")

@@ -16,13 +16,12 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import Iterator, Union
 
-from .audit import Audit, audit
-from .errors import BiasTreeError, PlanError, Problem, RenderError, SimulatorError, SolveError
-from .plan import Plan
-from .solve import OperatingPoint, solve
-from .tree import Tree, build
-
-__version__ = "0.1.0"
+from biastree.analysis.audit import Audit, audit
+from biastree.analysis.solve import OperatingPoint, solve
+from biastree.errors import BiasTreeError, PlanError, Problem, RenderError, SimulatorError, SolveError
+from biastree.input.model import Plan
+from biastree.tree.arrays import Tree, build
+from biastree.version import __version__  # noqa: F401  (re-exported)
 
 __all__ = [
     "Audit",
@@ -59,7 +58,7 @@ def _gc_paused() -> Iterator[None]:
 
 def loads(text: str, source: str = "plan", fmt: str = "yaml") -> Tree:
     """Validate plan text (YAML or JSON) and build its tree; raises ``PlanError``."""
-    from .loader import parse_text, validate
+    from biastree.input.loader import parse_text, validate
 
     with _gc_paused():
         doc = parse_text(text, source, fmt)
@@ -74,7 +73,7 @@ def load(path: Union[str, Path]) -> Tree:
     >>> len(tree.loads), len(tree.mirrors)
     (15, 4)
     """
-    from .loader import load_document, validate
+    from biastree.input.loader import load_document, validate
 
     with _gc_paused():
         doc = load_document(path)
@@ -90,11 +89,14 @@ def check(path_or_tree: Union[str, Path, Tree], conditions: bool = True, mismatc
     worst case counts; when its devices carry matching coefficients, k·σ of
     mismatch (k from the plan's spread.k_sigma unless given) counts too.
     ``detail=False`` skips the error terms and output resistances (verdicts only).
+    The result's ``hints`` (computed on first use) say which topology change
+    would fix each failing load.
     """
-    from .corners import evaluate, has_conditions
-    from .spread import analytic, has_coefficients
+    import dataclasses
+
+    from biastree.analysis.advise import hints
+    from biastree.analysis.pipeline import check_tree
 
     tree = path_or_tree if isinstance(path_or_tree, Tree) else load(path_or_tree)
-    cond = evaluate(tree) if conditions and has_conditions(tree) else None
-    spread = analytic(tree) if mismatch and has_coefficients(tree.plan) else None
-    return audit(solve(tree, output_resistance=detail), cond, spread, k_sigma)
+    result = check_tree(tree, conditions, mismatch, k_sigma, detail)
+    return dataclasses.replace(result, advisor=hints)

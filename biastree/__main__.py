@@ -1,6 +1,6 @@
 """`python -m biastree` runs the command line."""
 
-from .cli import main
+from biastree.cli import main
 
 if __name__ == "__main__":
     main()

@@ -7,10 +7,22 @@ clean message per problem and exit status 2.  Anything else is a bug.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 
 class BiasTreeError(Exception):
     """Base class of every error biastree raises on purpose."""
+
+
+def format_path(path: tuple[Any, ...]) -> str:
+    """('mirrors', 'm', 'branches', 1, 'ratio') → 'mirrors.m.branches[1].ratio'."""
+    out = ""
+    for key in path:
+        if isinstance(key, int):
+            out += f"[{key}]"
+        else:
+            out += f".{key}" if out else str(key)
+    return out
 
 
 @dataclass(frozen=True)

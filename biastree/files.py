@@ -6,7 +6,7 @@ import os
 import tempfile
 from pathlib import Path
 
-from .errors import BiasTreeError
+from biastree.errors import BiasTreeError
 
 
 def write_atomic(path: str | Path, data: str | bytes) -> None:

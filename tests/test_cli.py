@@ -9,12 +9,11 @@ import sys
 
 import jsonschema
 import pytest
+from conftest import ROOT, SAMPLES
 from typer.testing import CliRunner
 
 from biastree.cli import app
-from biastree.results import schema_text
-
-from conftest import ROOT, SAMPLES
+from biastree.output.results import schema_text
 
 runner = CliRunner()
 

@@ -10,11 +10,10 @@ import math
 
 import numpy as np
 import pytest
+from helpers import one_stage, tree_of
 
 import biastree
-from biastree.devices import thermal_voltage
-
-from helpers import one_stage, tree_of
+from biastree.physics.devices import thermal_voltage
 
 
 def npn(beta: float, early: str | None = None, is_: str = "1e-16A") -> dict:

@@ -12,18 +12,17 @@ import xml.etree.ElementTree as ET
 from html.parser import HTMLParser
 
 import pytest
+from conftest import ROOT, SAMPLES
+from helpers import tree_of
 from typer.testing import CliRunner
 
 import biastree
 from biastree.cli import app
-from biastree.export.csv import to_csv
-from biastree.export.dot import to_dot
-from biastree.export.html import to_html
-from biastree.export.markdown import to_markdown
-from biastree.generate import random_plan
-
-from conftest import ROOT, SAMPLES
-from helpers import tree_of
+from biastree.input.generate import random_plan
+from biastree.output.csv import to_csv
+from biastree.output.dot import to_dot
+from biastree.output.html import to_html
+from biastree.output.markdown import to_markdown
 
 runner = CliRunner()
 GOLDEN = ROOT / "tests" / "golden"
@@ -100,7 +99,7 @@ def test_expand_draws_each_copy() -> None:
 
 
 def test_large_plan_collapses_and_says_so() -> None:
-    from biastree.export.dot import AUTO_NODE_LIMIT
+    from biastree.output.dot import AUTO_NODE_LIMIT
 
     result = biastree.check(tree_of(random_plan(6000, seed=5)))
     diagram = to_dot(result)

@@ -9,15 +9,14 @@ import random
 
 import numpy as np
 import pytest
+from helpers import tree_of
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import brentq
 
 import biastree
-from biastree.devices import thermal_voltage
-from biastree.generate import random_plan
-
-from helpers import tree_of
+from biastree.input.generate import random_plan
+from biastree.physics.devices import thermal_voltage
 
 VT = float(thermal_voltage(300.15))
 
@@ -202,7 +201,7 @@ def test_converges_in_few_sweeps() -> None:
 
 
 def test_json_roundtrip_of_generated_plan(tmp_path) -> None:  # type: ignore[no-untyped-def]
-    from biastree.generate import to_text
+    from biastree.input.generate import to_text
 
     plan = random_plan(50, seed=9)
     (tmp_path / "a.yaml").write_text(to_text(plan, "yaml"))

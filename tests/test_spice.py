@@ -9,17 +9,16 @@ import time
 
 import numpy as np
 import pytest
+from conftest import ROOT, SAMPLES
+from helpers import tree_of
 from typer.testing import CliRunner
 
 import biastree
 from biastree.cli import app
 from biastree.errors import SimulatorError
-from biastree.export.spice import Names, to_spice
-from biastree.generate import Ranges, random_plan
-from biastree.verify import parse_raw, run_ngspice, verify
-
-from conftest import ROOT, SAMPLES
-from helpers import tree_of
+from biastree.input.generate import Ranges, random_plan
+from biastree.output.spice import Names, to_spice
+from biastree.sim.verify import parse_raw, run_ngspice, verify
 
 runner = CliRunner()
 GOLDEN = ROOT / "tests" / "golden"
@@ -141,7 +140,7 @@ def test_verify_cli(ngspice) -> None:  # type: ignore[no-untyped-def]
 
 
 def test_verify_without_ngspice_is_one_clear_line(monkeypatch) -> None:  # type: ignore[no-untyped-def]
-    import biastree.verify as v
+    import biastree.sim.verify as v
 
     monkeypatch.setattr(v.shutil, "which", lambda name: None)
     result = runner.invoke(app, ["verify", str(ROOT / "samples" / "cmos_soc.yaml")])

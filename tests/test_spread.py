@@ -9,19 +9,18 @@ import math
 
 import numpy as np
 import pytest
+from conftest import ROOT
+from helpers import one_stage, tree_of
 from typer.testing import CliRunner
 
 import biastree
+from biastree.analysis.conditions import condition_columns
+from biastree.analysis.corners import evaluate, parse_range, sweep_columns
+from biastree.analysis.spread import analytic, device_sigmas, monte_carlo, single
 from biastree.cli import app
-from biastree.conditions import condition_columns
-from biastree.corners import evaluate, parse_range, sweep_columns
-from biastree.devices import thermal_voltage
-from biastree.export.spice import to_spice
-from biastree.spread import analytic, device_sigmas, monte_carlo, single
-from biastree.verify import ngspice_monte_carlo, run_ngspice, simulated_currents, verify
-
-from conftest import ROOT
-from helpers import one_stage, tree_of
+from biastree.output.spice import to_spice
+from biastree.physics.devices import thermal_voltage
+from biastree.sim.verify import ngspice_monte_carlo, run_ngspice, simulated_currents, verify
 
 runner = CliRunner()
 VT = float(thermal_voltage(300.15))
@@ -229,7 +228,7 @@ def test_temperature_laws_against_ngspice(ngspice) -> None:  # type: ignore[no-u
             assert result.op.l_current[i, k] == pytest.approx(sim[name], rel=1e-5)
     # the laws themselves: BF(T) = BF·(T/TNOM)^XTB
     cols = sweep_columns(tree, [398.15])
-    from biastree.conditions import device_arrays
+    from biastree.analysis.conditions import device_arrays
 
     assert device_arrays(tree, cols).beta[0, 0] == pytest.approx(120 * (398.15 / 300.15) ** 1.5, rel=1e-12)
 

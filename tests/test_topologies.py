@@ -11,16 +11,15 @@ import time
 import numpy as np
 import pytest
 import yaml
+from conftest import ROOT
+from helpers import one_stage, tree_of
 from typer.testing import CliRunner
 
 import biastree
 from biastree.cli import app
-from biastree.generate import Ranges, random_plan
-from biastree.topologies import TOPOLOGIES
-from biastree.verify import simulate_sweep, verify
-
-from conftest import ROOT
-from helpers import one_stage, tree_of
+from biastree.input.generate import Ranges, random_plan
+from biastree.physics.topologies import TOPOLOGIES
+from biastree.sim.verify import simulate_sweep, verify
 
 runner = CliRunner()
 BJT_TOPOLOGIES = ("simple", "beta_helper", "wilson", "wilson4", "cascode", "degenerated")

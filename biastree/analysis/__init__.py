@@ -1,0 +1,1 @@
+"""Analysis: operating point, conditions, spread, verdicts and hints."""

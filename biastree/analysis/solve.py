@@ -1,0 +1,344 @@
+"""Operating point of a bias tree, vectorised stage by stage.
+
+The tree is walked one generation of mirrors at a time (numpy over all
+mirrors of a generation and topology).  A branch that feeds a child mirror
+sits at that child's input voltage, which depends on the child's current;
+the whole tree is therefore swept top-down repeatedly until every input
+voltage moves by less than ``VOLTAGE_TOL``.  Each sweep shrinks the error by
+roughly V_T/V_A (≈ 1e-3), so a handful of sweeps suffice.
+
+Trailing axis of every result array: the load-voltage *case* — (min,
+nominal, max) of each load's voltage range.  Everything broadcasts, so the
+same code runs over samples or corners by giving the parameters more columns.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from biastree.analysis.conditions import ENDS as CASES  # the ends of each load's voltage range
+from biastree.analysis.conditions import Columns, default_columns, device_arrays
+from biastree.errors import SolveError
+from biastree.physics import devices
+from biastree.physics.devices import Array
+from biastree.physics.topologies import TOPOLOGIES, DeviceArrays, GroupInput
+from biastree.tree.arrays import Tree
+
+VOLTAGE_TOL = 1e-12  # V: sweeps stop when no input voltage moves more than this
+MAX_SWEEPS = 200
+
+
+@dataclass(frozen=True)
+class OperatingPoint:
+    """Currents and voltages of every mirror and branch (one instance each).
+
+    Shapes: mirror arrays (n_mirrors, n_cases), branch arrays
+    (n_branches, n_cases).  The gain factors multiply exactly to the branch
+    current:  b_current = m_i_in[parent] · ratio · Π b_factors.
+    """
+
+    tree: Tree
+    i_ref: Array
+    m_i_in: Array
+    m_v_in: Array  # input voltage, from the mirror's own rail
+    m_extra: Array  # current drawn besides the outputs (helper devices, bias sources), per instance
+    b_current: Array
+    b_distance: Array  # output node's distance from the parent's rail, V
+    b_min_distance: Array  # distance below which the output leaves the active region
+    b_internal_margin: Array  # saturation margin of the devices under the output device, V (inf: none)
+    b_factors: dict[str, Array]
+    b_rout: Array  # small-signal output resistance of each branch, Ω
+    sweeps: int
+    cases: tuple[str, ...] = field(default=CASES)
+    columns: Columns | None = None
+
+    @property
+    def b_compliance(self) -> Array:
+        """Compliance margin of each branch, V (negative = an output device not active)."""
+        return np.minimum(self.b_distance - self.b_min_distance, self.b_internal_margin)
+
+    @property
+    def l_current(self) -> Array:
+        return self.b_current[self.tree.l_branch]
+
+
+def topology_params(tree: Tree) -> dict[str, Array]:
+    """Per-mirror topology parameters, (n_mirrors, 1), with defaults filled in."""
+    plan = tree.plan
+    ideal = tree.m_ideal_in
+    out = {k: np.zeros((len(tree.mirrors), 1)) for k in ("helper_size", "bleed", "r_emitter", "bias_current", "swing_n")}
+    for i, name in enumerate(tree.mirrors):
+        m = plan.mirrors[name]
+        out["helper_size"][i] = m.helper_size
+        out["bleed"][i] = m.bleed
+        if m.degeneration is not None:
+            out["r_emitter"][i] = m.degeneration
+        elif m.degeneration_drop is not None:
+            out["r_emitter"][i] = m.degeneration_drop / ideal[i]
+        out["bias_current"][i] = m.bias_current if m.bias_current is not None else ideal[i]
+        out["swing_n"][i] = m.swing_n
+    return out
+
+
+@dataclass(frozen=True)
+class _Group:
+    family: str
+    topology: str
+    mirrors: np.ndarray
+    branches: np.ndarray
+    row: np.ndarray  # mirror row (within the group) of each branch
+    position: np.ndarray  # index of each branch within its mirror
+
+
+def _groups(tree: Tree) -> list[list[_Group]]:
+    """Per generation: mirrors and their branches grouped by (family, topology)."""
+    plan = tree.plan
+    topo = np.array([plan.mirrors[m].topology for m in tree.mirrors], dtype=object)
+    out = []
+    for gen in tree.generations:
+        groups = []
+        for family, bip in (("bjt", True), ("mos", False)):
+            for name in TOPOLOGIES:
+                sel = gen[(tree.m_bipolar[gen] == bip) & (topo[gen] == name)]
+                if sel.size:
+                    branches = np.flatnonzero(np.isin(tree.b_parent, sel))
+                    row = np.searchsorted(sel, tree.b_parent[branches])
+                    groups.append(_Group(family, name, sel, branches, row, tree.b_index[branches]))
+        out.append(groups)
+    return out
+
+
+@dataclass(frozen=True)
+class _Context:
+    tree: Tree
+    dev: DeviceArrays
+    params: dict[str, Array]
+    cols: Columns
+
+    def group_input(self, g: _Group, i_in: Array, distance: Array, dev: DeviceArrays | None = None,
+                    b_current: Array | None = None) -> GroupInput:
+        b = g.branches
+        c = self.cols
+        pick = lambda a: None if a is None else a[b]  # noqa: E731
+        is_scale, vt_shift, k_scale = pick(c.is_scale), pick(c.vt_shift), pick(c.k_scale)
+        if c.remote is not None and b_current is not None:
+            is_scale, vt_shift, k_scale = self._remote(g, b_current, distance, is_scale, vt_shift, k_scale)
+        return GroupInput(
+            dev=(dev or self.dev).take(g.mirrors, g.family),
+            params={k: v[g.mirrors] for k, v in self.params.items()},
+            i_in=i_in[g.mirrors],
+            row=g.row,
+            ratio=self.tree.b_ratio[b][:, None],
+            count=self.tree.b_count[b][:, None],
+            distance=distance,
+            supply=c.supply[None, :],
+            is_scale=is_scale,
+            vt_shift=vt_shift,
+            k_scale=k_scale,
+        )
+
+    def _remote(self, g: _Group, b_current: Array, distance: Array, is_scale: Array | None, vt_shift: Array | None,
+                k_scale: Array | None) -> tuple[Array | None, Array | None, Array | None]:
+        """Fold a remote output device's temperature and rail offset into its
+        mismatch inputs (exact at convergence; see biastree.floorplan)."""
+        remote = self.cols.remote
+        b = g.branches
+        dt, dv = remote.delta_t[b][:, None], remote.delta_v[b][:, None]
+        if not (np.any(dt) or np.any(dv)):
+            return is_scale, vt_shift, k_scale
+        dev = self.dev.take(self.tree.b_parent[b])
+        t = self.cols.temperature[None, :]
+        if g.family == "bjt":
+            plan = self.tree.plan
+            models = [plan.devices[plan.mirrors[self.tree.mirrors[p]].device] for p in self.tree.b_parent[b]]
+            xti = np.array([m.xti for m in models])[:, None]
+            eg = np.array([m.eg for m in models])[:, None]
+            vt, vt_hot = dev.vt, devices.thermal_voltage(t + dt)
+            is_ratio = devices.bjt_is_at(1.0, t + dt, t, xti, eg)
+            # the warm device's real V_BE, from its current in the previous sweep
+            # (its own IS and V_T; the first sweep starts from 0.7 V)
+            is_hot = dev.is_in * self.tree.b_ratio[b][:, None] * is_ratio  # IS of the output device, warm
+            with np.errstate(divide="ignore", invalid="ignore"):
+                vbe = np.where(b_current[b] > 0, vt_hot * np.log(b_current[b] / is_hot), 0.7)
+                early = 1.0 + np.maximum(distance - vbe - dv, 0.0) / dev.early  # its collector at the output node
+                vbe = np.where(b_current[b] > 0, vt_hot * np.log(b_current[b] / (is_hot * early)), 0.7)
+            factor = is_ratio * np.exp(vbe / vt_hot - vbe / vt) * np.exp(-dv / vt)
+            return (factor if is_scale is None else is_scale * factor), vt_shift, k_scale
+        plan = self.tree.plan
+        models = [plan.devices[plan.mirrors[self.tree.mirrors[p]].device] for p in self.tree.b_parent[b]]
+        tc = np.array([m.vth_tc for m in models])[:, None]
+        mu = np.array([m.mobility_exp for m in models])[:, None]
+        shift = dv + tc * dt  # |VT| rises with tc·ΔT; the rail offset eats into V_GS
+        # kp law, and the drain-source voltage the offset rail takes away (λ term)
+        scale = ((t + dt) / t) ** mu * (1.0 + dev.lam * (distance - dv)) / (1.0 + dev.lam * distance)
+        return (is_scale, shift if vt_shift is None else vt_shift + shift,
+                scale if k_scale is None else k_scale * scale)
+
+
+def solve(tree: Tree, columns: Columns | None = None, output_resistance: bool = True,
+          is_scale: Array | None = None) -> OperatingPoint:
+    """Solve the operating point of every mirror and branch, in every column
+    of ``columns`` (default: the three ends of the load voltages at the plan's
+    conditions).  ``is_scale`` (n_branches, 1) multiplies each output device's
+    IS relative to its input device (a quick mismatch study);
+    ``output_resistance=False`` skips the term split and the small-signal pass.
+
+    >>> import biastree
+    >>> op = biastree.solve(biastree.load("samples/bipolar_small.yaml"))
+    >>> op.sweeps < 10
+    True
+    """
+    # Outside a device's valid region the equations can produce NaN on the way;
+    # they are caught as a SolveError with the mirror named, not as numpy warnings.
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        return _solve(tree, columns, output_resistance, is_scale)
+
+
+def _solve(
+    tree: Tree,
+    columns: Columns | None = None,
+    output_resistance: bool = True,
+    is_scale: Array | None = None,
+) -> OperatingPoint:
+    plan = tree.plan
+    cols = default_columns(tree) if columns is None else columns
+    if is_scale is not None:
+        cols = replace(cols, is_scale=np.broadcast_to(is_scale, (len(tree.b_parent), cols.size)))
+    dev = device_arrays(tree, cols)
+    ctx = _Context(tree, dev, topology_params(tree), cols)
+    supply = cols.supply[None, :]
+    n_m, n_b = len(tree.mirrors), len(tree.b_parent)
+    n_c = cols.size
+
+    # Output nodes that feed loads sit at fixed voltages.
+    rail = np.where(tree.m_sink[:, None], 0.0, supply)
+    distance = np.zeros((n_b, n_c))
+    lb = tree.l_branch
+    distance[lb] = np.abs(cols.v_load - rail[tree.b_parent[lb]])
+    to_mirror = np.flatnonzero(~tree.b_to_load)
+
+    m_i_in = np.zeros((n_m, n_c))
+    m_v_in = np.where(tree.m_bipolar[:, None], 0.7, np.nan_to_num(dev.vth) + 0.2) * np.ones((1, n_c))
+    m_extra = np.zeros((n_m, n_c))
+    b_current = np.zeros((n_b, n_c))
+    b_min = np.zeros((n_b, n_c))
+    b_internal = np.full((n_b, n_c), np.inf)
+    groups = _groups(tree)
+    root = tree.generations[0]
+    i_ref = cols.i_ref[None, :]
+
+    for sweep in range(1, MAX_SWEEPS + 1):
+        previous = m_v_in.copy()
+        m_i_in[root] = i_ref
+        for generation in groups:
+            for g in generation:
+                b = g.branches
+                child_mirror = ~tree.b_to_load[b]
+                dist = distance[b]
+                dist[child_mirror] = supply - m_v_in[tree.b_child[b[child_mirror]]]
+                distance[b] = dist
+                out = TOPOLOGIES[g.topology].solve(ctx.group_input(g, m_i_in, dist, b_current=b_current))
+                m_v_in[g.mirrors] = out.v_in
+                m_extra[g.mirrors] = out.extra
+                b_current[b] = out.current
+                b_min[b] = out.min_distance
+                if out.internal_margin is not None:
+                    b_internal[b] = out.internal_margin
+                m_i_in[tree.b_child[b[child_mirror]]] = out.current[child_mirror]
+        if not np.all(np.isfinite(m_v_in)) or not np.all(np.isfinite(b_current)):
+            bad = [tree.mirrors[i] for i in np.flatnonzero(~np.all(np.isfinite(m_v_in), axis=1))][:3]
+            raise SolveError(
+                "no operating point: currents became invalid"
+                + (f" at mirror(s) {', '.join(bad)}" if bad else "")
+                + " (an output pushed far out of its active region, or the supply is too low)"
+            )
+        if np.max(np.abs(m_v_in - previous)) < VOLTAGE_TOL:
+            break
+    else:
+        raise SolveError(f"operating point did not converge in {MAX_SWEEPS} sweeps")
+
+    # Distances into child mirrors with the final input voltages.
+    distance[to_mirror] = supply - m_v_in[tree.b_child[to_mirror]]
+    if plan.compliance.bjt_forward_bias:
+        b_min = b_min - np.where(tree.m_bipolar[tree.b_parent], plan.compliance.bjt_forward_bias, 0.0)[:, None]
+    if output_resistance:
+        factors = _factors(ctx, groups, m_i_in, distance, b_current)
+        rout = _rout(ctx, groups, m_i_in, distance, b_current)
+    else:
+        factors, rout = {}, np.full((n_b, n_c), np.nan)
+    return OperatingPoint(
+        tree=tree,
+        i_ref=cols.i_ref.astype(float),
+        m_i_in=m_i_in,
+        m_v_in=m_v_in,
+        m_extra=m_extra,
+        b_current=b_current,
+        b_distance=distance,
+        b_min_distance=b_min,
+        b_internal_margin=b_internal,
+        b_factors=factors,
+        b_rout=rout,
+        sweeps=sweep,
+        cases=cols.names,
+        columns=cols,
+    )
+
+
+def _factors(ctx: _Context, groups: list[list[_Group]], i_in: Array, distance: Array, current: Array) -> dict[str, Array]:
+    """Split each branch's gain into terms: the gain with ideal output devices
+    (V_A → ∞, λ = 0) over the size ratio, and what the real ones add to it."""
+    tree = ctx.tree
+    n_b, n_c = current.shape
+    ideal_gain = np.ones((n_b, n_c))
+    local_gain = np.ones((n_b, n_c))  # ideal outputs and no floorplan offsets
+    ideal_dev = ctx.dev.ideal_outputs()
+    local = replace(ctx, cols=replace(ctx.cols, remote=None))
+    for generation in groups:
+        for g in generation:
+            b = g.branches
+            ideal_in = i_in[tree.b_parent[b]] * tree.b_ratio[b][:, None]
+            out = TOPOLOGIES[g.topology].solve(ctx.group_input(g, i_in, distance[b], ideal_dev, current))
+            ideal_gain[b] = out.current / ideal_in
+            if ctx.cols.remote is not None:
+                out = TOPOLOGIES[g.topology].solve(local.group_input(g, i_in, distance[b], ideal_dev, current))
+                local_gain[b] = out.current / ideal_in
+            else:
+                local_gain[b] = ideal_gain[b]
+    real_gain = current / (i_in[tree.b_parent] * tree.b_ratio[:, None])
+    bip = tree.m_bipolar[tree.b_parent][:, None]
+    return {
+        "beta": np.where(bip, local_gain, 1.0),
+        "gradient": ideal_gain / local_gain,
+        "early": np.where(bip, real_gain / ideal_gain, 1.0),
+        "lambda": np.where(bip, 1.0, real_gain / ideal_gain),
+    }
+
+
+ROUT_STEP = 1e-3  # V: central difference of the output current
+
+
+def _rout(ctx: _Context, groups: list[list[_Group]], i_in: Array, distance: Array, ctx_current: Array) -> Array:
+    """Output resistance of every branch: 1/(∂I_out/∂V_out) with the input
+    current held, by a central difference of the exact DC solution (the
+    small-signal model is the derivative of the same equations).  Where one
+    output's voltage moves the others (bipolar cascode: base currents), the
+    branches of a mirror are stepped one position at a time."""
+    rout = np.full(distance.shape, np.inf)
+    for generation in groups:
+        for g in generation:
+            topo = TOPOLOGIES[g.topology]
+            b = g.branches
+            rounds = np.unique(g.position) if topo.coupled_outputs else [None]
+            for position in rounds:
+                step = np.full((len(b), 1), ROUT_STEP)
+                if position is not None:
+                    step = np.where((g.position == position)[:, None], ROUT_STEP, 0.0)
+                hi = topo.solve(ctx.group_input(g, i_in, distance[b] + step, b_current=ctx_current)).current
+                lo = topo.solve(ctx.group_input(g, i_in, distance[b] - step, b_current=ctx_current)).current
+                with np.errstate(divide="ignore"):
+                    r = 2.0 * ROUT_STEP / (hi - lo)
+                sel = slice(None) if position is None else (g.position == position)
+                rout[b[sel]] = np.where(r[sel] > 0, r[sel], np.inf)
+    return rout

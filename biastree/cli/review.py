@@ -1,0 +1,87 @@
+"""Commands that draw the tree and write review reports: draw, report."""
+
+from __future__ import annotations
+
+from enum import Enum
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+
+import biastree
+from biastree.cli.app import PlanArg, app, guarded, load_tree
+
+
+class Annotation(str, Enum):
+    current = "current"
+    ratio = "ratio"
+    error = "error"
+
+
+@app.command()
+@guarded
+def draw(
+    plan: PlanArg,
+    output: Annotated[Path, typer.Option("-o", "--output", help="tree.svg, .png, .pdf or .dot (format by suffix)")],
+    only_failing: Annotated[bool, typer.Option("--only-failing", help="keep only the paths to failing loads")] = False,
+    depth: Annotated[Optional[int], typer.Option(help="mirror levels to draw; deeper parts are summed up", min=1)] = None,
+    annotate: Annotated[Annotation, typer.Option(help="edge labels: current, ratio or error")] = Annotation.current,
+    expand: Annotated[bool, typer.Option("--expand", help="one node per copy of a load (default: one node ×N)")] = False,
+) -> None:
+    """Draw the audited tree (Graphviz; status shown by colour and by mark)."""
+    from biastree.files import write_atomic
+    from biastree.output.dot import to_dot
+
+    result = biastree.check(load_tree(plan))
+    diagram = to_dot(result, only_failing=only_failing, depth=depth, annotate=annotate.value, expand=expand)
+    for note in diagram.notes:
+        typer.echo(f"note: {note}", err=True)
+    fmt = output.suffix.lower().lstrip(".")
+    if fmt in ("dot", "gv"):
+        write_atomic(output, diagram.text)
+        return
+    from biastree.output.render import render
+
+    write_atomic(output, render(diagram.text, fmt, diagram.nodes))
+
+
+class ReportFormat(str, Enum):
+    html = "html"
+    md = "md"
+
+
+@app.command()
+@guarded
+def report(
+    plan: PlanArg,
+    output: Annotated[Path, typer.Option("-o", "--output", help="review.html or review.md")],
+    fmt: Annotated[Optional[ReportFormat], typer.Option("--format", help="html or md (default: by suffix)")] = None,
+    csv: Annotated[Optional[Path], typer.Option("--csv", help="also write the load table as CSV")] = None,
+    diagram: Annotated[bool, typer.Option(help="embed the tree diagram (needs Graphviz)")] = True,
+) -> None:
+    """Write a review report: inputs, verdicts, tree diagram, load table, why loads fail."""
+    from biastree.files import write_atomic
+
+    result = biastree.check(load_tree(plan))
+    kind = fmt.value if fmt else ("md" if output.suffix.lower() in (".md", ".markdown") else "html")
+    if kind == "md":
+        from biastree.output.markdown import to_markdown
+
+        text = to_markdown(result, str(plan))
+    else:
+        from biastree.output.dot import to_dot
+        from biastree.output.html import to_html
+        from biastree.output.render import render, svg_body
+
+        svg = None
+        if diagram:
+            picture = to_dot(result)
+            for note in picture.notes:
+                typer.echo(f"note: {note}", err=True)
+            svg = svg_body(render(picture.text, "svg"))
+        text = to_html(result, svg, str(plan))
+    if csv is not None:
+        from biastree.output.csv import to_csv
+
+        write_atomic(csv, to_csv(result))
+    write_atomic(output, text)

@@ -1,2 +1,0 @@
-"""Exporters: leaves of the data flow.  Each module has a pure
-``to_<format>(...) -> str`` and writes nothing itself."""

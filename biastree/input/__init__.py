@@ -1,0 +1,1 @@
+"""Input: the plan model, the file loader and every structural check of a plan."""

@@ -1,0 +1,282 @@
+"""Structural checks of a validated plan: the one place where a plan's
+names, feeds, cycles, polarity, topology parameters, matching inputs and
+floorplan are checked.  Field-level checks are pydantic's (``model``); the
+loader runs both and reports every problem at once.
+
+Every node fed once and reachable from the reference makes a tree; the rules
+here guarantee that before ``biastree.tree`` builds its arrays.
+"""
+
+from __future__ import annotations
+
+import difflib
+from typing import TYPE_CHECKING, Any
+
+from biastree.errors import format_path
+from biastree.input.model import BjtModel, Plan
+from biastree.physics.topologies import TOPOLOGIES
+
+if TYPE_CHECKING:
+    import networkx as nx
+
+REFERENCE = "reference"
+
+
+def _hint(name: str, known: list[str]) -> str:
+    close = difflib.get_close_matches(name, known, n=1, cutoff=0.6)
+    return f" (did you mean '{close[0]}'?)" if close else ""
+
+
+def is_sink(kind: str) -> bool:
+    return kind in ("npn", "nmos")
+
+
+def _check_spread(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
+    """Matching coefficients given twice or without an area; matched pairs naming nothing."""
+    out: list[tuple[tuple[Any, ...], str]] = []
+    for name, dev in plan.devices.items():
+        pairs = (("a_is_pair", "a_is_single"),) if isinstance(dev, BjtModel) else (
+            ("a_vt_pair", "a_vt_single"), ("a_beta_pair", "a_beta_single"))
+        for pair, one in pairs:
+            if getattr(dev, pair) is not None and getattr(dev, one) is not None:
+                out.append((("devices", name, one), f"give either {pair} (a pair's σ) or {one} (one device's), not both"))
+        if isinstance(dev, BjtModel) and (dev.a_is_pair or dev.a_is_single) and dev.area is None:
+            out.append((("devices", name), "a bipolar matching coefficient needs the unit device's emitter area (area: 4um^2)"))
+    for name, group in plan.matched.items():
+        for k, load in enumerate(group.loads):
+            if load not in plan.loads:
+                out.append((("matched", name, "loads", k), f"no load named '{load}'{_hint(load, list(plan.loads))}"))
+        if len(set(group.loads)) != len(group.loads):
+            out.append((("matched", name, "loads"), "a matched pair needs two different loads"))
+    return out
+
+
+def levels(plan: Plan) -> list[list[str]]:
+    """Mirrors reachable from the reference, level by level (breadth first)."""
+    levels: list[list[str]] = []
+    seen: set[str] = set()
+    level = [plan.reference.feeds] if plan.reference.feeds in plan.mirrors else []
+    while level:
+        levels.append(level)
+        seen.update(level)
+        nxt = []
+        for name in level:
+            for branch in plan.mirrors[name].branches:
+                if branch.to in plan.mirrors and branch.to not in seen:
+                    seen.add(branch.to)
+                    nxt.append(branch.to)
+        level = nxt
+    return levels
+
+
+_TOPOLOGY_KEYS = ("helper_size", "bleed", "degeneration", "degeneration_drop", "bias_current", "swing_n")
+
+
+def _topology_params(name: str, mirror: Any, topo: Any) -> list[tuple[tuple[Any, ...], str]]:
+    """Parameters given to the wrong topology, missing ones, and output limits."""
+    out = []
+    for key in _TOPOLOGY_KEYS:
+        if key in mirror.model_fields_set and key not in topo.params:
+            owners = sorted(t.name for t in TOPOLOGIES.values() if key in t.params)
+            out.append((("mirrors", name, key), f"applies to {'/'.join(owners)} mirrors, not to a {topo.name} mirror"))
+    if topo.name == "degenerated":
+        given = [k for k in ("degeneration", "degeneration_drop") if getattr(mirror, k) is not None]
+        if len(given) != 1:
+            out.append((("mirrors", name), "a degenerated mirror needs exactly one of degeneration (Ω) or degeneration_drop (V)"))
+    if topo.single_output and (len(mirror.branches) != 1 or mirror.branches[0].count != 1):
+        out.append(
+            (
+                ("mirrors", name, "branches"),
+                f"a {topo.name} mirror regulates a single output: give it one branch with count 1 "
+                "(fan out through a mirror below it)",
+            )
+        )
+    return out
+
+
+def _no_device(name: str, known: list[str]) -> str:
+    return f"no device model named '{name}'{_hint(name, known)}"
+
+
+def _no_target(name: str, known: list[str]) -> str:
+    return f"no mirror or load named '{name}'{_hint(name, known)}"
+
+
+def _no_feed(name: str, mirrors: list[str], loads: list[str]) -> str:
+    if name in loads:
+        return f"'{name}' is a load; the reference must feed a mirror"
+    return f"no mirror named '{name}'{_hint(name, mirrors)}"
+
+
+def raw_name_problems(data: Any) -> list[tuple[tuple[Any, ...], str]]:
+    """Names that resolve to nothing, found in raw (not yet validated) plan data.
+
+    Used when field validation already failed, so that one run still reports
+    every problem it can: a misspelt key and a branch to a misspelt load together.
+    """
+    if not isinstance(data, dict):
+        return []
+    def names(section: str) -> list[str]:
+        value = data.get(section)
+        return list(value) if isinstance(value, dict) else []
+    devices, mirrors, loads = names("devices"), names("mirrors"), names("loads")
+    out: list[tuple[tuple[Any, ...], str]] = []
+    ref = data.get("reference")
+    if isinstance(ref, dict) and isinstance(ref.get("feeds"), str) and ref["feeds"] not in mirrors and mirrors:
+        out.append((("reference", "feeds"), _no_feed(ref["feeds"], mirrors, loads)))
+    for name in mirrors:
+        spec = data["mirrors"][name]
+        if not isinstance(spec, dict):
+            continue
+        if isinstance(spec.get("device"), str) and devices and spec["device"] not in devices:
+            out.append((("mirrors", name, "device"), _no_device(spec["device"], devices)))
+        branches = spec.get("branches")
+        for i, branch in enumerate(branches if isinstance(branches, list) else []):
+            target = branch.get("to") if isinstance(branch, dict) else None
+            if isinstance(target, str) and target not in mirrors and target not in loads:
+                out.append((("mirrors", name, "branches", i, "to"), _no_target(target, mirrors + loads)))
+    return out
+
+
+def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
+    """Every structural problem of the plan as (key path, message)."""
+    problems: list[tuple[tuple[Any, ...], str]] = []
+    mirrors, loads, devices = plan.mirrors, plan.loads, plan.devices
+    for name in sorted(set(mirrors) & set(loads)):
+        problems.append((("loads", name), f"'{name}' names both a mirror and a load; names must be unique"))
+    for section, names in (("mirrors", mirrors), ("loads", loads)):
+        if REFERENCE in names:
+            problems.append(((section, REFERENCE), "'reference' is reserved for the root; choose another name"))
+
+    kinds: dict[str, str] = {}
+    for name, mirror in mirrors.items():
+        device = devices.get(mirror.device)
+        if device is None:
+            problems.append((("mirrors", name, "device"), _no_device(mirror.device, list(devices))))
+            continue
+        kinds[name] = device.kind
+        family = "bjt" if isinstance(device, BjtModel) else "mos"
+        topo = TOPOLOGIES[mirror.topology]
+        if family not in topo.kinds:
+            problems.append(
+                (("mirrors", name, "topology"), f"topology '{topo.name}' is not available for {device.kind} devices")
+            )
+        problems += _topology_params(name, mirror, topo)
+
+    fed_by: dict[str, tuple[Any, ...]] = {}
+    ref = plan.reference
+    if ref.feeds in mirrors:
+        fed_by[ref.feeds] = ("reference", "feeds")
+    else:
+        problems.append((("reference", "feeds"), _no_feed(ref.feeds, list(mirrors), list(loads))))
+
+    for name, mirror in mirrors.items():
+        for i, branch in enumerate(mirror.branches):
+            where = ("mirrors", name, "branches", i, "to")
+            target = branch.to
+            if target not in mirrors and target not in loads:
+                problems.append((where, _no_target(target, list(mirrors) + list(loads))))
+                continue
+            if target == name:
+                problems.append((where, f"mirror '{name}' cannot feed itself"))
+                continue
+            if target in fed_by:
+                other = format_path(fed_by[target])
+                problems.append(
+                    (where, f"'{target}' is already fed by {other}; each mirror or load has one feed (use count for copies)")
+                )
+                continue
+            fed_by[target] = where
+            if target in mirrors and name in kinds and target in kinds and is_sink(kinds[name]) == is_sink(kinds[target]):
+                verb = "sinks" if is_sink(kinds[name]) else "sources"
+                want = "pnp/pmos" if is_sink(kinds[name]) else "npn/nmos"
+                problems.append(
+                    (
+                        where,
+                        f"polarity: {kinds[name]} mirror '{name}' {verb} current, so it can feed a {want} mirror or a load, "
+                        f"not {kinds[target]} mirror '{target}'",
+                    )
+                )
+
+    reachable = {m for level in levels(plan) for m in level}
+    reachable |= {b.to for m in reachable for b in mirrors[m].branches if b.to in loads}
+    in_cycle: set[str] = set()
+    # Every node fed once and reachable from the reference makes a tree: no
+    # cycle is possible, so the (slower) search only runs when something is off.
+    if problems or len(reachable) < len(mirrors) + len(loads):
+        for cycle in _cycles(plan_graph(plan)):
+            text = " -> ".join(cycle + [cycle[0]])
+            problems.append((("mirrors", cycle[0]), f"cycle: {text}"))
+            in_cycle.update(cycle)  # a cycle is reported once, not as unreachable too
+    for name in mirrors:
+        if name not in fed_by:
+            problems.append((("mirrors", name), "never fed: no branch or reference drives this mirror"))
+        elif name not in reachable and name not in in_cycle:
+            problems.append((("mirrors", name), "not reachable from the reference (it hangs below a cycle)"))
+    for name in loads:
+        if name not in fed_by:
+            problems.append((("loads", name), "never fed: no branch drives this load"))
+
+    problems += check_floorplan(plan)
+    problems += _check_spread(plan)
+    for name, load in loads.items():
+        lo, _, hi = load.v_range
+        if lo < 0 or hi > plan.supply:
+            problems.append(
+                (("loads", name, "voltage"), f"node voltage must lie between 0 V and the supply ({plan.supply:g} V)")
+            )
+    return problems
+
+
+def plan_graph(plan: Plan) -> "nx.DiGraph":
+    """The plan as a networkx DiGraph: reference → mirrors → loads (edges carry branch, ratio, count)."""
+    import networkx as nx
+
+    graph = nx.DiGraph()
+    graph.add_node(REFERENCE, role="reference")
+    graph.add_nodes_from(plan.mirrors, role="mirror")
+    graph.add_nodes_from(plan.loads, role="load")
+    if plan.reference.feeds in plan.mirrors:
+        graph.add_edge(REFERENCE, plan.reference.feeds, branch=-1)
+    for name, mirror in plan.mirrors.items():
+        for i, branch in enumerate(mirror.branches):
+            if branch.to in graph and not graph.has_edge(name, branch.to):
+                graph.add_edge(name, branch.to, branch=i, ratio=branch.ratio, count=branch.count)
+    return graph
+
+
+def _cycles(graph: "nx.DiGraph") -> list[list[str]]:
+    import networkx as nx
+
+    out = []
+    for component in nx.strongly_connected_components(graph):
+        if len(component) > 1:
+            start = min(component)
+            cycle = nx.find_cycle(graph.subgraph(component), source=start)
+            out.append([u for u, _ in cycle])
+    return out
+
+
+def check_floorplan(plan: Any) -> list[tuple[tuple[Any, ...], str]]:
+    """Names in the floorplan that do not exist, and remote loads without positions."""
+    fp = plan.floorplan
+    if fp is None:
+        return []
+    out = []
+    for name in fp.positions:
+        if name not in plan.mirrors and name not in plan.loads:
+            out.append((("floorplan", "positions", name), f"no mirror or load named '{name}'"))
+    for k, name in enumerate(fp.remote):
+        if name not in plan.loads:
+            out.append((("floorplan", "remote", k), f"no load named '{name}'"))
+            continue
+        feeder = next((m for m, spec in plan.mirrors.items() if any(b.to == name for b in spec.branches)), None)
+        if feeder is not None and plan.mirrors[feeder].topology in ("wilson", "wilson4"):
+            out.append((("floorplan", "remote", k), f"'{name}' is fed by a Wilson mirror, whose output cannot be remote"))
+        for who in (name, feeder):
+            if who is not None and who not in fp.positions and name not in fp.offsets:
+                out.append((("floorplan", "remote", k), f"'{name}' is remote, so '{who}' needs a position (or give offsets)"))
+    for name in fp.offsets:
+        if name not in fp.remote:
+            out.append((("floorplan", "offsets", name), f"'{name}' is not listed under remote"))
+    return out

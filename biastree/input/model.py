@@ -1,0 +1,316 @@
+"""The plan: a strict, validated description of one bias network.
+
+The models are the contract of the plan file.  Quantities are parsed from
+strings like ``10uA`` to SI floats here, once; every field has a
+description (it ends up in the committed JSON Schema).
+"""
+
+from __future__ import annotations
+
+from functools import cached_property
+from typing import Annotated, Callable, Literal, Optional, Union
+
+from annotated_types import Ge, Gt
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    PlainSerializer,
+    WithJsonSchema,
+    field_validator,
+)
+
+from biastree.units import ZERO_CELSIUS, parse_quantity
+
+_QUANTITY_PATTERN = r"^\s*[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?\s*\S*\s*$"
+
+
+def _parser(unit: str) -> Callable[[object], float]:
+    """A parse function for one unit, memoising strings (large plans repeat
+    the same few values, and this runs once per quantity field)."""
+    cache: dict[str, float] = {}
+
+    def parse(value: object) -> float:
+        if type(value) is str:
+            hit = cache.get(value)
+            if hit is None:
+                hit = parse_quantity(value, unit)
+                if len(cache) < 4096:
+                    cache[value] = hit
+            return hit
+        return parse_quantity(value, unit)
+
+    return parse
+
+
+def Quantity(unit: str, example: str, *constraints: object) -> object:
+    """A float field that also accepts a string with SI prefix and unit."""
+    schema = {
+        "anyOf": [
+            {"type": "number"},
+            {"type": "string", "pattern": _QUANTITY_PATTERN},
+        ],
+        "examples": [example],
+    }
+    # Annotated[(…)] with a tuple: the same as listing the items, and valid on Python 3.10
+    return Annotated[(float, BeforeValidator(_parser(unit)), *constraints, WithJsonSchema(schema))]
+
+
+Current = Quantity("A", "10uA", Gt(0))
+NonNegCurrent = Quantity("A", "1uA", Ge(0))
+Resistance = Quantity("ohm", "10kohm", Gt(0))
+VoltMeter = Quantity("V*m", "5mV*um", Ge(0))
+FractionMeter = Quantity("%*m", "1%*um", Ge(0))
+Area = Quantity("m^2", "4um^2", Gt(0))
+SignedVoltage = Quantity("V", "20mV")
+SignedFraction = Quantity("%", "-10%")
+PerKelvin = Quantity("1/K", "50ppm/K")
+SignedVoltagePerKelvin = Quantity("V/K", "-1mV/K")
+Distance = Quantity("m", "1.5mm", Ge(0))
+PositiveVoltage = Quantity("V", "3.3V", Gt(0))
+Voltage = Quantity("V", "1.5V")
+NonNegVoltage = Quantity("V", "0.3V", Ge(0))
+Fraction = Quantity("%", "1%", Ge(0))
+PositiveFraction = Quantity("%", "5%", Gt(0))
+PositiveNumber = Quantity("1", "3", Gt(0))
+Positive = Quantity("1", "120", Gt(0))
+NonNegative = Quantity("1", "3", Ge(0))
+Length = Quantity("m", "1um", Gt(0))
+Transconductance = Quantity("A/V^2", "200uA/V^2", Gt(0))
+InverseVoltage = Quantity("1/V", "0.05/V", Ge(0))
+EnergyEV = Quantity("eV", "1.11eV", Gt(0))
+Temperature = Annotated[
+    float,
+    BeforeValidator(_parser("C")),
+    PlainSerializer(lambda k: f"{k - ZERO_CELSIUS:.6g}C", return_type=str),
+    WithJsonSchema({"anyOf": [{"type": "number"}, {"type": "string"}], "examples": ["27C", "300K"]}),
+]
+Name = Annotated[str, Field(min_length=1)]
+
+
+class _Strict(BaseModel):
+    # extra="forbid": a misspelt key is an error, never silently ignored.
+    model_config = ConfigDict(extra="forbid", frozen=True, populate_by_name=True)
+
+
+class BjtModel(_Strict):
+    """A bipolar device model (Gummel–Poon without parasitics)."""
+
+    kind: Literal["npn", "pnp"] = Field(description="npn sinks current to ground, pnp sources it from the supply")
+    is_: Current = Field(alias="is", description="saturation current IS of one unit device at tnom")
+    beta: Positive = Field(description="forward current gain BF at tnom")
+    early: Optional[PositiveVoltage] = Field(
+        default=None,
+        description="forward Early voltage VAF (omit for none: infinite output resistance)",
+    )
+    xti: NonNegative = Field(default=3.0, description="IS temperature exponent XTI (SPICE default 3)")
+    eg: EnergyEV = Field(default=1.11, description="band gap EG for the IS temperature law, eV (SPICE default 1.11)")
+    xtb: NonNegative = Field(default=0.0, description="BF temperature exponent XTB (SPICE default 0)")
+    tnom: Temperature = Field(default=300.15, description="temperature at which the parameters are given (default 27C)")
+    area: Optional[Area] = Field(default=None, description="emitter area of one unit device (for the matching law)")
+    a_is_pair: Optional[FractionMeter] = Field(
+        default=None, description="σ(ΔIS/IS) of a PAIR of devices × √(emitter area), e.g. 2%*um (Pelgrom-style)"
+    )
+    a_is_single: Optional[FractionMeter] = Field(
+        default=None, description="σ(ΔIS/IS) of ONE device × √(emitter area) (= pair value / √2)"
+    )
+
+    @property
+    def vaf(self) -> float:
+        """Early voltage, infinite when not given."""
+        return float("inf") if self.early is None else self.early
+
+
+class MosModel(_Strict):
+    """A MOS device model (square law with channel-length modulation, SPICE level 1).
+
+    Parameters are taken as valid at the plan temperature.
+    """
+
+    kind: Literal["nmos", "pmos"] = Field(description="nmos sinks current to ground, pmos sources it from the supply")
+    kp: Transconductance = Field(description="transconductance parameter KP = µ·Cox, A/V²")
+    vth: PositiveVoltage = Field(description="threshold voltage magnitude VTO")
+    lambda_: InverseVoltage = Field(default=0.0, alias="lambda", description="channel-length modulation λ, 1/V")
+    w: Length = Field(description="gate width of one unit device")
+    l: Length = Field(description="gate length of one unit device")  # noqa: E741
+    tnom: Temperature = Field(default=300.15, description="temperature at which kp and vth are given (default 27C)")
+    vth_tc: SignedVoltagePerKelvin = Field(default=0.0, description="threshold temperature coefficient d|VT|/dT, V/K")
+    mobility_exp: float = Field(default=-1.5, description="kp ∝ (T/tnom)^mobility_exp (default −1.5)")
+    a_vt_pair: Optional[VoltMeter] = Field(
+        default=None, description="Pelgrom A_VT: σ(ΔVT) of a PAIR × √(WL), e.g. 5mV*um (Pelgrom et al. 1989)"
+    )
+    a_vt_single: Optional[VoltMeter] = Field(default=None, description="σ(VT) of ONE device × √(WL) (= pair / √2)")
+    a_beta_pair: Optional[FractionMeter] = Field(default=None, description="Pelgrom A_β: σ(Δβ/β) of a PAIR × √(WL)")
+    a_beta_single: Optional[FractionMeter] = Field(default=None, description="σ(Δβ/β) of ONE device × √(WL)")
+
+
+DeviceModel = Annotated[Union[BjtModel, MosModel], Field(discriminator="kind")]
+
+
+class Reference(_Strict):
+    """The root of the tree: one precise current source."""
+
+    current: Current = Field(description="reference current")
+    tolerance: Fraction = Field(default=0.0, description="reference current tolerance, e.g. 1%")
+    feeds: Name = Field(description="name of the mirror whose input the reference drives")
+    tempco: PerKelvin = Field(default=0.0, description="linear temperature coefficient, e.g. 50ppm/K")
+    tempco2: float = Field(default=0.0, description="quadratic temperature coefficient, 1/K²")
+    tnom: Temperature = Field(default=300.15, description="temperature at which current is given (default 27C)")
+
+
+class Branch(_Strict):
+    """One output of a mirror."""
+
+    to: Name = Field(description="name of the mirror or load this output drives")
+    ratio: Positive = Field(default=1.0, description="output device size / input device size")
+    count: Annotated[int, Gt(0)] = Field(
+        default=1,
+        description="identical copies of this output; into a mirror, copies of that mirror and all below it",
+    )
+
+
+class Mirror(_Strict):
+    """One mirror stage: a diode-connected input device and its outputs."""
+
+    device: Name = Field(description="name of a device model under devices:")
+    input_size: Positive = Field(default=1.0, description="input device size in unit devices")
+    topology: Name = Field(default="simple", description="mirror topology (see `biastree topologies`)")
+    branches: list[Branch] = Field(min_length=1, description="the outputs of this mirror")
+    helper_size: Positive = Field(default=1.0, description="beta_helper: size of the helper device, unit devices")
+    bleed: NonNegCurrent = Field(default=0.0, description="beta_helper: bleed current from the base line to the rail")
+    degeneration: Optional[Resistance] = Field(
+        default=None, description="degenerated: emitter resistor of the input device (outputs get R/ratio)"
+    )
+    degeneration_drop: Optional[PositiveVoltage] = Field(
+        default=None, description="degenerated: instead of a resistor, the drop across it at the ideal input current"
+    )
+    bias_current: Optional[Current] = Field(
+        default=None, description="wide_swing: current of the cascode bias device (default: the ideal input current)"
+    )
+    swing_n: Positive = Field(
+        default=1.25,
+        description="wide_swing: bias device is (W/L)/(n+1)²; n = 1 is the textbook edge of saturation, "
+        "1.25 keeps a margin",
+    )
+
+    @field_validator("topology")
+    @classmethod
+    def _known_topology(cls, value: str) -> str:
+        from biastree.physics.topologies import TOPOLOGIES
+
+        if value not in TOPOLOGIES:
+            raise ValueError(f"unknown topology '{value}'; known: {', '.join(sorted(TOPOLOGIES))}")
+        return value
+
+
+class Load(_Strict):
+    """A block that consumes bias current."""
+
+    current: Current = Field(description="target current of one instance")
+    tolerance: PositiveFraction = Field(description="error budget, e.g. 5%")
+    voltage: Union[Voltage, tuple[Voltage, Voltage]] = Field(
+        description="voltage of the load's node (vs ground): a value or [min, max]"
+    )
+
+    @field_validator("voltage")
+    @classmethod
+    def _ordered(cls, value: float | tuple[float, float]) -> float | tuple[float, float]:
+        if isinstance(value, tuple) and value[0] > value[1]:
+            raise ValueError(f"range [{value[0]:g}, {value[1]:g}] V must be written [min, max]")
+        return value
+
+    @cached_property
+    def v_range(self) -> tuple[float, float, float]:
+        """(min, nominal, max) node voltage; nominal is the middle of a range."""
+        v = self.voltage
+        if type(v) is tuple:
+            return v[0], 0.5 * (v[0] + v[1]), v[1]
+        return v, v, v  # type: ignore[return-value]
+
+
+class Compliance(_Strict):
+    """How much the output devices may be pushed towards saturation."""
+
+    bjt_forward_bias: NonNegVoltage = Field(
+        default=0.0,
+        description="forward bias allowed on a BJT output's base-collector junction (0 = VCB ≥ 0)",
+    )
+
+
+class Corner(_Strict):
+    """A process corner: global shifts applied to every device of a family."""
+
+    beta: SignedFraction = Field(default=0.0, description="relative shift of every bipolar β, e.g. -20%")
+    early: SignedFraction = Field(default=0.0, description="relative shift of every Early voltage")
+    is_: SignedFraction = Field(default=0.0, alias="is", description="relative shift of every IS")
+    kp: SignedFraction = Field(default=0.0, description="relative shift of every MOS kp")
+    vth: SignedVoltage = Field(default=0.0, description="shift of every MOS |VT|, e.g. 30mV")
+    lambda_: SignedFraction = Field(default=0.0, alias="lambda", description="relative shift of every λ")
+
+
+class Conditions(_Strict):
+    """Operating conditions a sign-off must cover; `check` uses the worst."""
+
+    temperatures: list[Temperature] = Field(default_factory=list, description="die temperatures, e.g. [-40C, 27C, 125C]")
+    supplies: list[PositiveVoltage] = Field(default_factory=list, description="supply voltages, e.g. [3.0V, 3.6V]")
+    corners: dict[Name, Corner] = Field(default_factory=dict, description="named process corners")
+
+
+class Spread(_Strict):
+    """Random variation: how many σ of mismatch a budget must absorb, and global process spread (1σ)."""
+
+    k_sigma: PositiveNumber = Field(default=3.0, description="budgets must hold with this many σ of mismatch")
+    beta: Fraction = Field(default=0.0, description="1σ global spread of β (Monte Carlo only)")
+    vth: NonNegVoltage = Field(default=0.0, description="1σ global spread of MOS |VT| (Monte Carlo only)")
+    kp: Fraction = Field(default=0.0, description="1σ global spread of MOS kp (Monte Carlo only)")
+
+
+class Matched(_Strict):
+    """Loads whose current ratio must hold (e.g. two halves of a differential block)."""
+
+    loads: list[Name] = Field(min_length=2, max_length=2, description="the two loads")
+    tolerance: PositiveFraction = Field(description="budget on the ratio's deviation, e.g. 0.5%")
+
+
+class Offset(_Strict):
+    """A remote output device's offsets from its mirror's input device."""
+
+    temperature: Quantity("K", "2K") = Field(default=0.0, description="warmer by, K")  # type: ignore[valid-type]
+    rail: SignedVoltage = Field(default=0.0, description="rail moved towards the other rail by, V")
+
+
+class Floorplan(_Strict):
+    """Where mirrors and loads sit, and the gradients across the die."""
+
+    positions: dict[Name, tuple[Distance, Distance]] = Field(
+        default_factory=dict, description="[x, y] of mirrors and loads, e.g. [0.5mm, 1.2mm]"
+    )
+    thermal_gradient: Quantity("K/m", "2K/mm", Ge(0)) = Field(default=0.0, description="temperature gradient, K/mm")  # type: ignore[valid-type]
+    rail_gradient: Quantity("V/m", "1mV/mm", Ge(0)) = Field(default=0.0, description="IR-drop gradient of the rails, mV/mm")  # type: ignore[valid-type]
+    remote: list[Name] = Field(
+        default_factory=list,
+        description="loads whose output device sits at the load (the mirror's base/gate line is routed there)",
+    )
+    long_line: Distance = Field(default=5e-4, description="a base/gate line longer than this is flagged")
+    offsets: dict[Name, Offset] = Field(
+        default_factory=dict,
+        description="explicit offsets of a remote load's output device (instead of gradient × distance)",
+    )
+
+
+class Plan(_Strict):
+    """One bias network: a reference current, mirrors, and the loads they feed."""
+
+    title: str = Field(default="", description="free text shown in reports")
+    supply: PositiveVoltage = Field(description="supply voltage (the rail of pnp/pmos mirrors)")
+    temperature: Temperature = Field(default=300.15, description="die temperature, e.g. 27C or 300K")
+    devices: dict[Name, DeviceModel] = Field(min_length=1, description="named device models")
+    reference: Reference
+    mirrors: dict[Name, Mirror] = Field(min_length=1, description="named mirror stages")
+    loads: dict[Name, Load] = Field(min_length=1, description="named blocks that consume bias current")
+    compliance: Compliance = Field(default_factory=Compliance, description="compliance limits")
+    conditions: Conditions = Field(default_factory=Conditions, description="temperatures, supplies and corners to cover")
+    spread: Spread = Field(default_factory=Spread, description="mismatch budget and global process spread")
+    matched: dict[Name, Matched] = Field(default_factory=dict, description="load pairs whose ratio must hold")
+    floorplan: Optional[Floorplan] = Field(default=None, description="positions and gradients across the die")

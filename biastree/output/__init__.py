@@ -1,0 +1,1 @@
+"""Output: exporters, one module per format (leaves of the pipeline)."""

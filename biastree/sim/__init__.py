@@ -1,0 +1,1 @@
+"""The circuit simulator: running ngspice and comparing its answers."""

@@ -1,0 +1,247 @@
+"""Cross-check biastree's currents with the ngspice circuit simulator.
+
+The netlist is written to a temporary folder and ngspice runs there in
+batch mode, without a shell, with a time limit.  The simulator's own words
+are kept: a line starting with ``Error`` or ``Warning`` on either stream, a
+singular matrix, or a missing or incomplete raw file all fail the check,
+even when ngspice exits 0.
+"""
+
+from __future__ import annotations
+
+import math
+import shutil
+import subprocess
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from biastree.analysis.solve import CASES, OperatingPoint, solve
+from biastree.errors import SimulatorError
+from biastree.output.spice import Netlist, to_spice
+from biastree.tree.arrays import Tree
+
+INSTALL_HINT = "ngspice is not installed: install it (Debian/Ubuntu: apt-get install ngspice) and try again"
+_BAD_WORDS = ("singular matrix", "timestep too small", "no convergence", "iteration limit reached", "failed")
+
+
+def find_ngspice() -> str:
+    exe = shutil.which("ngspice")
+    if exe is None:
+        raise SimulatorError(INSTALL_HINT)
+    return exe
+
+
+def parse_raw(text: str) -> list[dict[str, np.ndarray]]:
+    """Plots of an ASCII SPICE raw file: one dict per plot, variable → values.
+
+    >>> raw = ("Title: t\\nPlotname: Operating Point\\nFlags: real\\nNo. Variables: 2\\n"
+    ...        "No. Points: 1\\nVariables:\\n\\t0\\tv(a)\\tvoltage\\n\\t1\\ti(v1)\\tcurrent\\n"
+    ...        "Values:\\n0\\t\\t1.5e+00\\n\\t-2.0e-06\\n")
+    >>> float(parse_raw(raw)[0]["i(v1)"][0])
+    -2e-06
+    """
+    plots = []
+    lines = text.splitlines()
+    i = 0
+    while i < len(lines):
+        header: dict[str, str] = {}
+        while i < len(lines) and not lines[i].startswith("Variables:"):
+            if ":" in lines[i]:
+                key, _, value = lines[i].partition(":")
+                header[key.strip().lower()] = value.strip()
+            i += 1
+        if i >= len(lines):
+            break
+        try:
+            n_vars = int(header["no. variables"])
+            n_points = int(header["no. points"])
+        except (KeyError, ValueError):
+            raise SimulatorError("raw file: header without variable or point counts") from None
+        complex_values = "complex" in header.get("flags", "")
+        names = []
+        i += 1
+        for _ in range(n_vars):
+            if i >= len(lines):
+                raise SimulatorError("raw file: truncated variable list")
+            parts = lines[i].split()
+            names.append(parts[1].lower())
+            i += 1
+        if i >= len(lines) or not lines[i].startswith("Values:"):
+            raise SimulatorError("raw file: no values (binary raw file, or the run stopped early)")
+        i += 1
+        tokens: list[str] = []
+        needed = n_points * (n_vars + 1)
+        while i < len(lines) and len(tokens) < needed:
+            tokens += lines[i].split()
+            i += 1
+        if len(tokens) < needed:
+            raise SimulatorError(f"raw file: incomplete ({len(tokens)} of {needed} numbers)")
+        table = np.array(tokens[:needed], dtype=object).reshape(n_points, n_vars + 1)[:, 1:]
+
+        def value(tok: str) -> float:
+            return float(tok.split(",")[0]) if complex_values else float(tok)
+
+        plots.append({name: np.array([value(t) for t in table[:, k]]) for k, name in enumerate(names)})
+    if not plots:
+        raise SimulatorError("raw file: no plot found")
+    return plots
+
+
+def run_ngspice(netlist: str, timeout: float = 120.0) -> dict[str, np.ndarray]:
+    """Run one netlist; return the first plot's variables (names in lower case)."""
+    exe = find_ngspice()
+    with tempfile.TemporaryDirectory(prefix="biastree-") as tmp:
+        folder = Path(tmp)
+        (folder / "tree.cir").write_text(netlist, encoding="utf-8")
+        try:
+            proc = subprocess.run(
+                [exe, "-n", "-b", "-r", "out.raw", "tree.cir"],
+                cwd=folder,
+                capture_output=True,
+                text=True,
+                timeout=timeout,
+                stdin=subprocess.DEVNULL,
+            )
+        except subprocess.TimeoutExpired:
+            raise SimulatorError(f"ngspice did not finish within {timeout:g} s") from None
+        complaints = [
+            line.strip()
+            for line in (proc.stderr + "\n" + proc.stdout).splitlines()
+            if line.strip().lower().startswith(("error", "warning"))
+            or any(word in line.lower() for word in _BAD_WORDS)
+        ]
+        if complaints:
+            raise SimulatorError("ngspice: " + " | ".join(dict.fromkeys(complaints)))
+        if proc.returncode != 0:
+            raise SimulatorError(f"ngspice exited with status {proc.returncode}: {proc.stderr.strip()[:500]}")
+        raw = folder / "out.raw"
+        if not raw.exists():
+            raise SimulatorError("ngspice wrote no raw file")
+        return parse_raw(raw.read_text(encoding="utf-8", errors="replace"))[0]
+
+
+def simulated_currents(netlist: Netlist, variables: dict[str, np.ndarray]) -> dict[str, float]:
+    """Current of one instance of every load, from the ammeters."""
+    out = {}
+    for load, ammeter in netlist.ammeters.items():
+        key = f"i({ammeter})"
+        if key not in variables:
+            raise SimulatorError(f"ngspice result has no {key} for load {load}")
+        out[load] = float(variables[key][0]) / netlist.instances[load]
+    return out
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """biastree's and the simulator's current for every load and case."""
+
+    loads: tuple[str, ...]
+    cases: tuple[str, ...]
+    ours: np.ndarray  # (n_loads, n_cases)
+    simulated: np.ndarray
+    tolerance: float
+
+    @property
+    def difference(self) -> np.ndarray:
+        """Relative difference (ours − simulated) / simulated."""
+        return (self.ours - self.simulated) / np.abs(self.simulated)
+
+    @property
+    def worst(self) -> float:
+        return float(np.max(np.abs(self.difference))) if self.ours.size else 0.0
+
+    @property
+    def agrees(self) -> bool:
+        return bool(np.all(np.abs(self.difference) <= self.tolerance)) and math.isfinite(self.worst)
+
+
+def verify(
+    tree: Tree,
+    tolerance: float = 1e-5,
+    cases: tuple[str, ...] = CASES,
+    op: OperatingPoint | None = None,
+    timeout: float = 120.0,
+) -> Comparison:
+    """Solve the tree (unless ``op`` is given) and compare with ngspice at every case."""
+    find_ngspice()
+    op = solve(tree) if op is None else op
+    ours = np.zeros((len(tree.loads), len(cases)))
+    sim = np.zeros_like(ours)
+    for k, case in enumerate(cases):
+        netlist = to_spice(tree, case, op=op)
+        currents = simulated_currents(netlist, run_ngspice(netlist.text, timeout))
+        ours[:, k] = op.l_current[:, CASES.index(case)]
+        sim[:, k] = [currents[name] for name in tree.loads]
+    return Comparison(tree.loads, tuple(cases), ours, sim, tolerance)
+
+
+def simulate_sweep(tree: Tree, load: str, start: float, stop: float, step: float,
+                   timeout: float = 120.0) -> tuple[np.ndarray, np.ndarray]:
+    """(node voltages, current of one instance) of ``load`` swept by ngspice `.dc`."""
+    netlist = to_spice(tree, "nominal")
+    values = run_ngspice(netlist.with_sweep(load, start, stop, step), timeout)
+    current = values[f"i({netlist.ammeters[load]})"] / netlist.instances[load]
+    sweep = next((v for k, v in values.items() if "sweep" in k), None)
+    if sweep is None:
+        sweep = start + step * np.arange(len(current))
+    return sweep, current
+
+
+def ngspice_monte_carlo(tree: Tree, samples: int, seed: int = 1, timeout: float = 600.0) -> np.ndarray:
+    """(n_loads, samples): load currents from an ngspice Monte Carlo of the
+    exported netlist — every bipolar device's area scaled by e^δ, δ normal with
+    the device's σ(ΔIS/IS) (``alter`` in a ``.control`` loop, ``sgauss``,
+    ``setseed``).  Simple bipolar mirrors only: the devices map one to one."""
+    from biastree.analysis.spread import device_sigmas
+
+    plan = tree.plan
+    for name in tree.mirrors:
+        spec = plan.mirrors[name]
+        if spec.topology != "simple" or plan.devices[spec.device].kind not in ("npn", "pnp"):
+            raise SimulatorError("ngspice Monte Carlo is written for simple bipolar mirrors only")
+    netlist = to_spice(tree, "nominal")
+    sig = device_sigmas(tree)
+    lines = netlist.text.splitlines()
+    areas = {}
+    for line in lines:
+        if line.startswith("q"):
+            parts = line.split()
+            areas[parts[0]] = float(parts[-1].split("=")[1])
+    alters = []
+    names = {}
+    for i, m in enumerate(tree.mirrors):
+        tag = netlist.mirror_nodes[m][2:]
+        names[f"q{tag}_in"] = float(sig.in_is[i])
+    for b in range(len(tree.b_parent)):
+        m = tree.mirrors[tree.b_parent[b]]
+        tag = netlist.mirror_nodes[m][2:]
+        names[f"q{tag}_o{int(tree.b_index[b])}"] = float(sig.out_is[b])
+    for dev, sigma in names.items():
+        alters.append(f"  alter {dev} area = {areas[dev]!r}*exp({sigma!r}*sgauss(0))")
+    loads = list(tree.loads)
+    vectors = [f"i{k}" for k in range(len(loads))]
+    control = [".control", f"setseed {int(seed)}", f"let n = {int(samples)}", "let k = 0"]
+    control += ["while k < n"] + alters + ["  op"]
+    control += [f"  let {v} = i({netlist.ammeters[l]})" for v, l in zip(vectors, loads)]
+    control += ["  echo MC " + " ".join(f"$&{v}" for v in vectors)]
+    control += ["  destroy", "  let k = k + 1", "end", ".endc"]
+    text = "\n".join(lines[:-1] + control + [".end"]) + "\n"
+    exe = find_ngspice()
+    with tempfile.TemporaryDirectory(prefix="biastree-mc-") as tmp:
+        folder = Path(tmp)
+        (folder / "mc.cir").write_text(text.replace(".op\n", ""), encoding="utf-8")
+        try:
+            proc = subprocess.run([exe, "-b", "mc.cir"], cwd=folder, capture_output=True, text=True,
+                                  timeout=timeout, stdin=subprocess.DEVNULL)
+        except subprocess.TimeoutExpired:
+            raise SimulatorError(f"ngspice Monte Carlo did not finish within {timeout:g} s") from None
+    rows = [line.split()[1:] for line in proc.stdout.splitlines() if line.startswith("MC ")]
+    if len(rows) != samples:
+        raise SimulatorError(f"ngspice Monte Carlo gave {len(rows)} of {samples} samples: "
+                             f"{(proc.stderr or proc.stdout).strip()[-300:]}")
+    currents = np.array(rows, dtype=float).T
+    inst = np.array([netlist.instances[l] for l in loads])[:, None]
+    return currents / inst

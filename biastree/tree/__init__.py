@@ -1,0 +1,1 @@
+"""The bias tree as numpy arrays, built from a checked plan."""
