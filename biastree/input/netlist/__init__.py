@@ -1,0 +1,1 @@
+"""Reading an existing design: flatten a SPICE netlist, recognise its mirrors, write a plan."""

@@ -1,0 +1,370 @@
+"""From recognised mirrors to a plan: follow each output to the next mirror or to a load.
+
+The reference is the current source (or the resistor from a rail) that
+feeds the input of a mirror no other mirror feeds.  Each output is followed
+to the next mirror's input or to a terminal node, which becomes a load
+named after the node.  Mirror names are their input nodes.  Sizes and
+multiplicity fold into ``input_size`` and ``ratio`` (``count`` stays 1: a
+device of m=4 into one node is one load of four times the current).
+Everything the plan cannot hold is a ``Finding``; every value the plan
+needs but neither the netlist nor the annotation gives is listed in
+``missing``, never guessed.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+from biastree.input.netlist.annotate import Annotations
+from biastree.input.netlist.flat import SINKS, TRANSISTORS, Device, Finding, Flat, family
+from biastree.input.netlist.recognise import Recogniser, Stage
+
+SPICE_TNOM_C = 27.0  # SPICE's default temperature and TNOM, °C
+_BJT_CARD = {"is": ("is", 1e-16), "bf": ("beta", 100.0), "xti": ("xti", 3.0), "eg": ("eg", 1.11), "xtb": ("xtb", 0.0)}
+# DC parameters of a Gummel–Poon card that the plan's bipolar model does not have (value = SPICE default)
+_BJT_UNMODELLED = {"nf": 1.0, "var": 0.0, "ikf": 0.0, "ise": 0.0, "ikr": 0.0, "isc": 0.0, "rb": 0.0, "re": 0.0,
+                   "rc": 0.0, "br": 1.0}
+_MOS_UNMODELLED = {"gamma": 0.0, "rd": 0.0, "rs": 0.0}
+
+
+@dataclass
+class Extraction:
+    """A plan as plain data, where each part came from, and what was left out."""
+
+    plan: dict[str, Any]
+    origins: dict[str, list[str]]  # "mirrors.X", "loads.Y", "devices.Z", "reference" -> ["inst (file:line)"]
+    findings: list[Finding] = field(default_factory=list)  # unclassified devices and assumptions
+    missing: list[Finding] = field(default_factory=list)  # needed values nobody gave
+    resistor_reference: tuple[float, float] | None = None  # (R, voltage across R and the input) when resistor-fed
+    branch_origin: dict[tuple[str, int], str] = field(default_factory=dict)
+
+
+def _at(d: Device) -> str:
+    return f"{d.path} ({d.where})"
+
+
+class _Builder:
+    def __init__(self, flat: Flat, notes: Annotations) -> None:
+        self.flat, self.notes = flat, notes
+        self.r = Recogniser(flat)
+        self.stages = self.r.run()
+        self.findings: list[Finding] = list(flat.notes) + self.r.findings
+        self.missing: list[Finding] = []
+        self.origins: dict[str, list[str]] = {}
+        self.by_node = flat.by_node()
+        for s in self.stages:
+            self.findings += s.notes
+
+    # --- the tree ----------------------------------------------------------
+
+    def edges(self) -> dict[str, list[tuple[str, float, list[Device], Stage | None]]]:
+        """Per mirror: (node, size, devices, child mirror or None) of each output node."""
+        by_input = {s.input_node: s for s in self.stages}
+        out: dict[str, list[tuple[str, float, list[Device], Stage | None]]] = {}
+        for s in self.stages:
+            merged: dict[str, tuple[float, list[Device]]] = {}
+            for o in s.outputs:
+                size, devs = merged.get(o.node, (0.0, []))
+                merged[o.node] = (size + o.size, devs + o.devices)
+            rows = []
+            for node, (size, devs) in merged.items():
+                child = by_input.get(node)
+                if child is not None and child.sink == s.sink:
+                    self.findings.append(Finding(devs[0].where, devs[0].path, f"a {s.kind} output drives the input "
+                                                 f"of the {child.kind} mirror at {node}: same polarity, not audited"))
+                    continue
+                if sum(o.node == node for o in s.outputs) > 1:
+                    self.findings.append(Finding(devs[0].where, node, "several outputs of one mirror drive this "
+                                                 "node: taken as one branch of their summed size"))
+                rows.append((node, size, devs, child))
+            out[s.input_node] = rows
+        return out
+
+    def reference(self, s: Stage) -> tuple[list[Device], float | None, tuple[float, float] | None]:
+        sources = self.r.isource_into(s.input_node, s.sink)
+        if sources:
+            return sources, abs(sum(x.value for x in sources)), None  # type: ignore[misc]
+        for res in self.r.two.get(s.input_node, []):
+            if res.kind != "resistor" or res.path in self.r.claimed:
+                continue
+            other = res.nodes[1] if res.nodes[0] == s.input_node else res.nodes[0]
+            if other in self.r.volts and other != s.rail:
+                drop = abs(self.r.volts[other] - self.r.volts.get(s.rail, 0.0))
+                return [res], None, (float(res.value), drop)  # type: ignore[arg-type]
+        return [], None, None
+
+    def run(self) -> Extraction:
+        edges = self.edges()
+        parents: dict[str, str] = {}
+        for name, rows in edges.items():
+            for node, _, devs, child in rows:
+                if child is None:
+                    continue
+                if node in parents:
+                    self.findings.append(Finding(devs[0].where, node, f"mirror input fed by both {parents[node]} and "
+                                                 f"{name}: only the first is followed"))
+                else:
+                    parents[node] = name
+        roots = [s for s in self.stages if s.input_node not in parents]
+        fed = [(s, *self.reference(s)) for s in roots]
+        fed = [f for f in fed if f[1]]
+        if not fed:
+            where = self.flat.source if not self.stages else self.stages[0].input.where
+            what = "no current mirror found" if not self.stages else \
+                "no current source or rail resistor feeds a mirror that no other mirror feeds"
+            raise _no_tree(where, what, self.findings)
+        size = {s.input_node: self._subtree(s.input_node, edges) for s, *_ in fed}
+        fed.sort(key=lambda f: -size[f[0].input_node])
+        root, ref_devs, i_ref, res_ref = fed[0]
+        for s, devs, *_ in fed[1:]:
+            self.findings.append(Finding(devs[0].where, devs[0].path, f"a second reference (into {s.input_node}): "
+                                         "one reference per plan, its tree is not audited"))
+        plan: dict[str, Any] = {"mirrors": {}, "loads": {}, "devices": {}}
+        ext = Extraction(plan, self.origins, self.findings, self.missing)
+        if res_ref is not None:
+            ext.resistor_reference = res_ref
+            # a first estimate; the caller refines it with the solved input voltage
+            i_ref = (res_ref[1] - 0.7) / res_ref[0] if res_ref[1] > 0.7 else res_ref[1] / res_ref[0] / 2
+        if self.notes.reference.current is not None:
+            i_ref = self.notes.reference.current
+        ref = {"current": i_ref, "feeds": root.input_node}
+        if self.notes.reference.tolerance:
+            ref["tolerance"] = self.notes.reference.tolerance
+        if self.notes.reference.tempco:
+            ref["tempco"] = self.notes.reference.tempco
+        plan["reference"] = ref
+        self.origins["reference"] = [_at(d) for d in ref_devs]
+        visited: list[Stage] = []
+        self._walk(root, edges, [root.input_node], float(i_ref or 0.0), plan, visited, ext)
+        seen = {s.input_node for s in visited}
+        for s in self.stages:
+            if s.input_node not in seen:
+                self.findings.append(Finding(s.input.where, s.input.path, f"{s.topology} {s.kind} mirror at "
+                                             f"{s.input_node} is not reached from the reference: not audited "
+                                             f"({len(s.devices)} devices)"))
+        self._devices(visited, plan)
+        self._globals(visited, plan)
+        self._leftovers(ref_devs)
+        return ext
+
+    def _subtree(self, node: str, edges: dict[str, list[Any]], seen: set[str] | None = None) -> int:
+        seen = set() if seen is None else seen
+        if node in seen:
+            return 0
+        seen.add(node)
+        return 1 + sum(self._subtree(c.input_node, edges, seen) for _, _, _, c in edges.get(node, []) if c)
+
+    def _walk(self, s: Stage, edges: dict[str, list[Any]], path: list[str], i_in: float, plan: dict[str, Any],
+              visited: list[Stage], ext: Extraction) -> None:
+        visited.append(s)
+        spec: dict[str, Any] = {"topology": s.topology, "branches": []}
+        self.origins[f"mirrors.{s.input_node}"] = [_at(d) for d in s.devices + s.sources]
+        plan["mirrors"][s.input_node] = spec
+        spec["_stage"] = s
+        for k, (node, size, devs, child) in enumerate(edges[s.input_node]):
+            ratio = size / s.input.size
+            if child is not None and child.input_node in path:
+                loop = " -> ".join(path[path.index(child.input_node):] + [child.input_node])
+                self.findings.append(Finding(devs[0].where, devs[0].path, f"feedback loop {loop}: this output is "
+                                             "not followed"))
+                continue
+            if child is not None and child.input_node in plan["mirrors"]:
+                continue
+            to = child.input_node if child is not None else self._load(node, devs, i_in * ratio, plan, s)
+            if to is None:
+                continue
+            spec["branches"].append({"to": to, "ratio": ratio})
+            ext.branch_origin[(s.input_node, len(spec["branches"]) - 1)] = ", ".join(d.path for d in devs)
+            out = next(o for o in s.outputs if o.node == node)
+            if (out.rail_offset or out.dtemp) and child is None:
+                fp = plan.setdefault("floorplan", {"remote": [], "offsets": {}})
+                fp["remote"].append(to)
+                fp["offsets"][to] = {"temperature": out.dtemp, "rail": out.rail_offset}
+                spec.setdefault("_hot", []).append(out)
+            elif out.rail_offset or out.dtemp:
+                self.findings.append(Finding(devs[0].where, devs[0].path, "offset rail or temperature on an output "
+                                             "into a mirror: the plan cannot hold it, ignored"))
+            if child is not None:
+                self._walk(child, edges, path + [child.input_node], i_in * ratio, plan, visited, ext)
+        if not spec["branches"]:
+            del plan["mirrors"][s.input_node]
+            visited.remove(s)
+            self.findings.append(Finding(s.input.where, s.input.path, f"mirror at {s.input_node} has no output "
+                                         "that could be followed: not audited"))
+
+    def _load(self, node: str, devs: list[Device], ideal: float, plan: dict[str, Any], s: Stage) -> str | None:
+        others = [d for d, _ in self.by_node.get(node, []) if d not in devs]
+        keys = [node] + [d.path for d in devs + others]
+        note = next((self.notes.loads[k] for k in keys if k in self.notes.loads), None)
+        name = note.name if note is not None and note.name else node
+        where = devs[0].where
+        load: dict[str, Any] = {}
+        load["current"] = note.current if note is not None and note.current is not None else ideal
+        tol = note.tolerance if note is not None and note.tolerance is not None else self.notes.defaults.tolerance
+        if tol is None:
+            self.missing.append(Finding(where, name, f"no tolerance: give loads.{node}.tolerance or "
+                                        "defaults.tolerance in the annotation file"))
+        else:
+            load["tolerance"] = tol
+        volt = note.voltage if note is not None and note.voltage is not None else self.r.volts.get(node)
+        volt = self.notes.defaults.voltage if volt is None else volt
+        if volt is None:
+            self.missing.append(Finding(where, name, f"no voltage: the netlist does not fix node {node}; give "
+                                        f"loads.{node}.voltage or defaults.voltage in the annotation file"))
+        else:
+            load["voltage"] = list(volt) if isinstance(volt, tuple) else volt
+        if name in plan["loads"]:
+            self.findings.append(Finding(where, name, "a second mirror output drives this load: kept as "
+                                         f"'{name}@{s.input_node}'"))
+            name = f"{name}@{s.input_node}"
+        plan["loads"][name] = load
+        self.origins[f"loads.{name}"] = [f"node {node}"] + [_at(d) for d in devs] + [_at(d) for d in others]
+        return name
+
+    # --- devices, supply, temperature -------------------------------------------
+
+    def _devices(self, visited: list[Stage], plan: dict[str, Any]) -> None:
+        lengths: dict[str, set[float]] = {}
+        for s in visited:
+            if family(s.kind) == "mos":
+                lengths.setdefault(s.input.card or "", set()).add(round(s.input.l or 0.0, 15))
+        units: dict[str, float] = {}
+        for s in visited:
+            spec = plan["mirrors"][s.input_node]
+            card = s.input.card or "?"
+            name = card
+            if family(s.kind) == "mos" and len(lengths[card]) > 1:
+                name = f"{card}_l{(s.input.l or 0) * 1e6:.4g}u"
+            for d in s.devices:
+                if d.card != s.input.card and not (d.dtemp and family(s.kind) == "mos"):
+                    self.findings.append(Finding(d.where, d.path, f"model {d.card} differs from the mirror's "
+                                                 f"{s.input.card}: the plan uses {s.input.card} for every device"))
+            if name not in plan["devices"]:
+                plan["devices"][name] = self._device(s, card)
+                units[name] = 1.0 if family(s.kind) == "bjt" else (s.input.w or 1.0) / (s.input.l or 1.0)
+            spec["device"] = name
+            spec["input_size"] = s.input.size / units[name]
+            for key, value in s.params.items():
+                spec[key] = value / (units[name] if key == "helper_size" else 1.0)
+            if s.topology == "wide_swing":
+                spec["swing_n"] = s.params["swing_n"]
+            for out in spec.pop("_hot", []):
+                self._hot_card(s, out, plan["devices"][name])
+
+    def _device(self, s: Stage, card_name: str) -> dict[str, Any]:
+        card = self.flat.cards.get(card_name)
+        given = self.notes.devices.get(card_name)
+        where = card.where if card else s.input.where
+        self.origins[f"devices.{card_name}"] = [f".model {card_name} ({card.where})" if card else
+                                               f"device subcircuit {card_name} (first used {s.input.where})"]
+        p = card.params if card else {}
+        dev: dict[str, Any] = {"kind": s.kind}
+        tnom = p.get("tnom", SPICE_TNOM_C)
+        if family(s.kind) == "bjt":
+            if card is None and (given is None or given.is_ is None or given.beta is None):
+                self.missing.append(Finding(where, card_name, "no .model card the plan can read: give "
+                                            f"devices.{card_name}: {{is, beta, early}} in the annotation file"))
+            for key, (field_, default) in _BJT_CARD.items():
+                dev[field_] = p.get(key, default)
+            vaf = p.get("vaf", p.get("va", 0.0))
+            if vaf > 0:
+                dev["early"] = vaf
+            unmodelled = _BJT_UNMODELLED
+        else:
+            level = p.get("level", 1.0)
+            if card is not None and level != 1 and (given is None or given.kp is None or given.vth is None):
+                self.missing.append(Finding(where, card_name, f"level {level:g} card: the plan needs square-law "
+                                            f"parameters; give devices.{card_name}: {{kp, vth, lambda}} in the annotation file"))
+            elif card is None and (given is None or given.kp is None or given.vth is None):
+                self.missing.append(Finding(where, card_name, "a PDK device: the plan needs square-law parameters; "
+                                            f"give devices.{card_name}: {{kp, vth, lambda}} in the annotation file"))
+            dev.update(kp=p.get("kp", 2e-5), vth=abs(p.get("vto", 0.0)), **{"lambda": p.get("lambda", 0.0)})
+            dev.update(w=s.input.w, l=s.input.l)
+            unmodelled = _MOS_UNMODELLED if level == 1 else {}
+        if given is not None:
+            for key, value in given.model_dump(by_alias=True, exclude_none=True).items():
+                dev[key] = value
+        if card is not None:
+            dev["tnom"] = f"{tnom:.12g}C"
+            odd = [k for k, default in unmodelled.items() if k in p and p[k] != default]
+            if odd:
+                self.findings.append(Finding(card.where, card_name, f"card parameters the plan's model does not "
+                                             f"have: {', '.join(odd)} (ignored)"))
+        if family(s.kind) == "mos" and not dev.get("vth"):
+            self.missing.append(Finding(where, card_name, "threshold VTO is 0 or missing: give devices."
+                                        f"{card_name}.vth in the annotation file"))
+        return dev
+
+    def _hot_card(self, s: Stage, out: Any, dev: dict[str, Any]) -> None:
+        """A warmer MOS output device with its own card: the pair of cards gives the temperature law."""
+        card = out.devices[0].card
+        if family(s.kind) != "mos" or card == s.input.card or card not in self.flat.cards:
+            return
+        hot = self.flat.cards[card].params
+        t = self.temperature_k
+        dt = out.dtemp
+        vth_tc = (abs(hot.get("vto", 0.0)) - dev["vth"]) / dt
+        mob = math.log(hot.get("kp", 2e-5) / dev["kp"]) / math.log((t + dt) / t)
+        for key, value in (("vth_tc", vth_tc), ("mobility_exp", mob)):
+            if key in dev and abs(dev[key] - value) > 1e-6 * max(1.0, abs(value)):
+                self.findings.append(Finding(out.devices[0].where, out.devices[0].path, f"its card {card} implies "
+                                             f"{key} = {value:.6g}, another device's {dev[key]:.6g}: the first is kept"))
+            dev.setdefault(key, value)
+
+    @property
+    def temperature_k(self) -> float:
+        if self.notes.temperature is not None:
+            return self.notes.temperature
+        return (self.flat.temperature if self.flat.temperature is not None else SPICE_TNOM_C) + 273.15
+
+    def _globals(self, visited: list[Stage], plan: dict[str, Any]) -> None:
+        plan["temperature"] = f"{self.temperature_k - 273.15:.12g}C"
+        supply = self.notes.supply
+        if supply is None:
+            rails = {self.r.volts[s.rail] for s in visited if s.kind not in SINKS and s.rail in self.r.volts}
+            touched = [self.r.volts[n] for n, items in self.by_node.items() if n in self.r.volts
+                       and any(d.kind in TRANSISTORS + ("isource",) for d, _ in items)]
+            supply = max(rails) if rails else (max(touched) if touched and max(touched) > 0 else None)
+        if supply is None:
+            self.missing.append(Finding(self.flat.source, "supply", "the netlist fixes no supply node: give "
+                                        "supply in the annotation file"))
+        else:
+            plan["supply"] = supply
+        plan["title"] = self.notes.title or f"extracted from {self.flat.source}"
+
+    def _leftovers(self, ref_devs: list[Device]) -> None:
+        used = set(self.r.claimed) | {d.path for d in ref_devs}
+        for d in self.flat.devices:
+            if d.path in used or d.kind in TRANSISTORS + ("vsource",):
+                continue
+            what = {"isource": "current source", "resistor": "resistor"}.get(d.kind, "element")
+            msg = f"{what} not part of the bias tree (not audited)" if d.kind != "other" else \
+                "element kind not supported by the extraction (not audited)"
+            self.findings.append(Finding(d.where, d.path, msg))
+
+
+def _no_tree(where: str, what: str, findings: list[Finding]) -> Exception:
+    from biastree.input.spice_text import SpiceError
+
+    err = SpiceError(where, what)
+    err.findings = findings  # type: ignore[attr-defined]
+    return err
+
+
+def extract(flat: Flat, notes: Annotations | None = None) -> Extraction:
+    """Recognise the mirrors of a flat netlist and build a plan of them.
+
+    >>> from biastree.input.netlist.flat import Device, Flat
+    >>> devs = [Device("v1", "vsource", ("vdd", "0"), value=3.0), Device("i1", "isource", ("vdd", "n"), value=1e-5),
+    ...         Device("q1", "npn", ("n", "n", "0"), "qn", card="qn"), Device("q2", "npn", ("o", "n", "0"), "qn",
+    ...         area=2, card="qn")]
+    >>> ext = extract(Flat(devs))
+    >>> ext.plan["mirrors"]["n"]["branches"], [m.format() for m in ext.missing][:1]
+    ([{'to': 'o', 'ratio': 2.0}], ['o: no tolerance: give loads.o.tolerance or defaults.tolerance in the annotation file'])
+    """
+    ext = _Builder(flat, notes or Annotations()).run()
+    for spec in ext.plan["mirrors"].values():
+        spec.pop("_stage", None)
+    return ext
