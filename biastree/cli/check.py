@@ -26,11 +26,18 @@ def check(
     k_sigma: Annotated[Optional[float], typer.Option(help="budgets must hold with this many σ of mismatch (plan default 3)")] = None,
     conditions: Annotated[bool, typer.Option(help="also solve the plan's temperatures, supplies and corners")] = True,
     mismatch: Annotated[bool, typer.Option(help="add k·σ of mismatch when devices carry matching coefficients")] = True,
+    annotate: Annotated[
+        Optional[Path], typer.Option("--annotate", help="a SPICE netlist given: its load budgets (see `extract`)")
+    ] = None,
+    top: Annotated[Optional[str], typer.Option("--top", help="a SPICE netlist given: the subcircuit to audit")] = None,
 ) -> None:
     """Solve the plan and audit every load against its budget (exit 1 if any fails)."""
     if k_sigma is not None and k_sigma <= 0:
         raise BiasTreeError("--k-sigma: must be > 0")
-    result = biastree.check(load_tree(plan, forward_bias), conditions=conditions, mismatch=mismatch, k_sigma=k_sigma)
+    from biastree.cli.extract import is_netlist, netlist_tree
+
+    tree = netlist_tree(plan, annotate, top, forward_bias) if is_netlist(plan) or annotate else load_tree(plan, forward_bias)
+    result = biastree.check(tree, conditions=conditions, mismatch=mismatch, k_sigma=k_sigma)
     if json:
         from biastree.output.json import to_json
 

@@ -54,6 +54,8 @@ class _Builder:
         self.missing: list[Finding] = []
         self.origins: dict[str, list[str]] = {}
         self.by_node = flat.by_node()
+        self.load_nodes: dict[str, str] = {}
+        self.skipped: set[str] = set()  # sources already reported
         for s in self.stages:
             self.findings += s.notes
 
@@ -107,8 +109,8 @@ class _Builder:
                                                  f"{name}: only the first is followed"))
                 else:
                     parents[node] = name
-        roots = [s for s in self.stages if s.input_node not in parents]
-        fed = [(s, *self.reference(s)) for s in roots]
+        # the reference feeds a mirror no other mirror feeds; inside a loop it may feed one that another does
+        fed = [(s, *self.reference(s)) for s in self.stages]
         fed = [f for f in fed if f[1]]
         if not fed:
             where = self.flat.source if not self.stages else self.stages[0].input.where
@@ -116,11 +118,14 @@ class _Builder:
                 "no current source or rail resistor feeds a mirror that no other mirror feeds"
             raise _no_tree(where, what, self.findings)
         size = {s.input_node: self._subtree(s.input_node, edges) for s, *_ in fed}
-        fed.sort(key=lambda f: -size[f[0].input_node])
+        fed.sort(key=lambda f: (f[0].input_node in parents, -size[f[0].input_node]))
         root, ref_devs, i_ref, res_ref = fed[0]
+        loops = self._loops(edges)
         for s, devs, *_ in fed[1:]:
             self.findings.append(Finding(devs[0].where, devs[0].path, f"a second reference (into {s.input_node}): "
                                          "one reference per plan, its tree is not audited"))
+            ref_devs_other = devs
+            self.skipped.update(d.path for d in ref_devs_other)
         plan: dict[str, Any] = {"mirrors": {}, "loads": {}, "devices": {}}
         ext = Extraction(plan, self.origins, self.findings, self.missing)
         if res_ref is not None:
@@ -141,13 +146,30 @@ class _Builder:
         seen = {s.input_node for s in visited}
         for s in self.stages:
             if s.input_node not in seen:
+                loop = f", part of the feedback loop {loops[s.input_node]}" if s.input_node in loops else ""
                 self.findings.append(Finding(s.input.where, s.input.path, f"{s.topology} {s.kind} mirror at "
-                                             f"{s.input_node} is not reached from the reference: not audited "
+                                             f"{s.input_node} is not reached from the reference{loop}: not audited "
                                              f"({len(s.devices)} devices)"))
         self._devices(visited, plan)
         self._globals(visited, plan)
         self._leftovers(ref_devs)
         return ext
+
+    def _loops(self, edges: dict[str, list[Any]]) -> dict[str, str]:
+        """Mirror input node -> the loop it lies on, written as a path ``a -> b -> a``."""
+        out: dict[str, str] = {}
+        for start in edges:
+            stack = [(start, [start])]
+            while stack:
+                node, path = stack.pop()
+                for _, _, _, child in edges.get(node, []):
+                    if child is None:
+                        continue
+                    if child.input_node == start:
+                        out.setdefault(start, " -> ".join(path + [start]))
+                    elif child.input_node not in path:
+                        stack.append((child.input_node, path + [child.input_node]))
+        return out
 
     def _subtree(self, node: str, edges: dict[str, list[Any]], seen: set[str] | None = None) -> int:
         seen = set() if seen is None else seen
@@ -220,6 +242,7 @@ class _Builder:
                                          f"'{name}@{s.input_node}'"))
             name = f"{name}@{s.input_node}"
         plan["loads"][name] = load
+        self.load_nodes[node] = name
         self.origins[f"loads.{name}"] = [f"node {node}"] + [_at(d) for d in devs] + [_at(d) for d in others]
         return name
 
@@ -335,14 +358,28 @@ class _Builder:
         plan["title"] = self.notes.title or f"extracted from {self.flat.source}"
 
     def _leftovers(self, ref_devs: list[Device]) -> None:
-        used = set(self.r.claimed) | {d.path for d in ref_devs}
+        used = set(self.r.claimed) | {d.path for d in ref_devs} | self.skipped
+        devices = {d.path: d for d in self.flat.devices}
+        for k, f in enumerate(self.findings):  # transistors the recogniser left: say which block they belong to
+            d = devices.get(f.subject)
+            block = self._block_of(d) if d is not None and d.path not in used else None
+            if block is not None and "part of no" in f.message:
+                self.findings[k] = Finding(f.where, f.subject, f"part of load {block}, not of the bias tree")
         for d in self.flat.devices:
             if d.path in used or d.kind in TRANSISTORS + ("vsource",):
                 continue
+            block = self._block_of(d)
             what = {"isource": "current source", "resistor": "resistor"}.get(d.kind, "element")
-            msg = f"{what} not part of the bias tree (not audited)" if d.kind != "other" else \
-                "element kind not supported by the extraction (not audited)"
+            if block is not None:
+                msg = f"{what} of load {block}, not of the bias tree"
+            elif d.kind == "other":
+                msg = "element kind not supported by the extraction (not audited)"
+            else:
+                msg = f"{what} not part of the bias tree (not audited)"
             self.findings.append(Finding(d.where, d.path, msg))
+
+    def _block_of(self, d: Device) -> str | None:
+        return next((self.load_nodes[n] for n in d.nodes if n in self.load_nodes), None)
 
 
 def _no_tree(where: str, what: str, findings: list[Finding]) -> Exception:

@@ -348,6 +348,10 @@ class Recogniser:
                        f"rail {s.rail}: control net shared across rails (not audited)")
             elif s is not None:
                 msg = f"a {d.kind} on the control net of a {s.kind} mirror at {s.input_node}: not audited"
+            elif d.rail_side in stage_of and stage_of[d.rail_side].kind == d.kind:
+                msg = (f"its {'emitter' if family(d.kind) == 'bjt' else 'source'} sits on the diode node "
+                       f"{d.rail_side} of a mirror: a feedback structure not in the registry "
+                       f"(e.g. a {d.kind} Wilson), not audited")
             elif d.output == d.control:
                 msg = "diode-connected, but no device mirrors it from the same rail: part of no mirror"
             else:

@@ -1,0 +1,102 @@
+"""Command that reads an existing design: extract (and the netlist path of check)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+
+import biastree
+from biastree.cli.app import app, emit, guarded
+from biastree.errors import BiasTreeError
+
+NETLIST_SUFFIXES = (".spice", ".sp", ".cir", ".net", ".ckt", ".spi")
+_RESISTOR_ITER = 60
+
+
+def is_netlist(path: Path) -> bool:
+    return path.suffix.lower() in NETLIST_SUFFIXES
+
+
+def extract_text(netlist: Path, annotate: Optional[Path] = None, top: Optional[str] = None) -> tuple[str, list[str]]:
+    """(plan YAML, notes) of a netlist; raises ``BiasTreeError`` listing every missing value."""
+    from biastree.input.netlist.annotate import read_annotations
+    from biastree.input.netlist.extract import extract
+    from biastree.input.netlist.flatten import read_netlist
+    from biastree.input.netlist.to_plan import to_plan_yaml
+
+    notes = read_annotations(annotate)
+    ext = extract(read_netlist(netlist, top), notes)
+    if ext.missing:
+        raise BiasTreeError("\n".join(m.format() for m in ext.missing))
+    header = [f"Plan extracted by biastree {biastree.__version__} from {netlist}"
+              + (f" (top cell {top})" if top else "") + (f", budgets from {annotate}" if annotate else ""),
+              "Names are the netlist's nodes; each comment lists the instances (file:line) behind an entry."]
+    text = to_plan_yaml(ext, header)
+    if ext.resistor_reference is not None and notes.reference.current is None:
+        text = _resistor_reference(ext, header)
+    biastree.loads(text, f"{netlist} (extracted plan)")  # the plan written is always valid
+    return text, [f.format() for f in ext.findings]
+
+
+def _resistor_reference(ext: "object", header: list[str]) -> str:
+    """Solve a resistor-defined reference: I = (V_R − V_in(I))/R with V_in the root mirror's solved input voltage."""
+    from biastree.analysis.solve import solve
+    from biastree.input.netlist.to_plan import to_plan_yaml
+
+    resistance, drop = ext.resistor_reference  # type: ignore[attr-defined]
+    plan = ext.plan  # type: ignore[attr-defined]
+    current = plan["reference"]["current"]
+    for _ in range(_RESISTOR_ITER):
+        plan["reference"]["current"] = current
+        tree = biastree.loads(to_plan_yaml(ext, header), "extracted plan")  # type: ignore[arg-type]
+        v_in = float(solve(tree, None, output_resistance=False).m_v_in[0, 1])
+        new = (drop - v_in) / resistance
+        if new <= 0:
+            raise BiasTreeError(f"reference resistor: {drop:g} V across it and the input leaves no current")
+        if abs(new - current) <= 1e-14 * abs(new):
+            break
+        current = new
+    plan["reference"]["current"] = new
+    header.append(f"Reference current solved from the resistor: ({drop:.6g} V - V_in) / {resistance:.6g} ohm.")
+    return to_plan_yaml(ext, header)  # type: ignore[arg-type]
+
+
+def netlist_tree(netlist: Path, annotate: Optional[Path], top: Optional[str],
+                 forward_bias: Optional[str] = None) -> biastree.Tree:
+    """The tree of a netlist's extracted plan; notes (unclassified devices) go to stderr."""
+    text, notes = extract_text(netlist, annotate, top)
+    for line in notes:
+        typer.echo(f"note: {line}", err=True)
+    tree = biastree.loads(text, f"{netlist} (extracted plan)")
+    if forward_bias is not None:
+        from biastree.input.model import Compliance
+        from biastree.units import UnitError, parse_quantity
+
+        try:
+            value = parse_quantity(forward_bias, "V")
+        except UnitError as exc:
+            raise BiasTreeError(f"--forward-bias: {exc}") from None
+        if value < 0:
+            raise BiasTreeError("--forward-bias: must be ≥ 0 V")
+        tree = biastree.build(tree.plan.model_copy(update={"compliance": Compliance(bjt_forward_bias=value)}),
+                              source=str(netlist))
+    return tree
+
+
+@app.command()
+@guarded
+def extract(
+    netlist: Annotated[Path, typer.Argument(help="SPICE netlist (ngspice dialect)", show_default=False)],
+    output: Annotated[Optional[Path], typer.Option("-o", "--output", help="plan file to write (stdout if omitted)")] = None,
+    annotate: Annotated[
+        Optional[Path], typer.Option("--annotate", help="YAML file with load budgets, voltages and device parameters")
+    ] = None,
+    top: Annotated[Optional[str], typer.Option("--top", help="subcircuit to extract instead of the top level")] = None,
+) -> None:
+    """Recognise the current mirrors of a netlist and write them as a plan (notes on stderr)."""
+    text, notes = extract_text(netlist, annotate, top)
+    for line in notes:
+        typer.echo(f"note: {line}", err=True)
+    emit(text, output)
