@@ -27,7 +27,12 @@ def extract_text(netlist: Path, annotate: Optional[Path] = None, top: Optional[s
     from biastree.input.netlist.to_plan import to_plan_yaml
 
     notes = read_annotations(annotate)
-    ext = extract(read_netlist(netlist, top), notes)
+    try:
+        ext = extract(read_netlist(netlist, top), notes)
+    except BiasTreeError as exc:  # no tree at all: still list what was found and not classified
+        for finding in getattr(exc, "findings", []):
+            typer.echo(f"note: {finding.format()}", err=True)
+        raise
     if ext.missing:
         raise BiasTreeError("\n".join(m.format() for m in ext.missing))
     header = [f"Plan extracted by biastree {biastree.__version__} from {netlist}"

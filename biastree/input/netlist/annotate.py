@@ -5,6 +5,7 @@ or by the instance name of any element on that node (the output device
 driving it, the block's own instance).
 
 ```yaml
+rails: {vdd: 1.8V}                            # nodes no source fixes (a cell's supply port)
 defaults: {tolerance: 5%, voltage: 1.2V}     # used where a load gives none
 reference: {tolerance: 1%}
 loads:
@@ -85,6 +86,9 @@ class Annotations(_Strict):
 
     title: Optional[str] = Field(default=None, description="plan title (default: names the netlist)")
     supply: Optional[PositiveVoltage] = Field(default=None, description="supply voltage (default: read from the netlist)")
+    rails: dict[str, Voltage] = Field(
+        default_factory=dict, description="DC voltages of nodes no source in the netlist fixes (a cell's supply port)"
+    )
     temperature: Optional[Temperature] = Field(default=None, description="die temperature (default: .temp, else 27C)")
     reference: ReferenceNote = Field(default_factory=ReferenceNote, description="reference tolerance and tempco")
     defaults: Defaults = Field(default_factory=Defaults, description="values for loads that give none")

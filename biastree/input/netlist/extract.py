@@ -48,7 +48,7 @@ def _at(d: Device) -> str:
 class _Builder:
     def __init__(self, flat: Flat, notes: Annotations) -> None:
         self.flat, self.notes = flat, notes
-        self.r = Recogniser(flat)
+        self.r = Recogniser(flat, {k.lower(): v for k, v in notes.rails.items()})
         self.stages = self.r.run()
         self.findings: list[Finding] = list(flat.notes) + self.r.findings
         self.missing: list[Finding] = []
@@ -113,9 +113,10 @@ class _Builder:
         fed = [(s, *self.reference(s)) for s in self.stages]
         fed = [f for f in fed if f[1]]
         if not fed:
-            where = self.flat.source if not self.stages else self.stages[0].input.where
+            where = f"{self.flat.source}:1" if not self.stages else self.stages[0].input.where
             what = "no current mirror found" if not self.stages else \
                 "no current source or rail resistor feeds a mirror that no other mirror feeds"
+            self._leftovers([])
             raise _no_tree(where, what, self.findings)
         size = {s.input_node: self._subtree(s.input_node, edges) for s, *_ in fed}
         fed.sort(key=lambda f: (f[0].input_node in parents, -size[f[0].input_node]))
@@ -352,7 +353,7 @@ class _Builder:
             supply = max(rails) if rails else (max(touched) if touched and max(touched) > 0 else None)
         if supply is None:
             self.missing.append(Finding(self.flat.source, "supply", "the netlist fixes no supply node: give "
-                                        "supply in the annotation file"))
+                                        "supply (or rails: {NODE: VOLTAGE}) in the annotation file"))
         else:
             plan["supply"] = supply
         plan["title"] = self.notes.title or f"extracted from {self.flat.source}"

@@ -63,10 +63,10 @@ class Stage:
         return self.kind in SINKS
 
 
-def fixed_voltages(devices: Iterable[Device]) -> dict[str, float]:
-    """DC voltage of every node tied to ground through voltage sources."""
+def fixed_voltages(devices: Iterable[Device], given: dict[str, float] | None = None) -> dict[str, float]:
+    """DC voltage of every node tied to ground (or to a ``given`` node) through voltage sources."""
     sources = [d for d in devices if d.kind == "vsource" and d.value is not None]
-    volts = {GROUND: 0.0}
+    volts = {GROUND: 0.0, **(given or {})}
     changed = True
     while changed:
         changed = False
@@ -84,9 +84,9 @@ def fixed_voltages(devices: Iterable[Device]) -> dict[str, float]:
 class Recogniser:
     """Match mirror patterns on one flat netlist; every device ends claimed or reported."""
 
-    def __init__(self, flat: Flat) -> None:
+    def __init__(self, flat: Flat, rails: dict[str, float] | None = None) -> None:
         self.flat = flat
-        self.volts = fixed_voltages(flat.devices)
+        self.volts = fixed_voltages(flat.devices, rails)
         self.transistors = [d for d in flat.devices if d.kind in TRANSISTORS]
         self.ctrl: dict[str, list[Device]] = {}
         self.out: dict[str, list[Device]] = {}
@@ -359,8 +359,8 @@ class Recogniser:
             self.findings.append(Finding(d.where, d.path, msg))
 
 
-def recognise(flat: Flat) -> tuple[list[Stage], list[Finding], dict[str, float]]:
+def recognise(flat: Flat, rails: dict[str, float] | None = None) -> tuple[list[Stage], list[Finding], dict[str, float]]:
     """(mirrors, unclassified transistors, fixed node voltages) of a flat netlist."""
-    r = Recogniser(flat)
+    r = Recogniser(flat, rails)
     stages = r.run()
     return stages, r.findings, r.volts
