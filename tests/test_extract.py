@@ -247,3 +247,23 @@ def test_annotation_file_is_strict(tmp_path: Path) -> None:
     assert f"{path}:3:" in str(info.value)
     result = runner.invoke(app, ["extract", str(NETLISTS / "topologies.spice"), "--annotate", str(path)])
     assert result.exit_code == 2 and "unknown key" in result.output
+
+
+@pytest.mark.ngspice
+def test_resistor_reference_solved_and_matches_ngspice(ngspice: None, tmp_path: Path) -> None:
+    """I_ref = (V_supply − V_BE(I_ref))/R, solved with the plan's own mirror model; ngspice on the netlist agrees."""
+    from biastree.sim.verify import run_ngspice
+
+    netlist = NETLISTS / "resistor_reference.spice"
+    tree, _ = _extracted(netlist, _annotation(tmp_path))
+    op = solve(tree, None, output_resistance=False)
+    i_ref = tree.plan.reference.current
+    v_in = float(op.m_v_in[0, 1])
+    assert i_ref == pytest.approx((3.3 - v_in) / 100e3, rel=1e-12)  # the fixed point itself
+    # ideal targets follow the solved reference: Q3 (area 1) and M2 (m=3) after Q2 (area 2)
+    assert tree.plan.loads["out_q"].current == pytest.approx(i_ref, rel=1e-12)
+    assert tree.plan.loads["out_m"].current == pytest.approx(6 * i_ref, rel=1e-12)
+    sim = run_ngspice(netlist.read_text().replace("\n", "\n.options filetype=ascii\n", 1))
+    for i, (load, ammeter) in enumerate((("out_m", "vm"), ("out_q", "vq"))):
+        j = tree.loads.index(load)
+        assert op.l_current[j, 1] == pytest.approx(abs(float(sim[f"i({ammeter})"][0])), rel=1e-6), load

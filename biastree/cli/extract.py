@@ -52,7 +52,7 @@ def _resistor_reference(ext: "object", header: list[str]) -> str:
 
     resistance, drop = ext.resistor_reference  # type: ignore[attr-defined]
     plan = ext.plan  # type: ignore[attr-defined]
-    current = plan["reference"]["current"]
+    current = first = plan["reference"]["current"]
     for _ in range(_RESISTOR_ITER):
         plan["reference"]["current"] = current
         tree = biastree.loads(to_plan_yaml(ext, header), "extracted plan")  # type: ignore[arg-type]
@@ -63,7 +63,11 @@ def _resistor_reference(ext: "object", header: list[str]) -> str:
         if abs(new - current) <= 1e-14 * abs(new):
             break
         current = new
+    else:
+        raise BiasTreeError(f"reference resistor: the current did not settle in {_RESISTOR_ITER} steps")
     plan["reference"]["current"] = new
+    for name in ext.ideal_loads:  # type: ignore[attr-defined]
+        plan["loads"][name]["current"] *= new / first  # ideal targets follow the solved reference
     header.append(f"Reference current solved from the resistor: ({drop:.6g} V - V_in) / {resistance:.6g} ohm.")
     return to_plan_yaml(ext, header)  # type: ignore[arg-type]
 

@@ -39,6 +39,7 @@ class Extraction:
     missing: list[Finding] = field(default_factory=list)  # needed values nobody gave
     resistor_reference: tuple[float, float] | None = None  # (R, voltage across R and the input) when resistor-fed
     branch_origin: dict[tuple[str, int], str] = field(default_factory=dict)
+    ideal_loads: set[str] = field(default_factory=set)  # loads whose target is the ideal mirrored current
 
 
 def _at(d: Device) -> str:
@@ -56,6 +57,7 @@ class _Builder:
         self.by_node = flat.by_node()
         self.load_nodes: dict[str, str] = {}
         self.skipped: set[str] = set()  # sources already reported
+        self.ideal: set[str] = set()
         for s in self.stages:
             self.findings += s.notes
 
@@ -128,7 +130,7 @@ class _Builder:
             ref_devs_other = devs
             self.skipped.update(d.path for d in ref_devs_other)
         plan: dict[str, Any] = {"mirrors": {}, "loads": {}, "devices": {}}
-        ext = Extraction(plan, self.origins, self.findings, self.missing)
+        ext = Extraction(plan, self.origins, self.findings, self.missing, ideal_loads=self.ideal)
         if res_ref is not None:
             ext.resistor_reference = res_ref
             # a first estimate; the caller refines it with the solved input voltage
@@ -224,7 +226,8 @@ class _Builder:
         name = note.name if note is not None and note.name else node
         where = devs[0].where
         load: dict[str, Any] = {}
-        load["current"] = note.current if note is not None and note.current is not None else ideal
+        given = note is not None and note.current is not None
+        load["current"] = note.current if given else ideal  # type: ignore[union-attr]
         tol = note.tolerance if note is not None and note.tolerance is not None else self.notes.defaults.tolerance
         if tol is None:
             self.missing.append(Finding(where, name, f"no tolerance: give loads.{node}.tolerance or "
@@ -244,6 +247,8 @@ class _Builder:
             name = f"{name}@{s.input_node}"
         plan["loads"][name] = load
         self.load_nodes[node] = name
+        if not given:
+            self.ideal.add(name)
         self.origins[f"loads.{name}"] = [f"node {node}"] + [_at(d) for d in devs] + [_at(d) for d in others]
         return name
 
