@@ -321,7 +321,7 @@ class _Builder:
             if odd:
                 self.findings.append(Finding(card.where, card_name, f"card parameters the plan's model does not "
                                              f"have: {', '.join(odd)} (ignored)"))
-        if family(s.kind) == "mos" and not dev.get("vth"):
+        if family(s.kind) == "mos" and not dev.get("vth") and not any(m.subject == card_name for m in self.missing):
             self.missing.append(Finding(where, card_name, "threshold VTO is 0 or missing: give devices."
                                         f"{card_name}.vth in the annotation file"))
         return dev
