@@ -68,7 +68,11 @@ def emit(text: str, output: Optional[Path]) -> None:
 
 
 def load_tree(plan: Path, forward_bias: Optional[str] = None) -> biastree.Tree:
-    tree = biastree.load(plan)
+    return with_forward_bias(biastree.load(plan), forward_bias, str(plan))
+
+
+def with_forward_bias(tree: biastree.Tree, forward_bias: Optional[str], source: str) -> biastree.Tree:
+    """The tree with ``--forward-bias`` applied (unchanged when not given)."""
     if forward_bias is not None:
         from biastree.input.model import Compliance
         from biastree.units import UnitError, parse_quantity
@@ -80,7 +84,7 @@ def load_tree(plan: Path, forward_bias: Optional[str] = None) -> biastree.Tree:
         if value < 0:
             raise BiasTreeError("--forward-bias: must be ≥ 0 V")
         new = tree.plan.model_copy(update={"compliance": Compliance(bjt_forward_bias=value)})
-        tree = biastree.build(new, source=str(plan))
+        tree = biastree.build(new, source=source)
     return tree
 
 

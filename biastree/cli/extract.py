@@ -8,7 +8,7 @@ from typing import Annotated, Optional
 import typer
 
 import biastree
-from biastree.cli.app import app, emit, guarded
+from biastree.cli.app import app, emit, guarded, with_forward_bias
 from biastree.errors import BiasTreeError
 
 NETLIST_SUFFIXES = (".spice", ".sp", ".cir", ".net", ".ckt", ".spi")
@@ -68,30 +68,21 @@ def _resistor_reference(ext: "object", header: list[str]) -> str:
     plan["reference"]["current"] = new
     for name in ext.ideal_loads:  # type: ignore[attr-defined]
         plan["loads"][name]["current"] *= new / first  # ideal targets follow the solved reference
-    header.append(f"Reference current solved from the resistor: ({drop:.6g} V - V_in) / {resistance:.6g} ohm.")
+    header.append(f"Reference current solved from the resistor: ({drop:.6g} V - V_in) / {resistance:.6g} ohm, "
+                  "at the netlist's supply and temperature; conditions hold it fixed.")
     return to_plan_yaml(ext, header)  # type: ignore[arg-type]
 
 
 def netlist_tree(netlist: Path, annotate: Optional[Path], top: Optional[str],
                  forward_bias: Optional[str] = None) -> biastree.Tree:
     """The tree of a netlist's extracted plan; notes (unclassified devices) go to stderr."""
+    if netlist.suffix.lower() in (".yaml", ".yml", ".json"):
+        raise BiasTreeError(f"{netlist}: --annotate and --top are for a SPICE netlist, not a plan file")
     text, notes = extract_text(netlist, annotate, top)
     for line in notes:
         typer.echo(f"note: {line}", err=True)
     tree = biastree.loads(text, f"{netlist} (extracted plan)")
-    if forward_bias is not None:
-        from biastree.input.model import Compliance
-        from biastree.units import UnitError, parse_quantity
-
-        try:
-            value = parse_quantity(forward_bias, "V")
-        except UnitError as exc:
-            raise BiasTreeError(f"--forward-bias: {exc}") from None
-        if value < 0:
-            raise BiasTreeError("--forward-bias: must be ≥ 0 V")
-        tree = biastree.build(tree.plan.model_copy(update={"compliance": Compliance(bjt_forward_bias=value)}),
-                              source=str(netlist))
-    return tree
+    return with_forward_bias(tree, forward_bias, str(netlist))
 
 
 @app.command()

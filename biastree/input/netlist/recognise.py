@@ -136,6 +136,14 @@ class Recogniser:
         return Output(top.output, [dev] + ([cascode] if cascode else []), dev.size, off, dev.dtemp - base.dtemp)
 
     def claim(self, stage: Stage) -> Stage:
+        if family(stage.kind) == "mos":
+            ref = stage.input
+            for out in stage.outputs:
+                o = out.devices[0]
+                if (o.w, o.l) != (ref.w, ref.l):
+                    stage.notes.append(Finding(o.where, o.path, f"W/L {o.w:g}/{o.l:g} differs from the input's "
+                                               f"{ref.w:g}/{ref.l:g}: ratio taken from W/L (exact for the square "
+                                               "law; with a real model use m= copies of one unit device)"))
         for d in stage.devices + stage.sources:
             self.claimed.add(d.path)
         self.stages.append(stage)
@@ -284,14 +292,8 @@ class Recogniser:
         if not helpers:
             return None
         h = helpers[0]
-        outputs, devs = [], [q, h]
-        for o in self.free(self.ctrl.get(b, []), q.kind):
-            if o is q:
-                continue
-            out = self.output_of(o, rail, q)
-            if out is not None:
-                outputs.append(out)
-                devs.append(o)
+        outputs, devs = self._plain_outputs(b, rail, q)
+        devs = [q, h] + devs
         if not outputs:
             return None
         params = {"helper_size": h.size}
@@ -305,17 +307,20 @@ class Recogniser:
         if d.output != d.control or not self.on_rail(d):
             return None
         n, rail = d.output, d.rail_side
-        outputs, devs, notes = [], [d], []
-        for o in self.free(self.ctrl.get(n, []), d.kind):
-            if o is d:
-                continue
-            out = self.output_of(o, rail, d)
+        outputs, devs = self._plain_outputs(n, rail, d)
+        if not outputs:
+            return None
+        return self.claim(Stage("simple", d.kind, n, rail, d, [d] + devs, outputs, {}, []))
+
+    def _plain_outputs(self, line: str, rail: str, base: Device) -> tuple[list[Output], list[Device]]:
+        """Devices on the base/gate ``line`` whose emitters/sources sit on ``rail`` (or nearly)."""
+        outputs, devs = [], []
+        for o in self.free(self.ctrl.get(line, []), base.kind):
+            out = None if o is base else self.output_of(o, rail, base)
             if out is not None:
                 outputs.append(out)
                 devs.append(o)
-        if not outputs:
-            return None
-        return self.claim(Stage("simple", d.kind, n, rail, d, devs, outputs, {}, notes))
+        return outputs, devs
 
     # --- the whole netlist -------------------------------------------------------
 
