@@ -325,3 +325,27 @@ def test_sky130_netlist_extracted_and_simulated(sky130_root: Path, ngspice: None
     sim = parse_raw((tmp_path / "out.raw").read_text())[0]
     for load, ammeter in (("out_n", "vn"), ("out_p", "vp")):
         assert abs(float(sim[f"i({ammeter})"][0])) == pytest.approx(tree.plan.loads[load].current, rel=0.10)
+
+
+def test_multiplicity_down_the_hierarchy_and_four_terminal_bipolars(tmp_path: Path) -> None:
+    """X-instance m= multiplies every device inside; Q with a substrate node; .global nets; dummies listed."""
+    netlist = tmp_path / "cells.spice"
+    netlist.write_text(
+        "unit-cell style (invented)\n"
+        ".global VCC\n"
+        ".model qn npn (is=1e-16 bf=100 vaf=80)\n"
+        ".SUBCKT unit c b PARAMS: a=1\n"
+        "Q0 c b 0 sub qn {a}\n"  # four terminals, area from the cell parameter
+        ".ENDS\n"
+        "vcc vcc 0 5\n"
+        "iref vcc n 10u\n"
+        "xin n n unit\n"
+        "xout o n unit m=3 a=2\n"  # 3 copies of area 2: ratio 6
+        "vo o 0 2\n"
+        "qdummy vcc 0 0 sub qn\n",  # base on ground: a dummy
+        encoding="utf-8")
+    tree, notes = _extracted(netlist, _annotation(tmp_path))
+    assert _tree_shape(tree) == {"n": ("simple", "npn", [("o", 6.0)])}
+    assert tree.plan.loads["o"].current == pytest.approx(60e-6)
+    assert notes == [f"{netlist}:12: qdummy: its base/gate is on the fixed node 0: a dummy or biased device, "
+                     "not a mirror"]

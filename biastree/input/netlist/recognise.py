@@ -304,8 +304,8 @@ class Recogniser:
         return self.claim(Stage("beta_helper", q.kind, n, rail, q, devs, outputs, params, [], bleeds))
 
     def simple(self, d: Device) -> Stage | None:
-        if d.output != d.control or not self.on_rail(d):
-            return None
+        if d.output != d.control or not self.on_rail(d) or self.is_rail(d.control):
+            return None  # a device with its base/gate on a fixed node is a dummy, not a diode
         n, rail = d.output, d.rail_side
         outputs, devs = self._plain_outputs(n, rail, d)
         if not outputs:
@@ -346,7 +346,9 @@ class Recogniser:
             if d.path in self.claimed:
                 continue
             s = stage_of.get(d.control)
-            if s is not None and s.kind == d.kind:
+            if self.is_rail(d.control):
+                msg = f"its base/gate is on the fixed node {d.control}: a dummy or biased device, not a mirror"
+            elif s is not None and s.kind == d.kind:
                 where = d.rail_side if d.rail_side not in self.volts else f"{d.rail_side} ({self.volts[d.rail_side]:g} V)"
                 msg = (f"shares the control net {d.control} of the mirror at {s.input_node} but its "
                        f"{'emitter' if family(d.kind) == 'bjt' else 'source'} is on {where}, not on the mirror's "
