@@ -349,3 +349,16 @@ def test_multiplicity_down_the_hierarchy_and_four_terminal_bipolars(tmp_path: Pa
     assert tree.plan.loads["o"].current == pytest.approx(60e-6)
     assert notes == [f"{netlist}:12: qdummy: its base/gate is on the fixed node 0: a dummy or biased device, "
                      "not a mirror"]
+
+
+def test_annotation_names_that_match_nothing_are_errors(tmp_path: Path) -> None:
+    path = _annotation(tmp_path, "defaults: {tolerance: 5%}\nloads:\n  out_wil: {tolerance: 2%}\n"
+                                 "  out_nowhere: {tolerance: 2%}\ndevices:\n  qx: {beta: 50}\n")
+    result = runner.invoke(app, ["extract", str(NETLISTS / "topologies.spice"), "--annotate", str(path)])
+    assert result.exit_code == 2
+    errors = [line for line in result.output.splitlines() if line.startswith("error:")]
+    assert errors == [
+        f"error: {path}:4: loads.out_nowhere: no load node, or instance on a load node, of that name in the "
+        "extracted tree",
+        f"error: {path}:6: devices.qx: no mirror uses a card of that name (cards: nch, pch, qlp, qn)",
+    ]

@@ -36,7 +36,8 @@ def check(
         raise BiasTreeError("--k-sigma: must be > 0")
     from biastree.cli.extract import is_netlist, netlist_tree
 
-    tree = netlist_tree(plan, annotate, top, forward_bias) if is_netlist(plan) or annotate else load_tree(plan, forward_bias)
+    netlist = is_netlist(plan) or annotate is not None or top is not None
+    tree = netlist_tree(plan, annotate, top, forward_bias) if netlist else load_tree(plan, forward_bias)
     result = biastree.check(tree, conditions=conditions, mismatch=mismatch, k_sigma=k_sigma)
     if json:
         from biastree.output.json import to_json

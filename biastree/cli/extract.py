@@ -34,7 +34,7 @@ def extract_text(netlist: Path, annotate: Optional[Path] = None, top: Optional[s
             typer.echo(f"note: {finding.format()}", err=True)
         raise
     if ext.missing:
-        raise BiasTreeError("\n".join(m.format() for m in ext.missing))
+        raise BiasTreeError("\n".join(_placed(m, annotate) for m in ext.missing))
     header = [f"Plan extracted by biastree {biastree.__version__} from {netlist}"
               + (f" (top cell {top})" if top else "") + (f", budgets from {annotate}" if annotate else ""),
               "Names are the netlist's nodes; each comment lists the instances (file:line) behind an entry."]
@@ -43,6 +43,17 @@ def extract_text(netlist: Path, annotate: Optional[Path] = None, top: Optional[s
         text = _resistor_reference(ext, header)
     biastree.loads(text, f"{netlist} (extracted plan)")  # the plan written is always valid
     return text, [f.format() for f in ext.findings]
+
+
+def _placed(finding: "object", annotate: Optional[Path]) -> str:
+    """A finding about the annotation file itself, placed at its line there."""
+    if getattr(finding, "where") != "annotation" or annotate is None:
+        return finding.format()  # type: ignore[attr-defined]
+    from biastree.input.loader import parse_text, read_text
+
+    doc = parse_text(read_text(annotate), str(annotate))
+    path = tuple(finding.subject.split(".", 1))  # type: ignore[attr-defined]
+    return f"{annotate}:{doc.line_of(path)}: {finding.subject}: {finding.message}"  # type: ignore[attr-defined]
 
 
 def _resistor_reference(ext: "object", header: list[str]) -> str:

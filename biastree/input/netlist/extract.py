@@ -58,6 +58,7 @@ class _Builder:
         self.load_nodes: dict[str, str] = {}
         self.skipped: set[str] = set()  # sources already reported
         self.ideal: set[str] = set()
+        self.used: set[str] = set()  # annotation load keys that matched
         for s in self.stages:
             self.findings += s.notes
 
@@ -155,6 +156,7 @@ class _Builder:
                                              f"({len(s.devices)} devices)"))
         self._devices(visited, plan)
         self._globals(visited, plan)
+        self._unused_notes(plan)
         self._leftovers(ref_devs)
         return ext
 
@@ -173,6 +175,18 @@ class _Builder:
                     elif child.input_node not in path:
                         stack.append((child.input_node, path + [child.input_node]))
         return out
+
+    def _unused_notes(self, plan: dict[str, Any]) -> None:
+        """Annotation entries that name nothing in the tree are errors, like unknown keys in a plan."""
+        for key in self.notes.loads:
+            if key not in self.used:
+                self.missing.append(Finding("annotation", f"loads.{key}", "no load node, or instance on a load "
+                                            "node, of that name in the extracted tree"))
+        cards = {s.input.card for s in self.stages}
+        for key in self.notes.devices:
+            if key not in cards:
+                self.missing.append(Finding("annotation", f"devices.{key}", "no mirror uses a card of that name "
+                                            f"(cards: {', '.join(sorted(c for c in cards if c)) or 'none'})"))
 
     def _subtree(self, node: str, edges: dict[str, list[Any]], seen: set[str] | None = None) -> int:
         seen = set() if seen is None else seen
@@ -222,7 +236,10 @@ class _Builder:
     def _load(self, node: str, devs: list[Device], ideal: float, plan: dict[str, Any], s: Stage) -> str | None:
         others = [d for d, _ in self.by_node.get(node, []) if d not in devs]
         keys = [node] + [d.path for d in devs + others]
-        note = next((self.notes.loads[k] for k in keys if k in self.notes.loads), None)
+        key = next((k for k in keys if k in self.notes.loads), None)
+        note = self.notes.loads[key] if key is not None else None
+        if key is not None:
+            self.used.add(key)
         name = note.name if note is not None and note.name else node
         where = devs[0].where
         load: dict[str, Any] = {}
