@@ -158,8 +158,8 @@ def test_hierarchy_parameters_multiplicity_and_annotations() -> None:
     assert notes == [
         f"{netlist}:32: m5: part of load cmp_tail, not of the bias tree",
         f"{netlist}:33: m6: part of load cmp_tail, not of the bias tree",
-        f"{netlist}:17: xcore.xp.mp2: W/L 2e-05/2e-06 differs from the input's 1e-05/2e-06: ratio taken from W/L "
-        "(exact for the square law; with a real model use m= copies of one unit device)",
+        (f"{netlist}:17: xcore.xp.mp2: W/L 2e-05/2e-06 differs from the input's 1e-05/2e-06: ratio taken from W/L "
+        "(exact for the square law; with a real model use m= copies of one unit device)"),
         f"{netlist}:31: rota: resistor of load adc_ota, not of the bias tree",
         f"{netlist}:34: rdac: resistor of load dac, not of the bias tree",
     ]
@@ -320,7 +320,7 @@ def test_sky130_netlist_extracted_and_simulated(sky130_root: Path, ngspice: None
 
     (tmp_path / ".spiceinit").write_text("set ngbehavior=hsa\nset ng_nomodcheck\n", encoding="utf-8")
     proc = subprocess.run(["ngspice", "-b", "-r", "out.raw", netlist.name], cwd=tmp_path, capture_output=True,
-                          text=True, timeout=300, stdin=subprocess.DEVNULL)
+                          text=True, timeout=300, stdin=subprocess.DEVNULL, check=False)
     assert proc.returncode == 0, proc.stderr[-2000:]
     sim = parse_raw((tmp_path / "out.raw").read_text())[0]
     for load, ammeter in (("out_n", "vn"), ("out_p", "vp")):
@@ -347,8 +347,8 @@ def test_multiplicity_down_the_hierarchy_and_four_terminal_bipolars(tmp_path: Pa
     tree, notes = _extracted(netlist, _annotation(tmp_path))
     assert _tree_shape(tree) == {"n": ("simple", "npn", [("o", 6.0)])}
     assert tree.plan.loads["o"].current == pytest.approx(60e-6)
-    assert notes == [f"{netlist}:12: qdummy: its base/gate is on the fixed node 0: a dummy or biased device, "
-                     "not a mirror"]
+    assert notes == [(f"{netlist}:12: qdummy: its base/gate is on the fixed node 0: a dummy or biased device, "
+                     "not a mirror")]
 
 
 def test_annotation_names_that_match_nothing_are_errors(tmp_path: Path) -> None:
@@ -358,7 +358,7 @@ def test_annotation_names_that_match_nothing_are_errors(tmp_path: Path) -> None:
     assert result.exit_code == 2
     errors = [line for line in result.output.splitlines() if line.startswith("error:")]
     assert errors == [
-        f"error: {path}:4: loads.out_nowhere: no load node, or instance on a load node, of that name in the "
-        "extracted tree",
+        (f"error: {path}:4: loads.out_nowhere: no load node, or instance on a load node, of that name in the "
+        "extracted tree"),
         f"error: {path}:6: devices.qx: no mirror uses a card of that name (cards: nch, pch, qlp, qn)",
     ]

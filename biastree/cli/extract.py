@@ -47,7 +47,7 @@ def extract_text(netlist: Path, annotate: Optional[Path] = None, top: Optional[s
 
 def _placed(finding: "object", annotate: Optional[Path]) -> str:
     """A finding about the annotation file itself, placed at its line there."""
-    if getattr(finding, "where") != "annotation" or annotate is None:
+    if finding.where != "annotation" or annotate is None:  # type: ignore[attr-defined]
         return finding.format()  # type: ignore[attr-defined]
     from biastree.input.loader import parse_text, read_text
 

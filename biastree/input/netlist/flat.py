@@ -45,7 +45,7 @@ class Device:
     area: float = 1.0
     nf: float = 1.0
     w: float | None = None
-    l: float | None = None  # noqa: E741
+    l: float | None = None
     dtemp: float = 0.0
     where: str = ""
     card: str | None = None  # name of the .model card or PDK device subcircuit
