@@ -13,20 +13,13 @@ needs but neither the netlist nor the annotation gives is listed in
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from typing import Any
 
 from biastree.input.netlist.annotate import Annotations
+from biastree.input.netlist.devices import SPICE_TNOM_C, device_entry, temperature_law
 from biastree.input.netlist.flat import SINKS, TRANSISTORS, Device, Finding, Flat, family
 from biastree.input.netlist.recognise import Recogniser, Stage
-
-SPICE_TNOM_C = 27.0  # SPICE's default temperature and TNOM, °C
-_BJT_CARD = {"is": ("is", 1e-16), "bf": ("beta", 100.0), "xti": ("xti", 3.0), "eg": ("eg", 1.11), "xtb": ("xtb", 0.0)}
-# DC parameters of a Gummel–Poon card that the plan's bipolar model does not have (value = SPICE default)
-_BJT_UNMODELLED = {"nf": 1.0, "var": 0.0, "ikf": 0.0, "ise": 0.0, "ikr": 0.0, "isc": 0.0, "rb": 0.0, "re": 0.0,
-                   "rc": 0.0, "br": 1.0}
-_MOS_UNMODELLED = {"gamma": 0.0, "rd": 0.0, "rs": 0.0}
 
 
 @dataclass
@@ -301,46 +294,11 @@ class _Builder:
 
     def _device(self, s: Stage, card_name: str) -> dict[str, Any]:
         card = self.flat.cards.get(card_name)
-        given = self.notes.devices.get(card_name)
-        where = card.where if card else s.input.where
         self.origins[f"devices.{card_name}"] = [f".model {card_name} ({card.where})" if card else
                                                f"device subcircuit {card_name} (first used {s.input.where})"]
-        p = card.params if card else {}
-        dev: dict[str, Any] = {"kind": s.kind}
-        tnom = p.get("tnom", SPICE_TNOM_C)
-        if family(s.kind) == "bjt":
-            if card is None and (given is None or given.is_ is None or given.beta is None):
-                self.missing.append(Finding(where, card_name, "no .model card the plan can read: give "
-                                            f"devices.{card_name}: {{is, beta, early}} in the annotation file"))
-            for key, (field_, default) in _BJT_CARD.items():
-                dev[field_] = p.get(key, default)
-            vaf = p.get("vaf", p.get("va", 0.0))
-            if vaf > 0:
-                dev["early"] = vaf
-            unmodelled = _BJT_UNMODELLED
-        else:
-            level = p.get("level", 1.0)
-            if card is not None and level != 1 and (given is None or given.kp is None or given.vth is None):
-                self.missing.append(Finding(where, card_name, f"level {level:g} card: the plan needs square-law "
-                                            f"parameters; give devices.{card_name}: {{kp, vth, lambda}} in the annotation file"))
-            elif card is None and (given is None or given.kp is None or given.vth is None):
-                self.missing.append(Finding(where, card_name, "a PDK device: the plan needs square-law parameters; "
-                                            f"give devices.{card_name}: {{kp, vth, lambda}} in the annotation file"))
-            dev.update(kp=p.get("kp", 2e-5), vth=abs(p.get("vto", 0.0)), **{"lambda": p.get("lambda", 0.0)})
-            dev.update(w=s.input.w, l=s.input.l)
-            unmodelled = _MOS_UNMODELLED if level == 1 else {}
-        if given is not None:
-            for key, value in given.model_dump(by_alias=True, exclude_none=True).items():
-                dev[key] = value
-        if card is not None:
-            dev["tnom"] = f"{tnom:.12g}C"
-            odd = [k for k, default in unmodelled.items() if k in p and p[k] != default]
-            if odd:
-                self.findings.append(Finding(card.where, card_name, f"card parameters the plan's model does not "
-                                             f"have: {', '.join(odd)} (ignored)"))
-        if family(s.kind) == "mos" and not dev.get("vth") and not any(m.subject == card_name for m in self.missing):
-            self.missing.append(Finding(where, card_name, "threshold VTO is 0 or missing: give devices."
-                                        f"{card_name}.vth in the annotation file"))
+        dev, findings, missing = device_entry(s.kind, card_name, card, self.notes.devices.get(card_name), s.input)
+        self.findings += findings
+        self.missing += missing
         return dev
 
     def _hot_card(self, s: Stage, out: Any, dev: dict[str, Any]) -> None:
@@ -348,12 +306,7 @@ class _Builder:
         card = out.devices[0].card
         if family(s.kind) != "mos" or card == s.input.card or card not in self.flat.cards:
             return
-        hot = self.flat.cards[card].params
-        t = self.temperature_k
-        dt = out.dtemp
-        vth_tc = (abs(hot.get("vto", 0.0)) - dev["vth"]) / dt
-        mob = math.log(hot.get("kp", 2e-5) / dev["kp"]) / math.log((t + dt) / t)
-        for key, value in (("vth_tc", vth_tc), ("mobility_exp", mob)):
+        for key, value in temperature_law(dev, self.flat.cards[card].params, self.temperature_k, out.dtemp).items():
             if key in dev and abs(dev[key] - value) > 1e-6 * max(1.0, abs(value)):
                 self.findings.append(Finding(out.devices[0].where, out.devices[0].path, f"its card {card} implies "
                                              f"{key} = {value:.6g}, another device's {dev[key]:.6g}: the first is kept"))
