@@ -360,5 +360,21 @@ def test_annotation_names_that_match_nothing_are_errors(tmp_path: Path) -> None:
     assert errors == [
         (f"error: {path}:4: loads.out_nowhere: no load node, or instance on a load node, of that name in the "
         "extracted tree"),
-        f"error: {path}:6: devices.qx: no mirror uses a card of that name (cards: nch, pch, qlp, qn)",
     ]
+    _, notes = extract_text(NETLISTS / "topologies.spice", _annotation(tmp_path, "defaults: {tolerance: 5%}\n"
+                                                                       "devices:\n  qx: {beta: 50}\n"))
+    assert "annotation devices.qx: no mirror uses a card of that name (cards: nch, pch, qlp, qn)" in notes
+
+
+def test_schematic_tool_style_pdk_netlist(tmp_path: Path) -> None:
+    """The style a schematic tool writes for an open PDK: X instances of device subcircuits with
+    layout parameters (ad='int(…)' is never evaluated), mult= and m=, GND, `**` comments, a .lib section."""
+    notes = _annotation(tmp_path, "defaults: {tolerance: 5%, voltage: 0.9V}\ndevices:\n"  # invented stand-ins
+                        "  sky130_fd_pr__nfet_01v8: {kp: 250uA/V^2, vth: 0.5V, lambda: 0.05/V}\n"
+                        "  sky130_fd_pr__pfet_01v8: {kp: 50uA/V^2, vth: 0.9V, lambda: 0.05/V}\n")
+    tree, found = _extracted(NETLISTS / "xschem_style.spice", notes)
+    assert found == []
+    assert _tree_shape(tree) == {"net1": ("simple", "nmos", [("net2", 4.0)]),
+                                 "net2": ("simple", "pmos", [("ota_tail", 2.0)])}
+    assert tree.plan.devices["sky130_fd_pr__pfet_01v8"].w == pytest.approx(4e-6)  # scale from the .lib section
+    assert tree.plan.loads["ota_tail"].current == pytest.approx(40e-6)

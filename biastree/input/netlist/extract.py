@@ -176,10 +176,10 @@ class _Builder:
                 self.missing.append(Finding("annotation", f"loads.{key}", "no load node, or instance on a load "
                                             "node, of that name in the extracted tree"))
         cards = {s.input.card for s in self.stages}
-        for key in self.notes.devices:
+        for key in self.notes.devices:  # harmless (a shared file for a PDK), but said
             if key not in cards:
-                self.missing.append(Finding("annotation", f"devices.{key}", "no mirror uses a card of that name "
-                                            f"(cards: {', '.join(sorted(c for c in cards if c)) or 'none'})"))
+                self.findings.append(Finding("", f"annotation devices.{key}", "no mirror uses a card of that name "
+                                             f"(cards: {', '.join(sorted(c for c in cards if c)) or 'none'})"))
 
     def _subtree(self, node: str, edges: dict[str, list[Any]], seen: set[str] | None = None) -> int:
         seen = set() if seen is None else seen
