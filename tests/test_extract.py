@@ -378,3 +378,16 @@ def test_schematic_tool_style_pdk_netlist(tmp_path: Path) -> None:
                                  "net2": ("simple", "pmos", [("ota_tail", 2.0)])}
     assert tree.plan.devices["sky130_fd_pr__pfet_01v8"].w == pytest.approx(4e-6)  # scale from the .lib section
     assert tree.plan.loads["ota_tail"].current == pytest.approx(40e-6)
+
+
+def test_conditions_spread_and_matched_pairs_pass_into_the_plan(tmp_path: Path) -> None:
+    notes = _annotation(tmp_path, "defaults: {tolerance: 5%}\n"
+                        "conditions: {temperatures: [-40C, 27C, 125C], corners: {weak: {beta: -20%}}}\n"
+                        "spread: {k_sigma: 4}\n"
+                        "matched:\n  pair: {loads: [out_wil, out_w4], tolerance: 2%}\n")
+    tree, _ = _extracted(NETLISTS / "topologies.spice", notes)
+    plan = tree.plan
+    assert [round(t - 273.15, 9) for t in plan.conditions.temperatures] == [-40.0, 27.0, 125.0]
+    assert plan.conditions.corners["weak"].beta == -0.2 and plan.spread.k_sigma == 4.0
+    assert plan.matched["pair"].loads == ["out_wil", "out_w4"]
+    assert biastree.check(tree).matched()[0]["loads"] == ["out_wil", "out_w4"]

@@ -13,6 +13,7 @@ loads:
   xamp1.tail: {current: 20uA, tolerance: 5%, name: amp_tail}
 devices:                                            # cards the plan's simple models cannot read
   sky130_fd_pr__nfet_01v8: {kp: 280uA/V^2, vth: 0.45V, lambda: 0.08/V}
+conditions: {temperatures: [-40C, 125C]}            # conditions, spread, matched: as in a plan
 ```
 """
 
@@ -25,13 +26,16 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from biastree.errors import PlanError
 from biastree.input.model import (
+    Conditions,
     Current,
     Fraction,
     InverseVoltage,
+    Matched,
     PerKelvin,
     Positive,
     PositiveFraction,
     PositiveVoltage,
+    Spread,
     Temperature,
     Transconductance,
     Voltage,
@@ -94,6 +98,10 @@ class Annotations(_Strict):
     defaults: Defaults = Field(default_factory=Defaults, description="values for loads that give none")
     loads: dict[str, LoadNote] = Field(default_factory=dict, description="loads by node or instance name")
     devices: dict[str, DeviceNote] = Field(default_factory=dict, description="simple parameters by card name")
+    conditions: Optional[Conditions] = Field(default=None, description="copied into the plan: conditions to cover")
+    spread: Optional[Spread] = Field(default=None, description="copied into the plan: mismatch budget and spread")
+    matched: dict[str, Matched] = Field(default_factory=dict, description="copied into the plan: matched load pairs "
+                                        "(by the loads' plan names)")
 
 
 def read_annotations(path: str | Path | None) -> Annotations:

@@ -150,6 +150,12 @@ class _Builder:
         self._devices(visited, plan)
         self._globals(visited, plan)
         self._unused_notes(plan)
+        for key in ("conditions", "spread"):
+            section = getattr(self.notes, key)
+            if section is not None:
+                plan[key] = section.model_dump(mode="json", by_alias=True, exclude_defaults=True)
+        if self.notes.matched:
+            plan["matched"] = {k: m.model_dump(mode="json", by_alias=True) for k, m in self.notes.matched.items()}
         self._leftovers(ref_devs)
         return ext
 

@@ -68,6 +68,9 @@ def to_plan_yaml(ext: Extraction, header: list[str] | None = None) -> str:
     for name, load in plan["loads"].items():
         out.append(f"  {_scalar(name)}: {_flow(load, ('current', 'tolerance', 'voltage'))}"
                    f"{_comment(origins.get(f'loads.{name}', []))}")
+    for key in ("conditions", "spread", "matched"):  # from the annotation file, as JSON flow (valid YAML)
+        if plan.get(key):
+            out.append(f"{key}: {json.dumps(plan[key], ensure_ascii=False)}")
     fp = plan.get("floorplan")
     if fp:
         out.append("floorplan:  # remote output devices: rail offset and temperature read from the netlist")
