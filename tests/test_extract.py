@@ -230,6 +230,8 @@ BROKEN = [
     ("v1 a 0 1\nr1 a 0 1k\n", 1, r"no current mirror found"),
     (".model qn npn\nv1 vdd 0 3\nq1 n n 0 qn\nq2 o n 0 qn\n", 4, r"no current source or rail resistor feeds"),
     (".include nowhere.lib\n", 2, r"file 'nowhere.lib' not found"),
+    (".model nch nmos (level=1 kp=100u vto=0.5)\nvdd vdd 0 3\ni1 n 0 10u\nm1 n n 0 0 nch w=1u l=1u\n"
+     "m2 o n 0 0 nch w=1u l=1u\n", 5, r"no current source or rail resistor feeds"),  # source pulls the wrong way
 ]
 
 
@@ -391,3 +393,22 @@ def test_conditions_spread_and_matched_pairs_pass_into_the_plan(tmp_path: Path) 
     assert plan.conditions.corners["weak"].beta == -0.2 and plan.spread.k_sigma == 4.0
     assert plan.matched["pair"].loads == ["out_wil", "out_w4"]
     assert biastree.check(tree).matched()[0]["loads"] == ["out_wil", "out_w4"]
+
+
+@pytest.mark.parametrize("source, root_kind", [
+    ("i1 n 0 dc 10u", "pmos"),  # a pmos root sources its input current: the source pulls it to ground
+    ("i1 0 n dc -10u", "pmos"),  # the same source written the other way round
+    ("i1 vdd n 10u", "nmos"),  # an nmos root sinks it: the source pushes it in from the supply
+    ("i1 n vdd -10u", "nmos"),
+])
+def test_reference_direction(tmp_path: Path, source: str, root_kind: str) -> None:
+    """SPICE current sources: positive current flows from n+ through the source to n-."""
+    netlist = tmp_path / "ref.spice"
+    model = "pch pmos (level=1 kp=50u vto=-0.6)" if root_kind == "pmos" else "nch nmos (level=1 kp=100u vto=0.5)"
+    rail = "vdd vdd" if root_kind == "pmos" else "0 0"
+    card = model.split()[0]
+    netlist.write_text(f"reference direction\n.model {model}\nvdd vdd 0 3\n{source}\n"
+                       f"m1 n n {rail} {card} w=10u l=1u\nm2 o n {rail} {card} w=10u l=1u m=2\nvo o 0 1.5\n",
+                       encoding="utf-8")
+    tree, _ = _extracted(netlist, _annotation(tmp_path))
+    assert tree.plan.reference.current == 10e-6 and tree.plan.loads["o"].current == pytest.approx(20e-6)
