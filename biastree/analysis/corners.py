@@ -38,6 +38,11 @@ class ConditionResult:
     def worst_name(self, load: int) -> str:
         return self.columns.names[int(self.worst_index[load])]
 
+    def end(self, column: int) -> str:
+        """The load-voltage end (min, nominal, max) of one column: the last word of its name."""
+        word = self.columns.names[column].rsplit(" ", 1)[-1]
+        return word if word in ENDS else "nominal"
+
     @property
     def compliance(self) -> Array:
         """(n_loads,) smallest compliance margin over all columns, V."""
