@@ -19,6 +19,10 @@ def check(
     plan: PlanArg,
     json: Annotated[bool, typer.Option("--json", help="print the results as JSON (schemas/results.schema.json)")] = False,
     failing: Annotated[bool, typer.Option("--failing", help="list only the loads that fail")] = False,
+    sort: Annotated[Optional[str], typer.Option(
+        "--sort", help="sort the table by a column: load, count, path, voltage, target, delivered, error, error_range, "
+                       "worst_condition, k_sigma, budget, margin, compliance, rout, regulation, verdict")] = None,
+    descending: Annotated[bool, typer.Option("--descending", help="with --sort: largest first")] = False,
     forward_bias: Annotated[
         Optional[str], typer.Option(help="allow this much BJT base-collector forward bias, e.g. 0.3V")
     ] = None,
@@ -30,6 +34,13 @@ def check(
     """Solve the plan and audit every load against its budget (exit 1 if any fails)."""
     if k_sigma is not None and k_sigma <= 0:
         raise BiasTreeError("--k-sigma: must be > 0")
+    if sort is not None:
+        from biastree.output.columns import column
+
+        try:
+            column(sort)
+        except ValueError as exc:
+            raise BiasTreeError(f"--sort: {exc}") from None
     result = biastree.check(load_tree(plan, forward_bias), conditions=conditions, mismatch=mismatch, k_sigma=k_sigma)
     if json:
         from biastree.output.json import to_json
@@ -38,7 +49,7 @@ def check(
     else:
         from biastree.output.table import to_table
 
-        emit(to_table(result, failing_only=failing), output)
+        emit(to_table(result, failing_only=failing, sort=sort, descending=descending), output)
     matched_ok = all(m["verdict"] == "pass" for m in result.matched())
     raise typer.Exit(0 if bool(result.passed.all()) and matched_ok else 1)
 

@@ -53,11 +53,14 @@ def sweep(
     all_ends: Annotated[bool, typer.Option("--all-ends", help="each load at min, nominal and max voltage")] = False,
     json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
     csv: Annotated[Optional[Path], typer.Option("--csv", help="also write every load × condition as CSV")] = None,
+    k_sigma: Annotated[Optional[float], typer.Option(help="budgets must hold with this many σ of mismatch (plan default 3)")] = None,
+    mismatch: Annotated[bool, typer.Option(help="add k·σ of mismatch when devices carry matching coefficients")] = True,
     output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file")] = None,
 ) -> None:
-    """Solve the plan over temperature, supply and corners; each load's worst case and where."""
+    """Solve the plan over temperature, supply and corners; each load's worst case, where, and its
+    verdict (exit 1 if any load fails in some condition)."""
     from biastree.analysis.corners import evaluate, parse_range, sweep_columns
-    from biastree.output.spread_table import sweep_data, to_sweep_csv, to_sweep_table
+    from biastree.output.spread_table import to_sweep_csv
 
     tree = load_tree(plan)
     try:
@@ -75,12 +78,7 @@ def sweep(
         from biastree.files import write_atomic
 
         write_atomic(csv, to_sweep_csv(result))
-    if json:
-        import json as _json
-
-        emit(_json.dumps(sweep_data(result), indent=1) + "\n", output)
-    else:
-        emit(to_sweep_table(result), output)
+    _emit_verdicts(result, json, output, k_sigma, mismatch)
 
 
 @app.command()
@@ -88,19 +86,36 @@ def sweep(
 def corners(
     plan: PlanArg,
     json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    k_sigma: Annotated[Optional[float], typer.Option(help="budgets must hold with this many σ of mismatch (plan default 3)")] = None,
+    mismatch: Annotated[bool, typer.Option(help="add k·σ of mismatch when devices carry matching coefficients")] = True,
     output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file")] = None,
 ) -> None:
-    """The plan's corner matrix (temperatures × supplies × corners × voltage ends): worst case per load."""
+    """The plan's corner matrix (temperatures × supplies × corners × voltage ends): worst case and
+    verdict per load (exit 1 if any load fails in some corner)."""
     from biastree.analysis.corners import evaluate, has_conditions
-    from biastree.output.spread_table import sweep_data, to_sweep_table
 
     tree = load_tree(plan)
     if not has_conditions(tree):
         raise BiasTreeError(f"{plan}: the plan lists no conditions (conditions: temperatures/supplies/corners)")
-    result = evaluate(tree)
+    _emit_verdicts(evaluate(tree), json, output, k_sigma, mismatch)
+
+
+def _emit_verdicts(result, json: bool, output: Optional[Path], k_sigma: Optional[float],  # type: ignore[no-untyped-def]
+                   mismatch: bool) -> None:
+    """Judge every load over the solved conditions, print, and exit 1 when one fails."""
+    from biastree.analysis.spread import analytic, has_coefficients
+    from biastree.output.spread_table import sweep_data, to_sweep_table
+
+    if k_sigma is not None and k_sigma <= 0:
+        raise BiasTreeError("--k-sigma: must be > 0")
+    plan = result.tree.plan
+    k = plan.spread.k_sigma if k_sigma is None else k_sigma
+    sigma = analytic(result.tree).mismatch if mismatch and has_coefficients(plan) else None
+    verdicts = result.judge(sigma, k)
     if json:
         import json as _json
 
-        emit(_json.dumps(sweep_data(result), indent=1) + "\n", output)
+        emit(_json.dumps(sweep_data(result, verdicts), indent=1, allow_nan=False) + "\n", output)
     else:
-        emit(to_sweep_table(result), output)
+        emit(to_sweep_table(result, verdicts), output)
+    raise typer.Exit(0 if bool(verdicts.passed.all()) else 1)

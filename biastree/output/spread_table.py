@@ -7,7 +7,7 @@ from typing import Any
 
 import numpy as np
 
-from biastree.analysis.corners import ConditionResult
+from biastree.analysis.corners import ConditionResult, Verdicts
 from biastree.analysis.spread import QUANTILES, Analytic, MonteCarlo
 from biastree.units import format_si
 
@@ -67,34 +67,50 @@ def to_spread_table(mc: MonteCarlo, an: Analytic) -> str:
     return "\n".join(out) + "\n"
 
 
-def sweep_data(result: ConditionResult) -> dict[str, Any]:
+def sweep_data(result: ConditionResult, verdicts: Verdicts) -> dict[str, Any]:
     tree = result.tree
     return {
         "columns": list(result.columns.names),
         "temperature": result.columns.temperature.tolist(),
         "supply": result.columns.supply.tolist(),
         "corner": list(result.columns.corner),
+        "summary": {"loads": len(tree.loads), "passed": int(verdicts.passed.sum()),
+                    "failed": int((~verdicts.passed).sum())},
         "loads": [{"name": n, "current": result.op.l_current[i].tolist(), "error": result.error[i].tolist(),
                    "worst_error": float(result.worst_error[i]), "worst_at": result.worst_name(i),
-                   "compliance_margin": float(result.compliance[i])} for i, n in enumerate(tree.loads)],
+                   "compliance_margin": float(result.compliance[i]),
+                   "compliance_at": result.columns.names[int(result.compliance_index[i])],
+                   "k_sigma": float(verdicts.k_sigma[i]), "margin": float(verdicts.margin[i]),
+                   "verdict": "pass" if verdicts.passed[i] else "fail", "reasons": verdicts.reasons[i]}
+                  for i, n in enumerate(tree.loads)],
     }
 
 
-def to_sweep_table(result: ConditionResult) -> str:
+def to_sweep_table(result: ConditionResult, verdicts: Verdicts) -> str:
     tree = result.tree
-    head = ("load", "target", "min error", "max error", "worst", "at", "compl. min", "budget")
+    head = ("load", "target", "min error", "max error", "worst", "at", "kσ", "budget", "margin", "compl. min", "verdict")
     rows = []
     for i, name in enumerate(tree.loads):
         e = result.error[i]
         spec = tree.plan.loads[name]
         rows.append((name, format_si(spec.current, "A"), f"{e.min() * 100:+.3f}%", f"{e.max() * 100:+.3f}%",
                      f"{result.worst_error[i] * 100:+.3f}%", result.worst_name(i),
-                     format_si(float(result.compliance[i]), "V"), f"±{spec.tolerance * 100:.3g}%"))
+                     f"{verdicts.k_sigma[i] * 100:.3g}%" if verdicts.k_sigma[i] else "",
+                     f"±{spec.tolerance * 100:.3g}%", f"{verdicts.margin[i] * 100:+.2f}%",
+                     format_si(float(result.compliance[i]), "V"), "pass" if verdicts.passed[i] else "FAIL"))
     widths = [max(len(h), *(len(r[k]) for r in rows)) for k, h in enumerate(head)]
     line = lambda r: "  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip()  # noqa: E731
     out = [line(head), line(tuple("-" * w for w in widths))] + [line(r) for r in rows]
+    failing = [i for i in range(len(tree.loads)) if not verdicts.passed[i]]
+    if failing:
+        out += ["", "Why loads fail:"]
+        out += [f"  {tree.loads[i]}: {why}" for i in failing for why in verdicts.reasons[i]]
     out.append("")
-    out.append(f"{len(result.columns.names)} conditions solved in one pass; 'worst' is the error of largest magnitude.")
+    out.append(f"{len(result.columns.names)} conditions solved in one pass; 'worst' is the error of largest magnitude; "
+               "margin = budget − |worst| − kσ − reference tolerance; compliance must hold in every condition.")
+    n_fail = len(failing)
+    out.append(f"{len(tree.loads) - n_fail} of {len(tree.loads)} loads pass in every condition"
+               + (f", {n_fail} FAIL" if n_fail else ""))
     return "\n".join(out) + "\n"
 
 
