@@ -99,7 +99,14 @@ def to_comparison(comparison) -> str:  # type: ignore[no-untyped-def]
     out = ["  ".join(c.ljust(w) for c, w in zip(header, widths)).rstrip()]
     out += ["  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip() for r in rows]
     verdict = "agree" if comparison.agrees else "DISAGREE"
+    why = [(name, case, comparison.reason(i, k)) for i, name in enumerate(comparison.loads)
+           for k, case in enumerate(comparison.cases) if abs(diff[i, k]) > comparison.tolerance]
+    if why:
+        out += ["", "Why they disagree:"]
+        out += [f"  {name} ({case}): {reason or 'no known cause: please report it with the plan'}"
+                for name, case, reason in why]
     out.append("")
     out.append(f"{len(comparison.loads)} loads × {len(comparison.cases)} ends: biastree and ngspice {verdict} "
-               f"(largest relative difference {comparison.worst:.2e}, tolerance {comparison.tolerance:.1e})")
+               f"(largest relative difference {comparison.worst:.2e}, tolerance {comparison.tolerance:.1e})"
+               + (f"; {comparison.explained} of {len(why)} disagreements have a known cause" if why else ""))
     return "\n".join(out) + "\n"
