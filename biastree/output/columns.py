@@ -97,7 +97,7 @@ def _k_sigma(result: Audit, load: int) -> float | None:
 
 
 def _rout(result: Audit, load: int) -> float | None:
-    r = float(result.rout[load])
+    r = float(result.op.b_rout[result.tree.l_branch[load], 1])  # = result.rout[load], without the whole array
     return r if math.isfinite(r) else None
 
 
@@ -139,7 +139,7 @@ COLUMNS: tuple[Column, ...] = (
     Column("compliance", "compl.", "V", "volts the output device has to spare (smallest over range and conditions)",
            lambda r, i: _compliance(r, i), lambda r, i: format_si(_compliance(r, i), "V")),
     Column("rout", "Rout", "Ω", "output resistance at the nominal voltage (empty: infinite)", _rout,
-           lambda r, i: "∞" if _rout(r, i) is None else format_si(float(r.rout[i]), "Ω")),
+           lambda r, i: "∞" if _rout(r, i) is None else format_si(_rout(r, i), "Ω")),  # type: ignore[arg-type]
     Column("regulation", "reg./V", "", "current change per volt of the node, relative", _regulation,
            lambda r, i: "" if _regulation(r, i) is None else f"{_regulation(r, i) * 100:+.3g}%"),  # type: ignore[operator]
     Column("verdict", "verdict", "text", "pass or FAIL", lambda r, i: "pass" if r.passed[i] else "fail",
