@@ -118,6 +118,9 @@ def test_beta_term_of_the_deciding_corner_matches_the_formula(write_plan) -> Non
     reason = result.reasons(a)[0]
     assert "weak" in reason and f"β loading at m ({format_percent(expected)})" in reason
     assert format_percent(1.0 / (1.0 + 4.0 / 100.0) - 1.0) not in reason
+    # the hints and the diagram take the same case's largest term
+    assert result.largest_term(a) == ("m", "β loading", pytest.approx(expected, rel=1e-9))
+    assert all(format_percent(expected) in h for h in result.hints.get(a, []) if "dominates" in h)
     # JSON: the same case, and the nominal breakdown beside it stays nominal
     data = json.loads(runner.invoke(app, ["check", str(_beta_corner_plan(write_plan)), "--json"]).stdout)
     load = next(l for l in data["loads"] if l["name"] == "a")

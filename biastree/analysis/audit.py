@@ -139,9 +139,13 @@ class Audit:
         return m[rows, c], k[rows, c], v[rows, c], keys
 
     def largest_term(self, load: int) -> tuple[str, str, float]:
-        """(stage, term label, value) of the largest contribution at the worst end of the
-        voltage range at the plan's own conditions (the nominal picture; the case that
-        decides the verdict, conditions included, is ``deciding``)."""
+        """(stage, term label, value) of the largest contribution in the case that decides
+        the load (``deciding``): with conditions in the plan, taken from that case's terms
+        (the reference's own drift left out: no mirror change fixes it); without, found
+        vectorised at the worst end of the voltage range — the same case."""
+        if self.conditions is not None:
+            top = next(t for t in self.deciding(load)["terms"] if t["stage"] != "reference")
+            return top["stage"], top["label"], float(top["value"])
         best = ("plan", "ratio arithmetic", self.plan_term(load))
         m, k, v, keys = self._largest
         if abs(v[load]) > abs(best[2]):
