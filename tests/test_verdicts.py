@@ -323,11 +323,7 @@ def test_spread_exit_status_follows_the_required_yield(write_plan) -> None:  # t
     assert runner.invoke(app, ["spread", tight, "--required-yield", "150%"]).exit_code == 2
 
 
-def test_saturated_output_does_not_pass(write_plan) -> None:  # type: ignore[no-untyped-def]
-    # The nmos output sits at 0.1 V, below its V_ov ≈ 0.16 V (square law, Razavi ch. 3: triode
-    # when V_DS < V_GS − V_T); its current is still within the 50 % budget, but the output is
-    # not a current source: check fails it, and the Monte Carlo counts no die as good.
-    path = write_plan("""
+TRIODE = """
 title: output in triode (invented)
 supply: 3.3V
 devices:
@@ -338,7 +334,14 @@ mirrors:
 loads:
   low: {current: 10uA, tolerance: 50%, voltage: 0.1V}
   fine: {current: 10uA, tolerance: 50%, voltage: 1.0V}
-""")
+"""
+
+
+def test_saturated_output_does_not_pass(write_plan) -> None:  # type: ignore[no-untyped-def]
+    # The nmos output sits at 0.1 V, below its V_ov ≈ 0.16 V (square law, Razavi ch. 3: triode
+    # when V_DS < V_GS − V_T); its current is still within the 50 % budget, but the output is
+    # not a current source: check fails it, and the Monte Carlo counts no die as good.
+    path = write_plan(TRIODE)
     result = biastree.check(path)
     low = result.tree.loads.index("low")
     assert result.compliance[low] < 0 and abs(result.error[low, 1]) < 0.5 and not result.passed[low]
@@ -410,3 +413,16 @@ loads:
     assert "so this load moved too" in text
     assert not any(l.startswith("  n_load") for l in text.splitlines())
     assert "6 of 6 disagreements have a known cause" in text
+
+
+@pytest.mark.ngspice
+def test_verify_names_a_mos_output_in_triode(ngspice, write_plan) -> None:  # type: ignore[no-untyped-def]
+    # Oracle: ngspice 39 (level-1 MOSFET) biases the output at V_DS = 0.1 V below V_GS − V_T
+    # ≈ 0.16 V: triode (Razavi ch. 3), so its current falls; the sibling at 1 V agrees
+    # (no gate current: nothing couples the siblings at DC).
+    out = runner.invoke(app, ["verify", str(write_plan(TRIODE))])
+    assert out.exit_code == 1
+    assert re.search(r"low \(nominal\): check reports this output out of compliance .*mm_o0: in triode: "
+                     r"\|VDS\| 100 mV below VGS − VT 15\d mV", out.stdout)
+    assert not any(l.startswith("  fine") for l in out.stdout.splitlines())
+    assert "3 of 3 disagreements have a known cause" in out.stdout

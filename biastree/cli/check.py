@@ -10,6 +10,7 @@ import typer
 
 import biastree
 from biastree.cli.app import PlanArg, app, emit, guarded, load_tree
+from biastree.output.columns import COLUMNS
 from biastree.errors import BiasTreeError
 
 
@@ -20,8 +21,7 @@ def check(
     json: Annotated[bool, typer.Option("--json", help="print the results as JSON (schemas/results.schema.json)")] = False,
     failing: Annotated[bool, typer.Option("--failing", help="list only the loads that fail")] = False,
     sort: Annotated[Optional[str], typer.Option(
-        "--sort", help="sort the table by a column: load, count, path, voltage, target, delivered, error, error_range, "
-                       "worst_condition, k_sigma, budget, margin, compliance, rout, regulation, verdict")] = None,
+        "--sort", help="sort the table by a column: " + ", ".join(c.key for c in COLUMNS))] = None,
     descending: Annotated[bool, typer.Option("--descending", help="with --sort: largest first")] = False,
     forward_bias: Annotated[
         Optional[str], typer.Option(help="allow this much BJT base-collector forward bias, e.g. 0.3V")
