@@ -31,7 +31,8 @@ def spread(
     """Monte Carlo of device mismatch (and reference and process spread), against first-order σ;
     per-die yield of every load over all its copies (exit 1 if a load's yield is below the required yield)."""
     from biastree.analysis.spread import analytic
-    from biastree.analysis.yields import die_yield, required_yield as default_yield, result_bytes
+    from biastree.analysis.yields import die_yield, instance_count, result_bytes
+    from biastree.analysis.yields import required_yield as default_yield
     from biastree.output.spread_table import spread_data, to_spread_json, to_spread_table
     from biastree.units import UnitError, parse_quantity
 
@@ -54,7 +55,7 @@ def spread(
         most = int(0.8 * free / max(size / samples, 1))
         raise BiasTreeError(f"--samples: {samples} samples need {size / 1e9:.3g} GB for the results and "
                             f"{free / 1e9:.3g} GB are free; at most about {most} samples fit")
-    show = samples * len(tree.b_parent) > 2_000_000 and not json and sys.stderr.isatty()
+    show = samples * instance_count(tree) > 2_000_000 and not json and sys.stderr.isatty()
     clock = {"start": time.monotonic(), "done": 0}
 
     def progress(done: int, total: int) -> None:
