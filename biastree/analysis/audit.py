@@ -16,7 +16,7 @@ from typing import Any, Callable
 
 import numpy as np
 
-from biastree.analysis.solve import CASES, OperatingPoint
+from biastree.analysis.solve import CASES, OperatingPoint, solve
 from biastree.physics.devices import Array
 from biastree.physics.topologies import TERM_LABELS, TOPOLOGIES
 from biastree.units import format_percent, format_si
@@ -59,10 +59,12 @@ class Audit:
 
     # --- per-load explanation -------------------------------------------
 
-    def stages(self, load: int, case: int = 1) -> list[dict[str, Any]]:
-        """Stage-by-stage terms along the load's path, at one case (empty terms when
-        the operating point was solved without them)."""
-        tree, op = self.tree, self.op
+    def stages(self, load: int, case: int = 1, op: OperatingPoint | None = None) -> list[dict[str, Any]]:
+        """Stage-by-stage terms along the load's path, at one case (column) of ``op``
+        (default: the audit's own operating point; empty terms when it was solved
+        without them)."""
+        tree = self.tree
+        op = self.op if op is None else op
         plan = tree.plan
         path = tree.path(load)
         out = []
@@ -137,12 +139,95 @@ class Audit:
         return m[rows, c], k[rows, c], v[rows, c], keys
 
     def largest_term(self, load: int) -> tuple[str, str, float]:
-        """(stage, term label, value) of the largest contribution at the worst case."""
+        """(stage, term label, value) of the largest contribution in the case that decides
+        the load (``deciding``): with conditions in the plan, taken from that case's terms
+        (the reference's own drift left out: no mirror change fixes it); without, found
+        vectorised at the worst end of the voltage range — the same case."""
+        if self.conditions is not None:
+            top = next(t for t in self.deciding(load)["terms"] if t["stage"] != "reference")
+            return top["stage"], top["label"], float(top["value"])
         best = ("plan", "ratio arithmetic", self.plan_term(load))
         m, k, v, keys = self._largest
         if abs(v[load]) > abs(best[2]):
             best = (self.tree.mirrors[int(m[load])], TERM_LABELS[keys[int(k[load])]], float(v[load]))
         return best
+
+    @cached_property
+    def _condition_terms(self) -> tuple[OperatingPoint, dict[int, int]] | None:
+        """The condition columns that decide some load, solved again with their error
+        terms (the condition matrix is solved without them, for speed)."""
+        if self.conditions is None:
+            return None
+        index = np.unique(self.conditions.worst_index)
+        op = solve(self.tree, self.conditions.columns.take(index), output_resistance=True)
+        return op, {int(c): k for k, c in enumerate(index)}
+
+    def deciding(self, load: int) -> dict[str, Any]:
+        """The case that decides the load's budget verdict, broken into its terms.
+
+        The deciding case is the one whose |error| enters the margin: the worst
+        end of the voltage range at the plan's own conditions, or the worst
+        column of the condition matrix when that is larger.  Its terms are exact:
+        Π(1 + term) − 1 over ``terms`` is that case's error; ``used`` adds the
+        k·σ mismatch term and the reference tolerance, and tolerance − used is
+        the margin.
+
+        >>> import biastree
+        >>> d = biastree.check("samples/die_spread.yaml").deciding(3)
+        >>> d["condition"]["name"], d["end"]
+        ('-40C 3.6V weak min', 'min')
+        >>> d["terms"][0]["label"], round(d["terms"][0]["value"], 4)
+        ('die gradient', 0.1567)
+        """
+        tree = self.tree
+        plan = tree.plan
+        worst = int(self.worst_case[load])
+        error = float(self.error[load, worst])
+        op, case, end, condition = self.op, worst, CASES[worst], None
+        cond = self.conditions
+        if cond is not None and abs(float(cond.worst_error[load])) > abs(error):
+            k = int(cond.worst_index[load])
+            op, where = self._condition_terms  # type: ignore[misc]
+            case, end, error = where[k], cond.end(k), float(cond.worst_error[load])
+            cols = cond.columns
+            condition = {"name": cols.names[k], "temperature": float(cols.temperature[k]),
+                         "supply": float(cols.supply[k]), "corner": cols.corner[k] or None}
+        stages = self.stages(load, case, op)
+        terms = [{"stage": "plan", "term": "ratio", "label": "ratio arithmetic", "value": self.plan_term(load)}]
+        drift = float(op.i_ref[case] / plan.reference.current - 1.0)
+        if drift:
+            terms.append({"stage": "reference", "term": "reference_drift", "label": "reference at this temperature",
+                          "value": drift})
+        terms += [{"stage": st["mirror"], **t} for st in stages for t in st["terms"]]
+        terms.sort(key=lambda t: -abs(t["value"]))
+        k_term = self.k_sigma * float(self.sigma[load])
+        return {
+            "end": end,
+            "voltage": float(op.columns.v_load[load, case]) if op.columns is not None else float("nan"),
+            "condition": condition,
+            "error": error,
+            "k": self.k_sigma,
+            "k_sigma": k_term,
+            "reference": self.reference_tolerance,
+            "used": abs(error) + k_term + self.reference_tolerance,
+            "tolerance": float(self.tolerance[load]),
+            "margin": float(self.margin[load]),
+            "terms": terms,
+            "stages": stages,
+        }
+
+    def deciding_text(self, load: int, decision: dict[str, Any] | None = None) -> str:
+        """Words for the deciding case: '-40C 3.6V weak, min voltage 800 mV' or 'max voltage 2 V'."""
+        d = self.deciding(load) if decision is None else decision
+        spec = self.tree.plan.loads[self.tree.loads[load]]
+        volts = f"{d['end']} voltage {format_si(d['voltage'], 'V')}" if isinstance(spec.voltage, tuple) \
+            else f"node voltage {format_si(d['voltage'], 'V')}"
+        if d["condition"] is None:
+            return volts
+        name = d["condition"]["name"]
+        if name.endswith(" " + d["end"]):
+            name = name[: -len(d["end"]) - 1]
+        return f"{name}, {volts}"
 
     @cached_property
     def sigma(self) -> Array:
@@ -170,15 +255,15 @@ class Audit:
         plan = tree.plan
         name = tree.loads[load]
         out = []
-        err, at = self.worst_error(load)
         if self.margin[load] < 0:
-            ref = f" + reference {self.reference_tolerance * 100:.3g} %" if self.reference_tolerance else ""
-            mm = f" + {self.k_sigma:g}σ mismatch {self.k_sigma * self.sigma[load] * 100:.3g} %" if self.sigma[load] else ""
-            stage, label, value = self.largest_term(load)
+            d = self.deciding(load)
+            ref = f" + reference {d['reference'] * 100:.3g} %" if d["reference"] else ""
+            mm = f" + {d['k']:g}σ mismatch {d['k_sigma'] * 100:.3g} %" if d["k_sigma"] else ""
+            top = d["terms"][0]
             out.append(
-                f"budget: error {format_percent(err)}{mm}{ref} exceeds ±{self.tolerance[load] * 100:.3g} %"
-                f"{' ' + at if at else ''}; largest {'nominal ' if self.conditions is not None else ''}term: "
-                f"{label} at {stage} ({format_percent(value)})"
+                f"budget: error {format_percent(d['error'])}{mm}{ref} = {d['used'] * 100:.3g} % exceeds "
+                f"±{d['tolerance'] * 100:.3g} % at {self.deciding_text(load, d)}; largest term there: "
+                f"{top['label']} at {top['stage']} ({format_percent(top['value'])})"
             )
         if self.conditions is not None and self.compliance[load] >= 0 and self.conditions.compliance[load] < 0:
             k = int(self.conditions.compliance_index[load])
@@ -300,6 +385,7 @@ class Audit:
                 "k": self.k_sigma,
                 "stages": [{"mirror": m, "sigma": s} for m, s in self.spread.stage_sigmas(load)],
             },
+            "deciding": self.deciding(load),
             "stages": self.stages(load),
         }
 

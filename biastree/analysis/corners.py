@@ -38,6 +38,11 @@ class ConditionResult:
     def worst_name(self, load: int) -> str:
         return self.columns.names[int(self.worst_index[load])]
 
+    def end(self, column: int) -> str:
+        """The load-voltage end (min, nominal, max) of one column: the last word of its name."""
+        word = self.columns.names[column].rsplit(" ", 1)[-1]
+        return word if word in ENDS else "nominal"
+
     @property
     def compliance(self) -> Array:
         """(n_loads,) smallest compliance margin over all columns, V."""
@@ -50,14 +55,62 @@ class ConditionResult:
     @property
     def headroom(self) -> Array:
         """(n_loads,) smallest compliance margin of the branches between mirrors on the path."""
+        return path_headroom(self.tree, self.op.b_compliance).min(axis=1)
+
+    @property
+    def headroom_index(self) -> Array:
+        return np.argmin(path_headroom(self.tree, self.op.b_compliance), axis=1)
+
+    def judge(self, sigma: Array | None = None, k_sigma: float = 3.0) -> "Verdicts":
+        """Each load's verdict over every column, as ``check`` gives it: the worst
+        |error| + k·σ of mismatch (``sigma``, relative, when known) + the reference
+        tolerance within the budget, and every output and every branch on its path
+        active in every column (compliance lost in one column fails the load)."""
         tree = self.tree
-        comp = self.op.b_compliance.min(axis=1)
-        n_m = len(tree.mirrors)
-        worst = np.full(n_m, np.inf)
-        for gen in tree.generations[1:]:
-            b = tree.m_in_branch[gen]
-            worst[gen] = np.minimum(worst[tree.b_parent[b]], comp[b])
-        return worst[tree.b_parent[tree.l_branch]]
+        plan = tree.plan
+        tol = np.array([plan.loads[n].tolerance for n in tree.loads])
+        k_term = np.zeros(len(tol)) if sigma is None else k_sigma * np.asarray(sigma)
+        margin = tol - np.abs(self.worst_error) - k_term - plan.reference.tolerance
+        compliance, headroom = self.compliance, self.headroom
+        passed = (margin >= 0) & (compliance >= 0) & (headroom >= 0)
+        names = self.columns.names
+        reasons: list[list[str]] = []
+        for i in range(len(tol)):
+            why = []
+            if margin[i] < 0:
+                why.append(f"budget: error {self.worst_error[i] * 100:+.3g} % at {self.worst_name(i)}"
+                           + (f" + {k_sigma:g}σ mismatch {k_term[i] * 100:.3g} %" if k_term[i] else "")
+                           + (f" + reference {plan.reference.tolerance * 100:.3g} %" if plan.reference.tolerance else "")
+                           + f" exceeds ±{tol[i] * 100:.3g} %")
+            if compliance[i] < 0:
+                why.append(f"compliance: the output device leaves its active region at {names[int(self.compliance_index[i])]} "
+                           f"({compliance[i] * 1e3:+.4g} mV)")
+            if headroom[i] < 0:
+                why.append(f"headroom: a branch between mirrors on its path leaves its active region at "
+                           f"{names[int(self.headroom_index[i])]} ({headroom[i] * 1e3:+.4g} mV)")
+            reasons.append(why)
+        return Verdicts(margin=margin, k_sigma=k_term, passed=passed, reasons=reasons)
+
+
+@dataclass(frozen=True)
+class Verdicts:
+    """Per load over a condition matrix: margin (fraction), kσ term, pass/fail and the reasons."""
+
+    margin: Array
+    k_sigma: Array
+    passed: Array
+    reasons: list[list[str]]
+
+
+def path_headroom(tree: Tree, b_compliance: Array) -> Array:
+    """(n_loads, C): smallest compliance margin of the branches between mirrors on each
+    load's path, in each column (inf for a load fed straight from the first mirror)."""
+    n_m = len(tree.mirrors)
+    worst = np.full((n_m, b_compliance.shape[1]), np.inf)
+    for gen in tree.generations[1:]:
+        b = tree.m_in_branch[gen]
+        worst[gen] = np.minimum(worst[tree.b_parent[b]], b_compliance[b])
+    return worst[tree.b_parent[tree.l_branch]]
 
 
 def has_conditions(tree: Tree) -> bool:
@@ -80,7 +133,12 @@ def sweep_columns(tree: Tree, temperatures: list[float] | None = None, supplies:
 
 
 def parse_range(text: str, unit: str) -> list[float]:
-    """'-40C:125C:5C' → [233.15, 238.15, …, 398.15] (K); '3.0V:3.6V:0.1V'; or a single value."""
+    """'-40C:125C:5C' → [233.15, 238.15, …, 398.15] (K); '3.0V:3.6V:0.1V'; or a single value.
+    Both ends are included, STOP even when STEP does not divide the span:
+
+    >>> [round(t - 273.15, 6) for t in parse_range("-40C:125C:25C", "C")]
+    [-40.0, -15.0, 10.0, 35.0, 60.0, 85.0, 110.0, 125.0]
+    """
     from biastree.units import parse_quantity
 
     parts = [p for p in text.split(":")]
@@ -95,7 +153,14 @@ def parse_range(text: str, unit: str) -> list[float]:
     n = int(np.floor((stop - start) / step + 1e-9)) + 1
     if n > 10000:
         raise ValueError(f"'{text}' gives {n} points; at most 10000")
-    return [start + k * step for k in range(n)]
+    points = [start + k * step for k in range(n)]
+    # The stop value is always solved: the last step is shorter when STEP does not
+    # divide the span, and a point within rounding of STOP is STOP itself.
+    if abs(points[-1] - stop) <= 1e-9 * max(abs(stop), step):
+        points[-1] = stop
+    else:
+        points.append(stop)
+    return points
 
 
-__all__ = ["ConditionResult", "ENDS", "evaluate", "has_conditions", "parse_range", "sweep_columns"]
+__all__ = ["ConditionResult", "ENDS", "Verdicts", "path_headroom", "evaluate", "has_conditions", "parse_range", "sweep_columns"]

@@ -27,6 +27,7 @@ from typing import Callable
 import numpy as np
 
 from biastree.analysis.conditions import default_columns
+from biastree.analysis.corners import path_headroom
 from biastree.analysis.solve import solve
 from biastree.input.model import BjtModel
 from biastree.physics.devices import Array
@@ -193,6 +194,7 @@ class MonteCarlo:
     seed: int
     include_reference: bool
     include_process: bool
+    active: Array | None = None  # (n_loads, samples) bool: output and every branch on the path active
 
     @property
     def samples(self) -> int:
@@ -207,9 +209,12 @@ class MonteCarlo:
         return self.currents / self.target[:, None] - 1.0
 
     def passes(self) -> Array:
-        """(n_loads, samples) bool: inside the load's budget (the reference is sampled, not added)."""
+        """(n_loads, samples) bool: inside the load's budget (the reference is sampled, not added)
+        with its output device and every branch on its path active (a saturated output
+        does not pass, whatever current it happens to carry)."""
         tol = np.array([self.tree.plan.loads[n].tolerance for n in self.tree.loads])
-        return np.abs(self.error) <= tol[:, None]
+        inside = np.abs(self.error) <= tol[:, None]
+        return inside if self.active is None else inside & self.active
 
     def summary(self) -> dict[str, Array]:
         rel = self.currents / self.currents.mean(axis=1, keepdims=True)
@@ -240,6 +245,7 @@ def monte_carlo(tree: Tree, samples: int, seed: int = 1, include_reference: bool
     rng = np.random.default_rng(seed)
     n_b, n_l = len(tree.b_parent), len(tree.loads)
     currents = np.empty((n_l, samples))
+    active = np.empty((n_l, samples), dtype=bool)
     base = default_columns(tree)
     chunk = _chunk(n_b, samples)
     spread = plan.spread
@@ -266,7 +272,9 @@ def monte_carlo(tree: Tree, samples: int, seed: int = 1, include_reference: bool
                        is_scale=np.exp(d_is), vt_shift=d_vt, k_scale=k_out / k_in[parent])
         op = solve(tree, cols, output_resistance=False)
         currents[:, done:done + c] = op.l_current
+        comp = op.b_compliance
+        active[:, done:done + c] = (comp[tree.l_branch] >= 0) & (path_headroom(tree, comp) >= 0)
         done += c
         if progress:
             progress(done, samples)
-    return MonteCarlo(tree, currents, seed, include_reference, include_process)
+    return MonteCarlo(tree, currents, seed, include_reference, include_process, active)

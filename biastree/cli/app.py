@@ -2,7 +2,8 @@
 
 Exit status: 0 every load passes (or the command succeeded), 1 some load
 fails its budget (or the simulator disagrees), 2 invalid input or usage,
-3 an internal error (a bug in biastree; please report it).
+3 an internal error (a bug in biastree; please report it), 130 interrupted
+(Ctrl-C; nothing written).
 """
 
 from __future__ import annotations
@@ -48,6 +49,9 @@ def guarded(fn: F) -> F:
             _fail(str(exc).splitlines() or [type(exc).__name__])
         except (typer.Exit, typer.Abort, SystemExit):
             raise
+        except KeyboardInterrupt:  # Ctrl-C: outputs are written whole or not at all
+            typer.echo("\ninterrupted: nothing written", err=True)
+            raise typer.Exit(130) from None
         except Exception as exc:  # a bug: say so in one line unless debugging
             if os.environ.get("BIASTREE_DEBUG"):
                 raise

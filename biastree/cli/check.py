@@ -10,6 +10,7 @@ import typer
 
 import biastree
 from biastree.cli.app import PlanArg, app, emit, guarded, load_tree
+from biastree.output.columns import COLUMNS
 from biastree.errors import BiasTreeError
 
 
@@ -19,6 +20,9 @@ def check(
     plan: PlanArg,
     json: Annotated[bool, typer.Option("--json", help="print the results as JSON (schemas/results.schema.json)")] = False,
     failing: Annotated[bool, typer.Option("--failing", help="list only the loads that fail")] = False,
+    sort: Annotated[Optional[str], typer.Option(
+        "--sort", help="sort the table by a column: " + ", ".join(c.key for c in COLUMNS))] = None,
+    descending: Annotated[bool, typer.Option("--descending", help="with --sort: largest first")] = False,
     forward_bias: Annotated[
         Optional[str], typer.Option(help="allow this much BJT base-collector forward bias, e.g. 0.3V")
     ] = None,
@@ -34,6 +38,13 @@ def check(
     """Solve the plan and audit every load against its budget (exit 1 if any fails)."""
     if k_sigma is not None and k_sigma <= 0:
         raise BiasTreeError("--k-sigma: must be > 0")
+    if sort is not None:
+        from biastree.output.columns import column
+
+        try:
+            column(sort)
+        except ValueError as exc:
+            raise BiasTreeError(f"--sort: {exc}") from None
     from biastree.cli.extract import is_netlist, netlist_tree
 
     netlist = is_netlist(plan) or annotate is not None or top is not None
@@ -46,7 +57,7 @@ def check(
     else:
         from biastree.output.table import to_table
 
-        emit(to_table(result, failing_only=failing), output)
+        emit(to_table(result, failing_only=failing, sort=sort, descending=descending), output)
     matched_ok = all(m["verdict"] == "pass" for m in result.matched())
     raise typer.Exit(0 if bool(result.passed.all()) and matched_ok else 1)
 

@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import os
 import sys
+import time
 from pathlib import Path
 from typing import Annotated, Optional
 
@@ -21,26 +23,67 @@ def spread(
     json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
     reference: Annotated[bool, typer.Option(help="sample the reference tolerance (as 3σ)")] = True,
     process: Annotated[bool, typer.Option(help="sample the plan's global process spread")] = True,
+    required_yield: Annotated[Optional[str], typer.Option(
+        "--required-yield", help="yield each load must reach, e.g. 99% (default: erf(k/√2) for the plan's "
+                                 "spread.k_sigma, 99.73% for k = 3)")] = None,
     output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file")] = None,
 ) -> None:
-    """Monte Carlo of device mismatch (and reference and process spread), against first-order σ."""
-    from biastree.analysis.spread import analytic, monte_carlo
-    from biastree.output.spread_table import to_spread_json, to_spread_table
+    """Monte Carlo of device mismatch (and reference and process spread), against first-order σ;
+    per-die yield of every load over all its copies (exit 1 if a load's yield is below the required yield)."""
+    from biastree.analysis.spread import analytic
+    from biastree.analysis.yields import die_yield, instance_count, result_bytes
+    from biastree.analysis.yields import required_yield as default_yield
+    from biastree.output.spread_table import spread_data, to_spread_json, to_spread_table
+    from biastree.units import UnitError, parse_quantity
 
     tree = load_tree(plan)
+    if required_yield is None:
+        need = default_yield(tree.plan.spread.k_sigma)
+    else:
+        try:
+            need = parse_quantity(required_yield, "%")
+        except UnitError as exc:
+            raise BiasTreeError(f"--required-yield: {exc}") from None
+        if not 0.0 < need <= 1.0:
+            raise BiasTreeError(f"--required-yield: {required_yield} is not a yield in (0, 100 %]")
     an = analytic(tree)
     if not an.sigmas.any:
         raise BiasTreeError(f"{plan}: no device has matching coefficients (a_is_pair/a_vt_pair/…); nothing to spread")
-    work = samples * len(tree.b_parent)
-    show = work > 2_000_000 and not json and sys.stderr.isatty()
+    size = result_bytes(tree, samples)
+    free = _free_memory()
+    if free is not None and size > 0.8 * free:
+        most = int(0.8 * free / max(size / samples, 1))
+        raise BiasTreeError(f"--samples: {samples} samples need {size / 1e9:.3g} GB for the results and "
+                            f"{free / 1e9:.3g} GB are free; at most about {most} samples fit")
+    show = samples * instance_count(tree) > 2_000_000 and not json and sys.stderr.isatty()
+    clock = {"start": time.monotonic(), "done": 0}
 
     def progress(done: int, total: int) -> None:
+        clock["done"] = done
         if show:
+            elapsed = time.monotonic() - clock["start"]
+            left = elapsed / done * (total - done) if done else 0.0
             bar = "#" * int(30 * done / total)
-            typer.echo(f"\r[{bar:<30}] {done}/{total} samples", err=True, nl=done == total)
+            typer.echo(f"\r[{bar:<30}] {done}/{total} samples, {elapsed:.0f} s, about {left:.0f} s left ",
+                       err=True, nl=done == total)
 
-    mc = monte_carlo(tree, samples, seed, include_reference=reference, include_process=process, progress=progress)
-    emit(to_spread_json(mc, an) if json else to_spread_table(mc, an), output)
+    try:
+        dy = die_yield(tree, samples, seed, include_reference=reference, include_process=process, progress=progress)
+    except KeyboardInterrupt:
+        typer.echo(("\n" if show else "") + f"interrupted after {clock['done']} of {samples} samples: nothing written",
+                   err=True)
+        raise typer.Exit(130) from None
+    data = spread_data(dy, an, need)
+    emit(to_spread_json(data) if json else to_spread_table(data), output)
+    raise typer.Exit(0 if data["verdict"] == "pass" else 1)
+
+
+def _free_memory() -> Optional[int]:
+    """Bytes of memory available now (None where the system does not say)."""
+    try:
+        return int(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
+    except (ValueError, OSError, AttributeError):
+        return None
 
 
 @app.command()
@@ -53,11 +96,14 @@ def sweep(
     all_ends: Annotated[bool, typer.Option("--all-ends", help="each load at min, nominal and max voltage")] = False,
     json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
     csv: Annotated[Optional[Path], typer.Option("--csv", help="also write every load × condition as CSV")] = None,
+    k_sigma: Annotated[Optional[float], typer.Option(help="budgets must hold with this many σ of mismatch (plan default 3)")] = None,
+    mismatch: Annotated[bool, typer.Option(help="add k·σ of mismatch when devices carry matching coefficients")] = True,
     output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file")] = None,
 ) -> None:
-    """Solve the plan over temperature, supply and corners; each load's worst case and where."""
+    """Solve the plan over temperature, supply and corners; each load's worst case, where, and its
+    verdict (exit 1 if any load fails in some condition)."""
     from biastree.analysis.corners import evaluate, parse_range, sweep_columns
-    from biastree.output.spread_table import sweep_data, to_sweep_csv, to_sweep_table
+    from biastree.output.spread_table import to_sweep_csv
 
     tree = load_tree(plan)
     try:
@@ -75,12 +121,7 @@ def sweep(
         from biastree.files import write_atomic
 
         write_atomic(csv, to_sweep_csv(result))
-    if json:
-        import json as _json
-
-        emit(_json.dumps(sweep_data(result), indent=1) + "\n", output)
-    else:
-        emit(to_sweep_table(result), output)
+    _emit_verdicts(result, json, output, k_sigma, mismatch)
 
 
 @app.command()
@@ -88,19 +129,36 @@ def sweep(
 def corners(
     plan: PlanArg,
     json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    k_sigma: Annotated[Optional[float], typer.Option(help="budgets must hold with this many σ of mismatch (plan default 3)")] = None,
+    mismatch: Annotated[bool, typer.Option(help="add k·σ of mismatch when devices carry matching coefficients")] = True,
     output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file")] = None,
 ) -> None:
-    """The plan's corner matrix (temperatures × supplies × corners × voltage ends): worst case per load."""
+    """The plan's corner matrix (temperatures × supplies × corners × voltage ends): worst case and
+    verdict per load (exit 1 if any load fails in some corner)."""
     from biastree.analysis.corners import evaluate, has_conditions
-    from biastree.output.spread_table import sweep_data, to_sweep_table
 
     tree = load_tree(plan)
     if not has_conditions(tree):
         raise BiasTreeError(f"{plan}: the plan lists no conditions (conditions: temperatures/supplies/corners)")
-    result = evaluate(tree)
+    _emit_verdicts(evaluate(tree), json, output, k_sigma, mismatch)
+
+
+def _emit_verdicts(result, json: bool, output: Optional[Path], k_sigma: Optional[float],  # type: ignore[no-untyped-def]
+                   mismatch: bool) -> None:
+    """Judge every load over the solved conditions, print, and exit 1 when one fails."""
+    from biastree.analysis.spread import analytic, has_coefficients
+    from biastree.output.spread_table import sweep_data, to_sweep_table
+
+    if k_sigma is not None and k_sigma <= 0:
+        raise BiasTreeError("--k-sigma: must be > 0")
+    plan = result.tree.plan
+    k = plan.spread.k_sigma if k_sigma is None else k_sigma
+    sigma = analytic(result.tree).mismatch if mismatch and has_coefficients(plan) else None
+    verdicts = result.judge(sigma, k)
     if json:
         import json as _json
 
-        emit(_json.dumps(sweep_data(result), indent=1) + "\n", output)
+        emit(_json.dumps(sweep_data(result, verdicts), indent=1, allow_nan=False) + "\n", output)
     else:
-        emit(to_sweep_table(result), output)
+        emit(to_sweep_table(result, verdicts), output)
+    raise typer.Exit(0 if bool(verdicts.passed.all()) else 1)

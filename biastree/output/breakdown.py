@@ -9,28 +9,33 @@ from biastree.units import format_si
 
 
 def breakdown(result: Audit, load: int) -> list[tuple[str, str, float]]:
-    """(stage, effect label, value as a fraction) at the load's worst voltage.
+    """(stage, effect label, value as a fraction) in the case that decides the
+    load's verdict (``Audit.deciding``), largest first.
 
-    The first row is the plan's own ratio arithmetic; the product of
-    (1 + value) over all rows is 1 + the load's error, exactly.
+    The product of (1 + value) over all rows is 1 + that case's error, exactly.
     """
-    case = int(result.worst_case[load])
+    return [(t["stage"], t["label"], t["value"]) for t in result.deciding(load)["terms"]]
+
+
+def nominal_breakdown(result: Audit, load: int) -> list[tuple[str, str, float]]:
+    """The same rows at the nominal voltage and the plan's own conditions, in path order
+    (to show beside the deciding case, labelled nominal)."""
     rows = [("plan", "ratio arithmetic", result.plan_term(load))]
-    for stage in result.stages(load, case):
+    for stage in result.stages(load, 1):
         for term in stage["terms"]:
             rows.append((stage["mirror"], term["label"], term["value"]))
     return rows
 
 
 def where(result: Audit, load: int) -> str:
-    """Words for the voltage the breakdown is taken at."""
-    plan = result.tree.plan
-    spec = plan.loads[result.tree.loads[load]]
-    case = int(result.worst_case[load])
-    volts = format_si(spec.v_range[case], "V")
-    if isinstance(spec.voltage, tuple):
-        return f"at the {CASES[case]} end of its voltage range ({volts})"
-    return f"at its node voltage ({volts})"
+    """Words for the case the breakdown is taken in (the deciding case)."""
+    return f"in the deciding case ({result.deciding_text(load)})"
+
+
+def where_nominal(result: Audit, load: int) -> str:
+    """Words for the nominal case."""
+    spec = result.tree.plan.loads[result.tree.loads[load]]
+    return f"nominal ({CASES[1]} voltage {format_si(spec.v_range[1], 'V')}, the plan's own conditions)"
 
 
 def device_parameters(dev: object) -> str:
@@ -40,12 +45,11 @@ def device_parameters(dev: object) -> str:
 
 
 def budget_use(result: Audit, load: int) -> str:
-    """How the load's budget is used: worst error, k·σ mismatch, reference tolerance."""
-    err, at = result.worst_error(load)
-    parts = [f"|error| {abs(err) * 100:.3g} %" + (f" ({at})" if at else "")]
+    """How the deciding case uses the load's budget: |error|, the kσ term, the reference term."""
+    d = result.deciding(load)
+    parts = [f"|error| {abs(d['error']) * 100:.3g} % ({result.deciding_text(load, d)})"]
     if result.spread is not None:
-        parts.append(f"{result.k_sigma:g}σ mismatch {result.k_sigma * float(result.sigma[load]) * 100:.3g} %")
-    if result.reference_tolerance:
-        parts.append(f"reference {result.reference_tolerance * 100:.3g} %")
-    used = float(result.tolerance[load] - result.margin[load])
-    return f"budget use: {' + '.join(parts)} = {used * 100:.3g} % of ±{result.tolerance[load] * 100:.3g} %"
+        parts.append(f"{d['k']:g}σ mismatch {d['k_sigma'] * 100:.3g} %")
+    if d["reference"]:
+        parts.append(f"reference {d['reference'] * 100:.3g} %")
+    return f"budget use: {' + '.join(parts)} = {d['used'] * 100:.3g} % of ±{d['tolerance'] * 100:.3g} %"

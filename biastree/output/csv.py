@@ -1,5 +1,6 @@
-"""Per-load CSV for spreadsheets: SI floats at full precision, the same
-numbers as `check --json`."""
+"""Per-load CSV for spreadsheets: the load table's columns (biastree.output.columns,
+the same as the terminal, Markdown and HTML tables) as SI floats at full
+precision — the same numbers as `check --json` — and each load's reasons."""
 
 from __future__ import annotations
 
@@ -7,31 +8,14 @@ import csv
 import io
 
 from biastree.analysis.audit import Audit
-
-COLUMNS = (
-    "name", "count", "path", "target_A", "delivered_A", "delivered_min_A", "delivered_max_A",
-    "error", "error_min", "error_max", "worst_error", "tolerance", "reference_tolerance", "margin",
-    "compliance_margin_V", "verdict", "reasons",
-)
+from biastree.output.columns import visible
 
 
 def to_csv(result: Audit) -> str:
-    tree = result.tree
+    cols = visible(result)
     out = io.StringIO()
     writer = csv.writer(out, lineterminator="\n")
-    writer.writerow(COLUMNS)
-    names = tree.mirrors
-    parents = tree.b_parent[tree.l_branch]
-    for i, name in enumerate(tree.loads):
-        path = " > ".join(["reference"] + [names[m] for m in tree.mirror_paths[int(parents[i])]] + [name])
-        writer.writerow([
-            name, int(tree.l_mult[i]), path,
-            repr(float(result.target[i])), repr(float(result.delivered[i, 1])),
-            repr(float(result.delivered[i, 0])), repr(float(result.delivered[i, 2])),
-            repr(float(result.error[i, 1])), repr(float(result.error[i, 0])), repr(float(result.error[i, 2])),
-            repr(float(result.error[i, int(result.worst_case[i])])),
-            repr(float(result.tolerance[i])), repr(result.reference_tolerance), repr(float(result.margin[i])),
-            repr(float(result.compliance[i])), "pass" if result.passed[i] else "fail",
-            "; ".join(result.reasons(i)),
-        ])
+    writer.writerow([h for c in cols for h in c.csv_headers()] + ["reasons"])
+    for i in range(len(result.tree.loads)):
+        writer.writerow([cell for c in cols for cell in c.csv_cells(result, i)] + ["; ".join(result.reasons(i))])
     return out.getvalue()

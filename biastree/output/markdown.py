@@ -4,7 +4,8 @@ that keep reviews in text."""
 from __future__ import annotations
 
 from biastree.analysis.audit import Audit
-from biastree.output.breakdown import breakdown, budget_use, device_parameters, where
+from biastree.output.breakdown import breakdown, budget_use, device_parameters, nominal_breakdown, where, where_nominal
+from biastree.output.columns import visible
 from biastree.units import format_si, signed_percent
 
 CAUTION = ("Design estimates: sign-off belongs to the foundry's device models and "
@@ -13,10 +14,6 @@ CAUTION = ("Design estimates: sign-off belongs to the foundry's device models an
 
 def _pct(x: float) -> str:
     return signed_percent(x, 3)
-
-
-def _rout(value: float) -> str:
-    return format_si(value, "Ω", 4) if value != float("inf") else "∞"
 
 
 def _cell(text: str) -> str:
@@ -53,18 +50,14 @@ def to_markdown(result: Audit, source: str | None = None) -> str:
     for name, dev in plan.devices.items():
         params = device_parameters(dev)
         out.append(f"| {_cell(name)} | {dev.kind} | {_cell(params)} |")
+    cols = visible(result)
     out += ["", "## Loads", "",
-            "| load | × | path | target | delivered | error | range | budget | margin | compliance | Rout | verdict |",
-            "|---|--:|---|--:|--:|--:|--:|--:|--:|--:|--:|---|"]
-    for i, name in enumerate(tree.loads):
-        path = " > ".join(tree.mirrors[m] for m in tree.path(i))
-        rng = "" if result.error[i, 0] == result.error[i, 2] else f"{_pct(result.error[i, 0])}..{_pct(result.error[i, 2])}"
-        out.append(
-            f"| {_cell(name)} | {int(tree.l_mult[i])} | {_cell(path)} | {format_si(result.target[i], 'A', 4)} | "
-            f"{format_si(result.delivered[i, 1], 'A', 6)} | {_pct(result.error[i, 1])} | {rng} | "
-            f"±{result.tolerance[i] * 100:.3g}% | {_pct(result.margin[i])} | {format_si(result.compliance[i], 'V', 4)} | "
-            f"{_rout(float(result.rout[i]))} | {'pass' if result.passed[i] else '**FAIL**'} |"
-        )
+            "| " + " | ".join(_cell(c.title) for c in cols) + " |",
+            "|" + "|".join("--:" if c.right else "---" for c in cols) + "|"]
+    for i in range(len(tree.loads)):
+        cells = [_cell(c.text(result, i)) for c in cols]
+        cells = [f"**{t}**" if c.key == "verdict" and t == "FAIL" else t for c, t in zip(cols, cells)]
+        out.append("| " + " | ".join(cells) + " |")
     notes = [t for t in (result.floorplan_text(i) for i in range(len(tree.loads))) if t]
     notes += [f"matched pair {m['name']}: ratio error {m['ratio_error'] * 100:+.3g} %, {m['k']:g}σ = "
               f"{m['k'] * m['sigma'] * 100:.3g} %, budget ±{m['tolerance'] * 100:.3g} %: {m['verdict']}"
@@ -78,10 +71,14 @@ def to_markdown(result: Audit, source: str | None = None) -> str:
             out += [f"### {tree.loads[i]}", ""]
             out += [f"- {_cell(r)}" for r in result.reasons(i)]
             out += [f"- hint: {_cell(h)}" for h in result.hints.get(i, [])]
-            out += ["", f"Error terms {where(result, i)}, stage by stage "
-                        "(they compound: Π(1 + term) − 1 = error):", "",
+            out += ["", _cell(f"Error terms {where(result, i)}, largest first "
+                              "(they compound: Π(1 + term) − 1 = that case's error):"), "",
                     "| stage | effect | term |", "|---|---|--:|"]
             out += [f"| {_cell(st)} | {_cell(label)} | {_pct(v)} |" for st, label, v in breakdown(result, i)]
             out += ["", _cell(budget_use(result, i)), ""]
+            out += [_cell(f"Error terms {where_nominal(result, i)}, stage by stage:"), "",
+                    "| stage | effect | term (nominal) |", "|---|---|--:|"]
+            out += [f"| {_cell(st)} | {_cell(label)} | {_pct(v)} |" for st, label, v in nominal_breakdown(result, i)]
+            out += [""]
     out += ["", f"_{CAUTION}_", ""]
     return "\n".join(out)

@@ -74,6 +74,38 @@ class Regulation(_Out):
     per_volt: float = Field(description="delta_current / voltage span, A/V (0 for a fixed voltage)")
 
 
+class DecidingCondition(_Out):
+    name: str = Field(description="the condition column: temperature, supply, corner and voltage end")
+    temperature: float = Field(description="K")
+    supply: float = Field(description="V")
+    corner: Optional[str] = Field(description="process corner (null: the plan's nominal devices)")
+
+
+class DecidingTerm(_Out):
+    stage: str = Field(description="mirror of the term, 'plan' for the ratio arithmetic, 'reference' for its drift")
+    term: str = Field(description="key of the effect: ratio, reference_drift, beta, early, lambda, gradient")
+    label: str = Field(description="name of the effect as shown to a designer")
+    value: float = Field(description="factor minus one (fraction); Π(1 + value) − 1 over the terms is the error")
+
+
+class Deciding(_Out):
+    """The case whose error decides the budget verdict, and its terms."""
+
+    end: Literal["min", "nominal", "max"] = Field(description="end of the load's voltage range")
+    voltage: float = Field(description="node voltage in that case, V")
+    condition: Optional[DecidingCondition] = Field(
+        description="the condition column, when the plan's conditions give the largest error (null: the plan's own)")
+    error: float = Field(description="delivered / target − 1 in that case")
+    k: float = Field(description="budgets hold with k·σ of mismatch")
+    k_sigma: float = Field(description="the kσ term: k × first-order mismatch σ (fraction; 0 without coefficients)")
+    reference: float = Field(description="the reference term: its tolerance (fraction)")
+    used: float = Field(description="|error| + kσ + reference: the budget this case uses")
+    tolerance: float = Field(description="the load's budget (fraction)")
+    margin: float = Field(description="tolerance − used")
+    terms: list[DecidingTerm] = Field(description="every term of that case, largest |value| first")
+    stages: list[Stage] = Field(description="stage-by-stage terms in that case")
+
+
 class LoadResult(_Out):
     name: str
     count: int = Field(description="instances of this load in the expanded tree")
@@ -99,7 +131,8 @@ class LoadResult(_Out):
     floorplan: Optional[FloorplanTerm] = Field(description="gradient cost of a remote output device")
     conditions: Optional[ConditionsTerm] = Field(description="worst case over temperatures, supplies, corners")
     mismatch: Optional[MismatchTerm] = Field(description="mismatch σ (when devices carry matching coefficients)")
-    stages: list[Stage] = Field(description="terms of each stage along the path, at the nominal voltage")
+    deciding: Deciding = Field(description="the case that decides the budget verdict, broken into its terms")
+    stages: list[Stage] = Field(description="nominal: terms of each stage along the path, at the nominal voltage")
 
 
 class Summary(_Out):

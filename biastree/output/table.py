@@ -2,11 +2,12 @@
 
 from __future__ import annotations
 
-import numpy as np
-
 from biastree.analysis.audit import Audit
-from biastree.units import format_si, format_si_array, signed_percent
+from biastree.output.columns import order, visible
+from biastree.units import format_si, signed_percent
 
+LEGEND = ("margin: budget left after the deciding error, kσ and the reference tolerance; compl.: volts the output "
+          "device has to spare; reg./V: current change per volt of the node")
 MAX_REASONS = 200  # failing loads explained in the terminal; --json has them all
 
 
@@ -14,56 +15,18 @@ def _pct(x: float) -> str:
     return signed_percent(x, 2)
 
 
-def to_table(result: Audit, failing_only: bool = False) -> str:
-    """One row per load: path, target, delivered, error, budget, margin, compliance, verdict."""
+def to_table(result: Audit, failing_only: bool = False, sort: str | None = None, descending: bool = False) -> str:
+    """One row per load, in the columns of biastree.output.columns (the same as
+    Markdown, CSV and HTML); ``sort`` names a column key, ``failing_only`` keeps
+    the failing loads."""
     tree = result.tree
-    plan = tree.plan
-    header = ("load", "×", "path", "target", "delivered", "error", "range", "worst cond.", "kσ", "budget", "margin",
-              "compl.", "Rout", "reg./V", "verdict")
-    rows = []
-    target_text = format_si_array(result.target, "A")
-    delivered_text = format_si_array(result.delivered[:, 1], "A", 4)
-    compliance_text = format_si_array(result.compliance, "V")
-    rout_text = format_si_array(np.where(np.isfinite(result.rout), result.rout, 0.0), "Ω")
-    names = tree.mirrors
-    rout = result.rout
-    per_volt = result.regulation[2]
-    path_text = [" > ".join(names[m] for m in p) for p in tree.mirror_paths]
-    parents = tree.b_parent[tree.l_branch].tolist()
-    for i, name in enumerate(tree.loads):
-        ok = bool(result.passed[i])
-        if failing_only and ok:
-            continue
-        path = path_text[parents[i]]
-        lo, hi = result.error[i, 0], result.error[i, 2]
-        span = "" if not isinstance(plan.loads[name].voltage, tuple) else f"{_pct(lo)}..{_pct(hi)}"
-        rows.append(
-            (
-                name,
-                str(int(tree.l_mult[i])),
-                path,
-                target_text[i],
-                delivered_text[i],
-                _pct(result.error[i, 1]),
-                span,
-                _pct(float(result.conditions.worst_error[i])) if result.conditions is not None else "",
-                f"{result.k_sigma * result.sigma[i] * 100:.3g}%" if result.spread is not None else "",
-                f"±{result.tolerance[i] * 100:.3g}%",
-                _pct(result.margin[i]),
-                compliance_text[i],
-                rout_text[i] if np.isfinite(rout[i]) else "∞",
-                f"{per_volt[i] / result.delivered[i, 1] * 100:+.3g}%" if per_volt[i] else "",
-                "pass" if ok else "FAIL",
-            )
-        )
-    right = set(range(1, 14)) - {2}
-    # drop the columns this plan has nothing for
-    empty = [k for k in (7, 8) if all(not r[k] for r in rows)] if rows else [7, 8]
-    if empty:
-        keep = [k for k in range(len(header)) if k not in empty]
-        header = tuple(header[k] for k in keep)
-        rows = [tuple(r[k] for k in keep) for r in rows]
-        right = {keep.index(k) for k in right if k in keep}
+    cols = visible(result)
+    loads = [i for i in range(len(tree.loads)) if not (failing_only and result.passed[i])]
+    if sort is not None:
+        loads = order(result, sort, descending, loads)
+    header = tuple(c.title for c in cols)
+    rows = [tuple(c.text(result, i) for c in cols) for i in loads]
+    right = {k for k, c in enumerate(cols) if c.right}
     widths = [max(len(h), *(len(r[k]) for r in rows)) if rows else len(h) for k, h in enumerate(header)]
 
     template = "  ".join(f"{{:{'>' if k in right else '<'}{w}}}" for k, w in enumerate(widths))
@@ -73,8 +36,7 @@ def to_table(result: Audit, failing_only: bool = False) -> str:
 
     out = [line(header), line(tuple("-" * w for w in widths))]
     out += [line(r) for r in rows]
-    out.append("margin: budget left after the worst error, kσ and the reference tolerance; compl.: volts the output "
-               "device has to spare; reg./V: current change per volt of the node")
+    out.append(LEGEND)
     failing = [i for i in range(len(tree.loads)) if not result.passed[i]]
     if failing:
         out.append("")
@@ -137,7 +99,14 @@ def to_comparison(comparison) -> str:  # type: ignore[no-untyped-def]
     out = ["  ".join(c.ljust(w) for c, w in zip(header, widths)).rstrip()]
     out += ["  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip() for r in rows]
     verdict = "agree" if comparison.agrees else "DISAGREE"
+    why = [(name, case, comparison.reason(i, k)) for i, name in enumerate(comparison.loads)
+           for k, case in enumerate(comparison.cases) if abs(diff[i, k]) > comparison.tolerance]
+    if why:
+        out += ["", "Why they disagree:"]
+        out += [f"  {name} ({case}): {reason or 'no known cause: please report it with the plan'}"
+                for name, case, reason in why]
     out.append("")
     out.append(f"{len(comparison.loads)} loads × {len(comparison.cases)} ends: biastree and ngspice {verdict} "
-               f"(largest relative difference {comparison.worst:.2e}, tolerance {comparison.tolerance:.1e})")
+               f"(largest relative difference {comparison.worst:.2e}, tolerance {comparison.tolerance:.1e})"
+               + (f"; {comparison.explained} of {len(why)} disagreements have a known cause" if why else ""))
     return "\n".join(out) + "\n"
