@@ -45,6 +45,9 @@ def draw(
     write_atomic(output, render(diagram.text, fmt, diagram.nodes))
 
 
+REPORT_NODE_LIMIT = 600  # larger trees are shown by the page's outline, not a diagram
+
+
 class ReportFormat(str, Enum):
     html = "html"
     md = "md"
@@ -75,10 +78,12 @@ def report(
 
         svg = None
         if diagram:
-            picture = to_dot(result)
-            for note in picture.notes:
-                typer.echo(f"note: {note}", err=True)
-            svg = svg_body(render(picture.text, "svg"))
+            picture = to_dot(result, node_limit=REPORT_NODE_LIMIT)
+            if picture.notes:
+                typer.echo("note: the tree is too large for an embedded diagram; the report's outline shows it "
+                           "(biastree draw --subtree NAME draws one part)", err=True)
+            else:
+                svg = svg_body(render(picture.text, "svg"))
         text = to_html(result, svg, str(plan))
     if csv is not None:
         from biastree.output.csv import to_csv
