@@ -133,7 +133,7 @@ Table.prototype.order = function () {
     var x = key(a), y = key(b);
     if (x === y) return a - b;
     if (x === null) return 1; if (y === null) return -1;
-    return (typeof x === 'string' ? x.localeCompare(y) : (x < y ? -1 : 1)) * sign;
+    return (x < y ? -1 : 1) * sign;
   });
 };
 Table.prototype.sortBy = function (k) {
