@@ -13,7 +13,7 @@ from html.parser import HTMLParser
 
 import pytest
 from conftest import ROOT, SAMPLES
-from helpers import tree_of
+from helpers import one_stage, tree_of
 from typer.testing import CliRunner
 
 import biastree
@@ -98,15 +98,66 @@ def test_expand_draws_each_copy() -> None:
     assert "adc_cmp [2/4]" in text
 
 
-def test_large_plan_collapses_and_says_so() -> None:
+def _rows_tall(text: str) -> int:
+    """Nodes at the right-hand edge of a left-to-right DOT drawing (its height in nodes):
+    the nodes that no edge leaves."""
+    nodes = set(re.findall(r'^  "([^"]+)" \[', text, re.M))
+    sources = set(re.findall(r'^  (?:"([^"]+)"|reference) -> ', text, re.M))
+    return len(nodes - sources)
+
+
+def test_large_plan_is_fitted_and_says_so() -> None:
+    from biastree.output.dot import AUTO_NODE_LIMIT, ROW_LIMIT
+
+    for n in (2000, 6000):
+        result = biastree.check(tree_of(random_plan(n, seed=5)))
+        diagram = to_dot(result)
+        assert diagram.notes and "summary node" in diagram.notes[0]
+        assert _rows_tall(diagram.text) <= ROW_LIMIT
+        # every load is still counted in the summary nodes of what is drawn and cut
+        counted = sum(int(x) for x in re.findall(r'label=<<TABLE[^>]*><TR><TD[^>]*><B><FONT[^>]*>(\d+) loads<', diagram.text))
+        counted += sum(int(x) for x in re.findall(r"mirror\(s\), (\d+) load\(s\) below", diagram.text))
+        assert counted == n
+    full = to_dot(result, fit=False)
+    assert full.nodes <= AUTO_NODE_LIMIT + 1000 and "too many to draw" in full.notes[0]
+    small = to_dot(biastree.check(tree_of(random_plan(60, seed=5))))
+    assert not small.notes  # a small plan is drawn whole
+
+
+def test_summary_nodes_break_lines() -> None:
+    """The summary of a depth cut is two lines in Graphviz (DOT's \\n), not a printed backslash-n."""
+    text = to_dot(biastree.check(ROOT / "samples" / "bipolar_small.yaml"), depth=1).text
+    line = next(l for l in text.splitlines() if l.startswith('  "more:'))
+    assert 'below\\nFAIL' in line or 'below\\nPASS' in line
+    assert "\\\\n" not in text
+
+
+def test_subtree_draws_one_part() -> None:
+    result = biastree.check(ROOT / "samples" / "bipolar_small.yaml")
+    tree = result.tree
+    part = tree.mirrors[1]
+    loads, mirrors = _dot_nodes(to_dot(result, subtree=part).text)
+    m = tree.mirrors.index(part)
+    assert loads == {tree.loads[i] for i in range(len(tree.loads)) if m in tree.path(i)}
+    assert part in mirrors and tree.mirrors[0] not in mirrors
+    assert f"via {tree.mirrors[0]}" in to_dot(result, subtree=part).text
+    with pytest.raises(biastree.BiasTreeError, match="no mirror named"):
+        to_dot(result, subtree="nowhere")
+
+
+def test_one_mirror_with_50000_branches_is_capped() -> None:
+    """Issue 15 item 7: a flat mirror of 50,000 branches; the drawing must not send them all to Graphviz."""
     from biastree.output.dot import AUTO_NODE_LIMIT
 
-    result = biastree.check(tree_of(random_plan(6000, seed=5)))
-    diagram = to_dot(result)
-    assert diagram.notes and "too many to read" in diagram.notes[0]
-    assert diagram.nodes <= AUTO_NODE_LIMIT + 1000  # summaries of cut subtrees come on top
-    small = to_dot(biastree.check(tree_of(random_plan(2000, seed=5))))
-    assert not small.notes  # a 2,000-load plan is drawn whole
+    plan = one_stage({"kind": "npn", "is": "1e-16A", "beta": 100, "early": "50V"},
+                     [{"to": f"l{k}", "ratio": 1} for k in range(50_000)],
+                     {f"l{k}": {"current": "1uA", "tolerance": "50%", "voltage": "1V"} for k in range(50_000)},
+                     current="1uA", supply="3V")
+    result = biastree.check(tree_of(plan), detail=False)
+    for fit in (True, False):
+        diagram = to_dot(result, fit=fit)
+        assert diagram.nodes <= min(AUTO_NODE_LIMIT, 10)
+        assert "50000 loads" in diagram.text
 
 
 def test_annotations() -> None:
@@ -138,7 +189,7 @@ def test_png_and_pdf_render(dot, tmp_path) -> None:  # type: ignore[no-untyped-d
 def test_wide_png_is_refused(dot, tmp_path) -> None:  # type: ignore[no-untyped-def]
     plan = tmp_path / "big.yaml"
     assert runner.invoke(app, ["generate", "800", "-o", str(plan)]).exit_code == 0
-    result = runner.invoke(app, ["draw", str(plan), "-o", str(tmp_path / "big.png")])
+    result = runner.invoke(app, ["draw", str(plan), "-o", str(tmp_path / "big.png"), "--full"])
     assert result.exit_code == 2 and "would be unreadable" in result.output
     assert not (tmp_path / "big.png").exists()
 

@@ -27,25 +27,30 @@ def draw(
     depth: Annotated[Optional[int], typer.Option(help="mirror levels to draw; deeper parts are summed up", min=1)] = None,
     annotate: Annotated[Annotation, typer.Option(help="edge labels: current, ratio or error")] = Annotation.current,
     expand: Annotated[bool, typer.Option("--expand", help="one node per copy of a load (default: one node ×N)")] = False,
+    subtree: Annotated[Optional[str], typer.Option("--subtree", help="draw only this mirror and what it feeds")] = None,
+    full: Annotated[bool, typer.Option("--full", help="do not fit a large tree to a readable height "
+                                       "(still at most a few thousand nodes)")] = False,
 ) -> None:
     """Draw the audited tree (Graphviz; status shown by colour and by mark)."""
     from biastree.files import write_atomic
     from biastree.output.dot import to_dot
 
     result = biastree.check(load_tree(plan))
-    diagram = to_dot(result, only_failing=only_failing, depth=depth, annotate=annotate.value, expand=expand)
+    diagram = to_dot(result, only_failing=only_failing, depth=depth, annotate=annotate.value, expand=expand,
+                     subtree=subtree, fit=not full)
     for note in diagram.notes:
         typer.echo(f"note: {note}", err=True)
     fmt = output.suffix.lower().lstrip(".")
     if fmt in ("dot", "gv"):
         write_atomic(output, diagram.text)
         return
-    from biastree.output.render import render
+    from biastree.output.render import height_note, render
 
-    write_atomic(output, render(diagram.text, fmt, diagram.nodes))
-
-
-REPORT_NODE_LIMIT = 600  # larger trees are shown by the page's outline, not a diagram
+    picture = render(diagram.text, fmt, diagram.nodes)
+    note = height_note(picture) if fmt == "svg" else None
+    if note:
+        typer.echo(f"note: {note}", err=True)
+    write_atomic(output, picture)
 
 
 class ReportFormat(str, Enum):
@@ -78,12 +83,10 @@ def report(
 
         svg = None
         if diagram:
-            picture = to_dot(result, node_limit=REPORT_NODE_LIMIT)
-            if picture.notes:
-                typer.echo("note: the tree is too large for an embedded diagram; the report's outline shows it "
-                           "(biastree draw --subtree NAME draws one part)", err=True)
-            else:
-                svg = svg_body(render(picture.text, "svg"))
+            picture = to_dot(result)  # fitted to a readable size; the page's outline and tables hold the rest
+            for note in picture.notes:
+                typer.echo(f"note: diagram: {note}", err=True)
+            svg = svg_body(render(picture.text, "svg", picture.nodes))
         text = to_html(result, svg, str(plan))
     if csv is not None:
         from biastree.output.csv import to_csv
