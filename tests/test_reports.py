@@ -281,3 +281,96 @@ def test_markdown_and_csv_cli(tmp_path) -> None:  # type: ignore[no-untyped-def]
     text = md.read_text()
     assert "## Why loads fail" in text and "### hot_node" in text and "β loading" in text
     assert len(table.read_text().splitlines()) == 1 + 5
+
+
+# --- diff ------------------------------------------------------------------
+
+
+def _edited(tmp_path, sample: str, *edits: tuple[str, str]):  # type: ignore[no-untyped-def]
+    text = (ROOT / "samples" / sample).read_text()
+    for old, new in edits:
+        assert old in text, old
+        text = text.replace(old, new)
+    path = tmp_path / f"new_{sample}"
+    path.write_text(text)
+    return path
+
+
+def test_diff_of_a_plan_with_itself_is_empty() -> None:
+    sample = ROOT / "samples" / "bipolar_small.yaml"
+    result = runner.invoke(app, ["diff", str(sample), str(sample)])
+    assert result.exit_code == 0, result.output
+    assert "0 change(s)" in result.output and "10 load(s): 0 changed, 10 the same" in result.output
+
+
+def test_diff_names_each_change_and_every_load_matches_check(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    old = ROOT / "samples" / "bipolar_small.yaml"
+    new = _edited(tmp_path, "bipolar_small.yaml", ("beta: 200", "beta: 40"),
+                  ("{to: adc_ref, ratio: 1}", "{to: adc_ref, ratio: 1.1}"),
+                  ("  osc_bias:", "  osc_spare: {current: 5uA, tolerance: 10%, voltage: 2V}\n  osc_bias:"),
+                  ("{to: osc_bias, ratio: 0.25}", "{to: osc_bias, ratio: 0.25}\n      - {to: osc_spare, ratio: 0.25}"))
+    result = runner.invoke(app, ["diff", str(old), str(new), "--json"])
+    assert result.exit_code == 1, result.output  # loads that passed now fail
+    data = json.loads(result.stdout)
+    paths = {c["path"]: c for c in data["changes"]}
+    assert paths["devices.qn.beta"]["old"] == 200 and paths["devices.qn.beta"]["new"] == 40
+    assert paths["mirrors.m_adc.branches[0].ratio"]["new"] == 1.1
+    assert paths["loads.osc_spare"]["kind"] == "added"
+    before, after = json_of(old), json_of(new)
+    a = {l["name"]: l for l in before["loads"]}
+    b = {l["name"]: l for l in after["loads"]}
+    rows = {r["name"]: r for r in data["loads"]}
+    assert set(rows) == set(a) | set(b)
+    assert rows["osc_spare"]["status"] == "added" and rows["osc_spare"]["old"] is None
+    for name in a:
+        for key in ("delivered", "error", "margin", "verdict"):
+            assert rows[name]["old"][key] == a[name][key]
+            assert rows[name]["new"][key] == b[name][key]
+    assert set(data["regressions"]) == {n for n in b if b[n]["verdict"] == "fail" and a.get(n, {}).get("verdict") != "fail"}
+    table = runner.invoke(app, ["diff", str(old), str(new)]).output
+    assert "changed  devices.qn.beta: 200 → 40" in table and "pass → fail" in table
+
+
+def test_report_against_an_older_plan(dot, tmp_path) -> None:  # type: ignore[no-untyped-def]
+    old = ROOT / "samples" / "failing_budgets.yaml"
+    new = _edited(tmp_path, "failing_budgets.yaml", ("tolerance: 2%", "tolerance: 4%"))
+    out = tmp_path / "r.html"
+    result = runner.invoke(app, ["report", str(new), "-o", str(out), "--against", str(old)])
+    assert result.exit_code == 0, result.output
+    page = out.read_text()
+    assert 'id="diff"' in page and "tolerance" in page and "fine_trim" in page.split('id="diff"')[1]
+
+
+# --- plots and temperature coefficients --------------------------------------------
+
+
+def test_sweep_and_spread_plots(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    sample = ROOT / "samples" / "die_spread.yaml"
+    svg = tmp_path / "sweep.svg"
+    result = runner.invoke(app, ["sweep", str(sample), "--temperature", "-40C:125C:55C", "--plot", str(svg),
+                                 "--load", "amp_far", "-o", str(tmp_path / "t.txt")])
+    assert result.exit_code == 0, result.output
+    root = ET.parse(svg).getroot()
+    text = " ".join(t.text or "" for t in root.iter() if t.tag.endswith("text"))
+    assert "amp_far" in text and "temperature (°C)" in text and "budget" in text
+    bad = runner.invoke(app, ["sweep", str(sample), "--temperature", "0C:50C:25C", "--plot", str(svg), "--load", "nope"])
+    assert bad.exit_code == 2 and "no load named 'nope'" in bad.output
+    hist = tmp_path / "spread.svg"
+    result = runner.invoke(app, ["spread", str(sample), "--samples", "300", "--plot", str(hist), "-o", str(tmp_path / "s.txt")])
+    assert result.exit_code == 0, result.output
+    text = " ".join(t.text or "" for t in ET.parse(hist).getroot().iter() if t.tag.endswith("text"))
+    assert "300 samples" in text and "inside" in text
+
+
+def test_tempco_is_the_end_point_slope() -> None:
+    """ppm/K = ΔI / (Ī·ΔT) between the coldest and hottest solved temperature (definition of an
+    average temperature coefficient, e.g. Razavi, Design of Analog CMOS ICs, 2nd ed., §12.1, from memory)."""
+    from biastree.analysis.corners import evaluate, sweep_columns
+    from biastree.output.breakdown import tempco_ppm
+
+    tree = biastree.load(ROOT / "samples" / "cmos_soc.yaml")
+    cond = evaluate(tree, sweep_columns(tree, [233.15, 300.15, 398.15]))
+    tc = tempco_ppm(cond)
+    i_lo, i_hi = cond.op.l_current[:, 0], cond.op.l_current[:, 2]
+    assert tc == pytest.approx((i_hi - i_lo) / ((i_hi + i_lo) / 2 * 165.0) * 1e6)
+    assert tempco_ppm(evaluate(tree, sweep_columns(tree, [300.0]))) is None

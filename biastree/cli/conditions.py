@@ -22,6 +22,7 @@ def spread(
     reference: Annotated[bool, typer.Option(help="sample the reference tolerance (as 3σ)")] = True,
     process: Annotated[bool, typer.Option(help="sample the plan's global process spread")] = True,
     output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file")] = None,
+    plot: Annotated[Optional[Path], typer.Option("--plot", help="also write histograms of the worst loads (SVG)")] = None,
 ) -> None:
     """Monte Carlo of device mismatch (and reference and process spread), against first-order σ."""
     from biastree.analysis.spread import analytic, monte_carlo
@@ -40,6 +41,11 @@ def spread(
             typer.echo(f"\r[{bar:<30}] {done}/{total} samples", err=True, nl=done == total)
 
     mc = monte_carlo(tree, samples, seed, include_reference=reference, include_process=process, progress=progress)
+    if plot is not None:
+        from biastree.files import write_atomic
+        from biastree.output.plots import spread_histogram
+
+        write_atomic(plot, spread_histogram(mc))
     emit(to_spread_json(mc, an) if json else to_spread_table(mc, an), output)
 
 
@@ -54,6 +60,9 @@ def sweep(
     json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
     csv: Annotated[Optional[Path], typer.Option("--csv", help="also write every load × condition as CSV")] = None,
     output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file")] = None,
+    plot: Annotated[Optional[Path], typer.Option("--plot", help="also plot the loads against the swept axis (SVG)")] = None,
+    load: Annotated[Optional[list[str]], typer.Option("--load", help="load(s) to plot (default: the worst 8)")] = None,
+    plot_current: Annotated[bool, typer.Option("--plot-current", help="plot the current instead of the error")] = False,
 ) -> None:
     """Solve the plan over temperature, supply and corners; each load's worst case and where."""
     from biastree.analysis.corners import evaluate, parse_range, sweep_columns
@@ -75,12 +84,26 @@ def sweep(
         from biastree.files import write_atomic
 
         write_atomic(csv, to_sweep_csv(result))
+    if plot is not None:
+        _plot_sweep(result, plot, load, plot_current, "supply" if supply and not temperature else "temperature")
     if json:
         import json as _json
 
         emit(_json.dumps(sweep_data(result), indent=1) + "\n", output)
     else:
         emit(to_sweep_table(result), output)
+
+
+def _plot_sweep(result: object, path: Path, names: Optional[list[str]], current: bool, axis: str) -> None:
+    from biastree.files import write_atomic
+    from biastree.output.plots import sweep_plot
+
+    tree = result.tree  # type: ignore[attr-defined]
+    unknown = [n for n in names or [] if n not in tree.loads]
+    if unknown:
+        raise BiasTreeError(f"--load: no load named '{unknown[0]}'")
+    picked = [tree.loads.index(n) for n in names] if names else None
+    write_atomic(path, sweep_plot(result, picked, "current" if current else "error", axis))
 
 
 @app.command()

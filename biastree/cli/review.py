@@ -53,6 +53,13 @@ def draw(
     write_atomic(output, picture)
 
 
+def report_plots(result: biastree.Audit) -> list[tuple[str, str]]:
+    """The report's plots (matplotlib, SVG): the worst loads' error over the plan's temperatures."""
+    from biastree.output.plots import report_plots as plots
+
+    return plots(result)
+
+
 class ReportFormat(str, Enum):
     html = "html"
     md = "md"
@@ -66,6 +73,8 @@ def report(
     fmt: Annotated[Optional[ReportFormat], typer.Option("--format", help="html or md (default: by suffix)")] = None,
     csv: Annotated[Optional[Path], typer.Option("--csv", help="also write the load table as CSV")] = None,
     diagram: Annotated[bool, typer.Option(help="embed the tree diagram (needs Graphviz)")] = True,
+    against: Annotated[Optional[Path], typer.Option("--against", help="an older plan: add what changed and what it "
+                                                    "did to every load (HTML)")] = None,
 ) -> None:
     """Write a review report: inputs, verdicts, tree diagram, load table, why loads fail."""
     from biastree.files import write_atomic
@@ -87,7 +96,13 @@ def report(
             for note in picture.notes:
                 typer.echo(f"note: diagram: {note}", err=True)
             svg = svg_body(render(picture.text, "svg", picture.nodes))
-        text = to_html(result, svg, str(plan))
+        changes = None
+        if against is not None:
+            from biastree.analysis.diff import compare
+            from biastree.output.diff_table import to_diff_html
+
+            changes = to_diff_html(compare(biastree.check(load_tree(against)), result), str(against))
+        text = to_html(result, svg, str(plan), plots=report_plots(result), diff=changes)
     if csv is not None:
         from biastree.output.csv import to_csv
 
