@@ -36,7 +36,7 @@ a.link{color:#1a5276;cursor:pointer;text-decoration:none} a.link:hover{text-deco
 .terms td{padding:.1em .5em} .bar{height:.8em;display:inline-block;vertical-align:middle}
 .bar.up{background:#5c6bc0} .bar.down{background:repeating-linear-gradient(90deg,#ef6c00 0 4px,#ffcc80 4px 6px)}
 #outline ul{list-style:none;margin:0;padding-left:1.3em} #outline>ul{padding-left:0}
-#outline li{margin:.12em 0;font-size:.88em;white-space:nowrap}
+#outline{font-size:.88em} #outline li{margin:.12em 0;white-space:nowrap}
 .tog{display:inline-block;width:1.2em;cursor:pointer;color:#455a64;border:0;background:none;padding:0}
 .info{color:#607d8b;margin-left:.5em}
 #diagram{border:1px solid #cfd8dc;height:75vh;overflow:hidden;cursor:grab;background:#fff}
