@@ -29,14 +29,14 @@ def _floats(values: Any) -> list[float | None]:
     return [x if np.isfinite(x) else None for x in arr.tolist()]
 
 
-def explanation(result: Audit, i: int) -> dict[str, Any]:
+def explanation(result: Audit, i: int, stages: dict[str, int] | None = None) -> dict[str, Any]:
     """Everything the page shows about why one load fails (plain data).
 
     A per-load object, so that more (e.g. the deciding case) can be added
     without changing the page's other data.
     """
-    tree = result.tree
-    stages = {name: k for k, name in enumerate(tree.mirrors)}
+    if stages is None:  # mirror name → index (pass it in when explaining many loads)
+        stages = {name: k for k, name in enumerate(result.tree.mirrors)}
     return {
         "reasons": result.reasons(i),
         "hints": result.hints.get(i, []),
@@ -93,7 +93,8 @@ def page_data(result: Audit) -> dict[str, Any]:
         "vin": _floats(op.m_v_in[:, 1]),
         "fanout": _floats(tree.m_fanout),
     }
-    explain = {str(int(i)): explanation(result, int(i)) for i in np.flatnonzero(~result.passed)}
+    index = {name: k for k, name in enumerate(tree.mirrors)}
+    explain = {str(int(i)): explanation(result, int(i), index) for i in np.flatnonzero(~result.passed)}
     return {"k_sigma": result.k_sigma, "conditions": conditions, "loads": loads, "mirrors": mirrors,
             "explain": explain}
 
