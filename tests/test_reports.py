@@ -234,6 +234,8 @@ def test_html_report_is_self_contained(dot, sample, tmp_path) -> None:  # type: 
     for name in biastree.load(sample).loads:
         assert name in body
     assert "sign-off belongs to the foundry" in body
+    if biastree.load(sample).plan.conditions.temperatures:  # plots and the ppm/K column
+        assert "<figure" in page and '"tempco"' in page
 
 
 def _page_data(page: str) -> dict:  # type: ignore[type-arg]
