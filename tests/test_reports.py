@@ -145,7 +145,7 @@ def test_subtree_draws_one_part() -> None:
         to_dot(result, subtree="nowhere")
 
 
-def test_one_mirror_with_50000_branches_is_capped() -> None:
+def test_one_flat_mirror_of_many_branches_is_capped() -> None:
     """Issue 15 item 7 (there 50,000 branches; 20,000 show the same): a flat mirror must not send every branch to Graphviz."""
     from biastree.output.dot import AUTO_NODE_LIMIT
 
