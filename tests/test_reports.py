@@ -13,7 +13,7 @@ from html.parser import HTMLParser
 
 import pytest
 from conftest import ROOT, SAMPLES
-from helpers import tree_of
+from helpers import one_stage, tree_of
 from typer.testing import CliRunner
 
 import biastree
@@ -99,15 +99,66 @@ def test_expand_draws_each_copy() -> None:
     assert "adc_cmp [2/4]" in text
 
 
-def test_large_plan_collapses_and_says_so() -> None:
+def _rows_tall(text: str) -> int:
+    """Nodes at the right-hand edge of a left-to-right DOT drawing (its height in nodes):
+    the nodes that no edge leaves."""
+    nodes = set(re.findall(r'^  "([^"]+)" \[', text, re.M))
+    sources = set(re.findall(r'^  (?:"([^"]+)"|reference) -> ', text, re.M))
+    return len(nodes - sources)
+
+
+def test_large_plan_is_fitted_and_says_so() -> None:
+    from biastree.output.dot import AUTO_NODE_LIMIT, ROW_LIMIT
+
+    for n in (2000, 6000):
+        result = biastree.check(tree_of(random_plan(n, seed=5)))
+        diagram = to_dot(result)
+        assert diagram.notes and "summary node" in diagram.notes[0]
+        assert _rows_tall(diagram.text) <= ROW_LIMIT
+        # every load is still counted in the summary nodes of what is drawn and cut
+        counted = sum(int(x) for x in re.findall(r'label=<<TABLE[^>]*><TR><TD[^>]*><B><FONT[^>]*>(\d+) loads<', diagram.text))
+        counted += sum(int(x) for x in re.findall(r"mirror\(s\), (\d+) load\(s\) below", diagram.text))
+        assert counted == n
+    full = to_dot(result, fit=False)
+    assert full.nodes <= AUTO_NODE_LIMIT + 1000 and "too many to draw" in full.notes[0]
+    small = to_dot(biastree.check(tree_of(random_plan(60, seed=5))))
+    assert not small.notes  # a small plan is drawn whole
+
+
+def test_summary_nodes_break_lines() -> None:
+    """The summary of a depth cut is two lines in Graphviz (DOT's \\n), not a printed backslash-n."""
+    text = to_dot(biastree.check(ROOT / "samples" / "bipolar_small.yaml"), depth=1).text
+    line = next(l for l in text.splitlines() if l.startswith('  "more:'))
+    assert 'below\\nFAIL' in line or 'below\\nPASS' in line
+    assert "\\\\n" not in text
+
+
+def test_subtree_draws_one_part() -> None:
+    result = biastree.check(ROOT / "samples" / "bipolar_small.yaml")
+    tree = result.tree
+    part = tree.mirrors[1]
+    loads, mirrors = _dot_nodes(to_dot(result, subtree=part).text)
+    m = tree.mirrors.index(part)
+    assert loads == {tree.loads[i] for i in range(len(tree.loads)) if m in tree.path(i)}
+    assert part in mirrors and tree.mirrors[0] not in mirrors
+    assert f"via {tree.mirrors[0]}" in to_dot(result, subtree=part).text
+    with pytest.raises(biastree.BiasTreeError, match="no mirror named"):
+        to_dot(result, subtree="nowhere")
+
+
+def test_one_flat_mirror_of_many_branches_is_capped() -> None:
+    """Issue 15 item 7 (there 50,000 branches; 20,000 show the same): a flat mirror must not send every branch to Graphviz."""
     from biastree.output.dot import AUTO_NODE_LIMIT
 
-    result = biastree.check(tree_of(random_plan(6000, seed=5)))
-    diagram = to_dot(result)
-    assert diagram.notes and "too many to read" in diagram.notes[0]
-    assert diagram.nodes <= AUTO_NODE_LIMIT + 1000  # summaries of cut subtrees come on top
-    small = to_dot(biastree.check(tree_of(random_plan(2000, seed=5))))
-    assert not small.notes  # a 2,000-load plan is drawn whole
+    plan = one_stage({"kind": "npn", "is": "1e-16A", "beta": 100, "early": "50V"},
+                     [{"to": f"l{k}", "ratio": 1} for k in range(20_000)],
+                     {f"l{k}": {"current": "1uA", "tolerance": "50%", "voltage": "1V"} for k in range(20_000)},
+                     current="1uA", supply="3V")
+    result = biastree.check(tree_of(plan), detail=False)
+    for fit in (True, False):
+        diagram = to_dot(result, fit=fit)
+        assert diagram.nodes <= min(AUTO_NODE_LIMIT, 10)
+        assert "20000 loads" in diagram.text
 
 
 def test_annotations() -> None:
@@ -139,7 +190,7 @@ def test_png_and_pdf_render(dot, tmp_path) -> None:  # type: ignore[no-untyped-d
 def test_wide_png_is_refused(dot, tmp_path) -> None:  # type: ignore[no-untyped-def]
     plan = tmp_path / "big.yaml"
     assert runner.invoke(app, ["generate", "800", "-o", str(plan)]).exit_code == 0
-    result = runner.invoke(app, ["draw", str(plan), "-o", str(tmp_path / "big.png")])
+    result = runner.invoke(app, ["draw", str(plan), "-o", str(tmp_path / "big.png"), "--full"])
     assert result.exit_code == 2 and "would be unreadable" in result.output
     assert not (tmp_path / "big.png").exists()
 
@@ -184,14 +235,14 @@ def test_html_report_is_self_contained(dot, sample, tmp_path) -> None:  # type: 
     for name in biastree.load(sample).loads:
         assert name in body
     assert "sign-off belongs to the foundry" in body
+    if biastree.load(sample).plan.conditions.temperatures:  # plots and the ppm/K column
+        assert "<figure" in page and '"tempco"' in page
 
 
-def _html_rows(page: str) -> dict[str, list[str]]:
-    rows = {}
-    for row in re.findall(r"<tr[^>]*>(<td data-v=.*?)</tr>", page):
-        values = re.findall(r'data-v="([^"]*)"', row)
-        rows[values[0]] = values
-    return rows
+def _page_data(page: str) -> dict:  # type: ignore[type-arg]
+    head = '<script type="application/json" id="data">'
+    start = page.index(head) + len(head)
+    return json.loads(page[start: page.index("</script>", start)])
 
 
 @pytest.mark.parametrize("sample", SAMPLES, ids=lambda p: p.stem)
@@ -209,11 +260,13 @@ def test_report_numbers_match_json(sample) -> None:  # type: ignore[no-untyped-d
         conditions = load["conditions"]["compliance_margin"] if load["conditions"] else load["compliance_margin"]
         assert float(row["compliance_V"]) == min(load["compliance_margin"], conditions)
         assert row["verdict"] == load["verdict"]
-    # HTML: the sortable table carries the exact numbers in data-v
-    for name, values in _html_rows(to_html(result)).items():
-        assert float(values[4]) == data[name]["delivered"]
-        assert float(values[5]) == data[name]["error"]
-        assert values[11] == data[name]["verdict"]
+    # HTML: the page's embedded data carries the exact numbers
+    page = _page_data(to_html(result))["loads"]
+    for k, name in enumerate(page["name"]):
+        assert page["delivered"][k] == data[name]["delivered"]
+        assert page["error"][k] == data[name]["error"]
+        assert page["margin"][k] == data[name]["margin"]
+        assert ("pass" if page["pass"][k] else "fail") == data[name]["verdict"]
     # Markdown: the shared columns, delivered printed to 4 significant digits
     titles = [c.title for c in visible(result)]
     seen = 0
@@ -224,7 +277,7 @@ def test_report_numbers_match_json(sample) -> None:  # type: ignore[no-untyped-d
             assert ("FAIL" in cells[-1]) == (data[cells[0]]["verdict"] == "fail")
             seen += 1
     assert seen == len(data)
-    assert len(_html_rows(to_html(result))) == len(data)
+    assert len(page["name"]) == len(data)
 
 
 def test_markdown_and_csv_cli(tmp_path) -> None:  # type: ignore[no-untyped-def]
@@ -234,3 +287,96 @@ def test_markdown_and_csv_cli(tmp_path) -> None:  # type: ignore[no-untyped-def]
     text = md.read_text()
     assert "## Why loads fail" in text and "### hot_node" in text and "β loading" in text
     assert len(table.read_text().splitlines()) == 1 + 5
+
+
+# --- diff ------------------------------------------------------------------
+
+
+def _edited(tmp_path, sample: str, *edits: tuple[str, str]):  # type: ignore[no-untyped-def]
+    text = (ROOT / "samples" / sample).read_text()
+    for old, new in edits:
+        assert old in text, old
+        text = text.replace(old, new)
+    path = tmp_path / f"new_{sample}"
+    path.write_text(text)
+    return path
+
+
+def test_diff_of_a_plan_with_itself_is_empty() -> None:
+    sample = ROOT / "samples" / "bipolar_small.yaml"
+    result = runner.invoke(app, ["diff", str(sample), str(sample)])
+    assert result.exit_code == 0, result.output
+    assert "0 change(s)" in result.output and "10 load(s): 0 changed, 10 the same" in result.output
+
+
+def test_diff_names_each_change_and_every_load_matches_check(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    old = ROOT / "samples" / "bipolar_small.yaml"
+    new = _edited(tmp_path, "bipolar_small.yaml", ("beta: 200", "beta: 40"),
+                  ("{to: adc_ref, ratio: 1}", "{to: adc_ref, ratio: 1.1}"),
+                  ("  osc_bias:", "  osc_spare: {current: 5uA, tolerance: 10%, voltage: 2V}\n  osc_bias:"),
+                  ("{to: osc_bias, ratio: 0.25}", "{to: osc_bias, ratio: 0.25}\n      - {to: osc_spare, ratio: 0.25}"))
+    result = runner.invoke(app, ["diff", str(old), str(new), "--json"])
+    assert result.exit_code == 1, result.output  # loads that passed now fail
+    data = json.loads(result.stdout)
+    paths = {c["path"]: c for c in data["changes"]}
+    assert paths["devices.qn.beta"]["old"] == 200 and paths["devices.qn.beta"]["new"] == 40
+    assert paths["mirrors.m_adc.branches[0].ratio"]["new"] == 1.1
+    assert paths["loads.osc_spare"]["kind"] == "added"
+    before, after = json_of(old), json_of(new)
+    a = {l["name"]: l for l in before["loads"]}
+    b = {l["name"]: l for l in after["loads"]}
+    rows = {r["name"]: r for r in data["loads"]}
+    assert set(rows) == set(a) | set(b)
+    assert rows["osc_spare"]["status"] == "added" and rows["osc_spare"]["old"] is None
+    for name in a:
+        for key in ("delivered", "error", "margin", "verdict"):
+            assert rows[name]["old"][key] == a[name][key]
+            assert rows[name]["new"][key] == b[name][key]
+    assert set(data["regressions"]) == {n for n in b if b[n]["verdict"] == "fail" and a.get(n, {}).get("verdict") != "fail"}
+    table = runner.invoke(app, ["diff", str(old), str(new)]).output
+    assert "changed  devices.qn.beta: 200 → 40" in table and "pass → fail" in table
+
+
+def test_report_against_an_older_plan(dot, tmp_path) -> None:  # type: ignore[no-untyped-def]
+    old = ROOT / "samples" / "failing_budgets.yaml"
+    new = _edited(tmp_path, "failing_budgets.yaml", ("tolerance: 2%", "tolerance: 4%"))
+    out = tmp_path / "r.html"
+    result = runner.invoke(app, ["report", str(new), "-o", str(out), "--against", str(old)])
+    assert result.exit_code == 0, result.output
+    page = out.read_text()
+    assert 'id="diff"' in page and "tolerance" in page and "fine_trim" in page.split('id="diff"')[1]
+
+
+# --- plots and temperature coefficients --------------------------------------------
+
+
+def test_sweep_and_spread_plots(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    sample = ROOT / "samples" / "die_spread.yaml"
+    svg = tmp_path / "sweep.svg"
+    result = runner.invoke(app, ["sweep", str(sample), "--temperature", "-40C:125C:55C", "--plot", str(svg),
+                                 "--load", "amp_far", "-o", str(tmp_path / "t.txt")])
+    assert result.exit_code in (0, 1), result.output  # 1: a load fails somewhere in the sweep (a verdict)
+    root = ET.parse(svg).getroot()
+    text = " ".join(t.text or "" for t in root.iter() if t.tag.endswith("text"))
+    assert "amp_far" in text and "temperature (°C)" in text and "budget" in text
+    bad = runner.invoke(app, ["sweep", str(sample), "--temperature", "0C:50C:25C", "--plot", str(svg), "--load", "nope"])
+    assert bad.exit_code == 2 and "no load named 'nope'" in bad.output
+    hist = tmp_path / "spread.svg"
+    result = runner.invoke(app, ["spread", str(sample), "--samples", "300", "--plot", str(hist), "-o", str(tmp_path / "s.txt")])
+    assert result.exit_code in (0, 1), result.output  # 1: a yield below the required yield (a verdict)
+    text = " ".join(t.text or "" for t in ET.parse(hist).getroot().iter() if t.tag.endswith("text"))
+    assert "300 samples" in text and "inside" in text
+
+
+def test_tempco_is_the_end_point_slope() -> None:
+    """ppm/K = ΔI / (Ī·ΔT) between the coldest and hottest solved temperature (definition of an
+    average temperature coefficient, e.g. Razavi, Design of Analog CMOS ICs, 2nd ed., §12.1, from memory)."""
+    from biastree.analysis.corners import evaluate, sweep_columns
+    from biastree.output.breakdown import tempco_ppm
+
+    tree = biastree.load(ROOT / "samples" / "cmos_soc.yaml")
+    cond = evaluate(tree, sweep_columns(tree, [233.15, 300.15, 398.15]))
+    tc = tempco_ppm(cond)
+    i_lo, i_hi = cond.op.l_current[:, 0], cond.op.l_current[:, 2]
+    assert tc == pytest.approx((i_hi - i_lo) / ((i_hi + i_lo) / 2 * 165.0) * 1e6)
+    assert tempco_ppm(evaluate(tree, sweep_columns(tree, [300.0]))) is None

@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -21,17 +22,17 @@ class ConditionResult:
     columns: Columns
     op: OperatingPoint
 
-    @property
+    @cached_property  # computed once: callers ask per load
     def error(self) -> Array:
         """(n_loads, C): delivered / target − 1 in each column."""
         target = np.array([self.tree.plan.loads[n].current for n in self.tree.loads])
         return self.op.l_current / target[:, None] - 1.0
 
-    @property
+    @cached_property  # computed once: callers ask per load
     def worst_index(self) -> Array:
         return np.argmax(np.abs(self.error), axis=1)
 
-    @property
+    @cached_property  # computed once: callers ask per load
     def worst_error(self) -> Array:
         return self.error[np.arange(len(self.tree.loads)), self.worst_index]
 
@@ -43,16 +44,16 @@ class ConditionResult:
         word = self.columns.names[column].rsplit(" ", 1)[-1]
         return word if word in ENDS else "nominal"
 
-    @property
+    @cached_property  # computed once: callers ask per load
     def compliance(self) -> Array:
         """(n_loads,) smallest compliance margin over all columns, V."""
         return self.op.b_compliance[self.tree.l_branch].min(axis=1)
 
-    @property
+    @cached_property  # computed once: callers ask per load
     def compliance_index(self) -> Array:
         return np.argmin(self.op.b_compliance[self.tree.l_branch], axis=1)
 
-    @property
+    @cached_property  # computed once: callers ask per load
     def headroom(self) -> Array:
         """(n_loads,) smallest compliance margin of the branches between mirrors on the path."""
         return path_headroom(self.tree, self.op.b_compliance).min(axis=1)

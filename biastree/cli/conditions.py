@@ -27,6 +27,7 @@ def spread(
         "--required-yield", help="yield each load must reach, e.g. 99% (default: erf(k/√2) for the plan's "
                                  "spread.k_sigma, 99.73% for k = 3)")] = None,
     output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file")] = None,
+    plot: Annotated[Optional[Path], typer.Option("--plot", help="also write histograms of the worst loads (SVG)")] = None,
 ) -> None:
     """Monte Carlo of device mismatch (and reference and process spread), against first-order σ;
     per-die yield of every load over all its copies (exit 1 if a load's yield is below the required yield)."""
@@ -73,6 +74,11 @@ def spread(
         typer.echo(("\n" if show else "") + f"interrupted after {clock['done']} of {samples} samples: nothing written",
                    err=True)
         raise typer.Exit(130) from None
+    if plot is not None:
+        from biastree.files import write_atomic
+        from biastree.output.plots import spread_histogram
+
+        write_atomic(plot, spread_histogram(dy.mc))
     data = spread_data(dy, an, need)
     emit(to_spread_json(data) if json else to_spread_table(data), output)
     raise typer.Exit(0 if data["verdict"] == "pass" else 1)
@@ -99,6 +105,9 @@ def sweep(
     k_sigma: Annotated[Optional[float], typer.Option(help="budgets must hold with this many σ of mismatch (plan default 3)")] = None,
     mismatch: Annotated[bool, typer.Option(help="add k·σ of mismatch when devices carry matching coefficients")] = True,
     output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write to this file")] = None,
+    plot: Annotated[Optional[Path], typer.Option("--plot", help="also plot the loads against the swept axis (SVG)")] = None,
+    load: Annotated[Optional[list[str]], typer.Option("--load", help="load(s) to plot (default: the worst 8)")] = None,
+    plot_current: Annotated[bool, typer.Option("--plot-current", help="plot the current instead of the error")] = False,
 ) -> None:
     """Solve the plan over temperature, supply and corners; each load's worst case, where, and its
     verdict (exit 1 if any load fails in some condition)."""
@@ -121,7 +130,21 @@ def sweep(
         from biastree.files import write_atomic
 
         write_atomic(csv, to_sweep_csv(result))
+    if plot is not None:
+        _plot_sweep(result, plot, load, plot_current, "supply" if supply and not temperature else "temperature")
     _emit_verdicts(result, json, output, k_sigma, mismatch)
+
+
+def _plot_sweep(result: object, path: Path, names: Optional[list[str]], current: bool, axis: str) -> None:
+    from biastree.files import write_atomic
+    from biastree.output.plots import sweep_plot
+
+    tree = result.tree  # type: ignore[attr-defined]
+    unknown = [n for n in names or [] if n not in tree.loads]
+    if unknown:
+        raise BiasTreeError(f"--load: no load named '{unknown[0]}'")
+    picked = [tree.loads.index(n) for n in names] if names else None
+    write_atomic(path, sweep_plot(result, picked, "current" if current else "error", axis))
 
 
 @app.command()

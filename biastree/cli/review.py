@@ -27,22 +27,37 @@ def draw(
     depth: Annotated[Optional[int], typer.Option(help="mirror levels to draw; deeper parts are summed up", min=1)] = None,
     annotate: Annotated[Annotation, typer.Option(help="edge labels: current, ratio or error")] = Annotation.current,
     expand: Annotated[bool, typer.Option("--expand", help="one node per copy of a load (default: one node ×N)")] = False,
+    subtree: Annotated[Optional[str], typer.Option("--subtree", help="draw only this mirror and what it feeds")] = None,
+    full: Annotated[bool, typer.Option("--full", help="do not fit a large tree to a readable height "
+                                       "(still at most a few thousand nodes)")] = False,
 ) -> None:
     """Draw the audited tree (Graphviz; status shown by colour and by mark)."""
     from biastree.files import write_atomic
     from biastree.output.dot import to_dot
 
     result = biastree.check(load_tree(plan))
-    diagram = to_dot(result, only_failing=only_failing, depth=depth, annotate=annotate.value, expand=expand)
+    diagram = to_dot(result, only_failing=only_failing, depth=depth, annotate=annotate.value, expand=expand,
+                     subtree=subtree, fit=not full)
     for note in diagram.notes:
         typer.echo(f"note: {note}", err=True)
     fmt = output.suffix.lower().lstrip(".")
     if fmt in ("dot", "gv"):
         write_atomic(output, diagram.text)
         return
-    from biastree.output.render import render
+    from biastree.output.render import height_note, render
 
-    write_atomic(output, render(diagram.text, fmt, diagram.nodes))
+    picture = render(diagram.text, fmt, diagram.nodes)
+    note = height_note(picture) if fmt == "svg" else None
+    if note:
+        typer.echo(f"note: {note}", err=True)
+    write_atomic(output, picture)
+
+
+def report_plots(result: biastree.Audit) -> list[tuple[str, str]]:
+    """The report's plots (matplotlib, SVG): the worst loads' error over the plan's temperatures."""
+    from biastree.output.plots import report_plots as plots
+
+    return plots(result)
 
 
 class ReportFormat(str, Enum):
@@ -58,6 +73,8 @@ def report(
     fmt: Annotated[Optional[ReportFormat], typer.Option("--format", help="html or md (default: by suffix)")] = None,
     csv: Annotated[Optional[Path], typer.Option("--csv", help="also write the load table as CSV")] = None,
     diagram: Annotated[bool, typer.Option(help="embed the tree diagram (needs Graphviz)")] = True,
+    against: Annotated[Optional[Path], typer.Option("--against", help="an older plan: add what changed and what it "
+                                                    "did to every load (HTML)")] = None,
 ) -> None:
     """Write a review report: inputs, verdicts, tree diagram, load table, why loads fail."""
     from biastree.files import write_atomic
@@ -75,11 +92,17 @@ def report(
 
         svg = None
         if diagram:
-            picture = to_dot(result)
+            picture = to_dot(result)  # fitted to a readable size; the page's outline and tables hold the rest
             for note in picture.notes:
-                typer.echo(f"note: {note}", err=True)
-            svg = svg_body(render(picture.text, "svg"))
-        text = to_html(result, svg, str(plan))
+                typer.echo(f"note: diagram: {note}", err=True)
+            svg = svg_body(render(picture.text, "svg", picture.nodes))
+        changes = None
+        if against is not None:
+            from biastree.analysis.diff import compare
+            from biastree.output.diff_table import to_diff_html
+
+            changes = to_diff_html(compare(biastree.check(load_tree(against)), result), str(against))
+        text = to_html(result, svg, str(plan), plots=report_plots(result), diff=changes)
     if csv is not None:
         from biastree.output.csv import to_csv
 

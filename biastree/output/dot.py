@@ -14,6 +14,7 @@ from html import escape
 import numpy as np
 
 from biastree.analysis.audit import Audit
+from biastree.errors import BiasTreeError
 from biastree.units import format_si, signed_percent
 
 PASS_COLOUR, PASS_FILL = "#00796b", "#e0f2ef"
@@ -21,7 +22,8 @@ FAIL_COLOUR, FAIL_FILL = "#c0392b", "#fbe3df"
 MIRROR_COLOUR, MIRROR_FILL = "#455a64", "#f3f5f6"
 REF_COLOUR, REF_FILL = "#283593", "#e8eaf6"
 PASS_MARK, FAIL_MARK = "PASS", "FAIL"
-AUTO_NODE_LIMIT = 5000  # above this many nodes the diagram is cut by depth
+AUTO_NODE_LIMIT = 3000  # at most about this many nodes go to Graphviz (its layout time grows fast)
+ROW_LIMIT = 80  # nodes in one column: about 80 × 60 pt, a tall but readable page when zoomed
 ANNOTATIONS = ("current", "ratio", "error")
 
 
@@ -35,7 +37,8 @@ class Diagram:
 
 
 def _q(name: str) -> str:
-    return '"' + name.replace("\\", "\\\\").replace('"', '\\"') + '"'
+    """A DOT quoted string; a newline in ``name`` becomes a DOT line break."""
+    return '"' + name.replace("\\", "\\\\").replace('"', '\\"').replace("\n", "\\n") + '"'
 
 
 def _pct(x: float) -> str:
@@ -55,14 +58,24 @@ def to_dot(
     annotate: str = "current",
     expand: bool = False,
     node_limit: int = AUTO_NODE_LIMIT,
+    subtree: str | None = None,
+    fit: bool = True,
+    row_limit: int = ROW_LIMIT,
 ) -> Diagram:
     """The audited tree as DOT text (left to right).
 
     ``depth`` keeps that many mirror levels and sums up what lies below;
-    ``only_failing`` keeps only the paths to failing loads; ``expand`` draws
-    each copy of a load branch (``count``) as its own node instead of one node
-    marked ×N; ``annotate`` puts the branch ``current``, the ``ratio`` or the
-    cumulative ``error`` on the edges.
+    ``only_failing`` keeps only the paths to failing loads; ``subtree`` keeps
+    one mirror and what it feeds; ``expand`` draws each copy of a load branch
+    (``count``) as its own node instead of one node marked ×N; ``annotate``
+    puts the branch ``current``, the ``ratio`` or the cumulative ``error`` on
+    the edges.
+
+    ``fit`` keeps the drawing readable: when more than ``row_limit`` nodes
+    would stand in one column (the diagram's height), each mirror's loads
+    become one summary node, and if that is still too tall the tree is cut
+    by depth.  Whatever ``fit`` says, at most about ``node_limit`` nodes are
+    drawn.  ``notes`` say what was left out.
     """
     if annotate not in ANNOTATIONS:
         raise ValueError(f"annotate must be one of {', '.join(ANNOTATIONS)}")
@@ -74,30 +87,65 @@ def to_dot(
     for k, gen in enumerate(tree.generations):
         level[gen] = k + 1
 
-    # which mirrors lie on a path to a failing load
+    n_below, fail_below = _counts_below(result)
+    m_fail = fail_below > 0  # mirrors on a path to a failing load
     failing = ~result.passed
-    m_fail = np.zeros(n_m, dtype=bool)
-    for i in np.flatnonzero(failing):
-        for m in tree.path(int(i)):
-            m_fail[m] = True
     load_keep = failing if only_failing else np.ones(len(tree.loads), dtype=bool)
     m_keep = m_fail if only_failing else np.ones(n_m, dtype=bool)
+    root = 0
+    if subtree is not None:
+        if subtree not in tree.mirrors:
+            raise BiasTreeError(f"--subtree: no mirror named '{subtree}'")
+        root = tree.mirrors.index(subtree)
+        inside = np.zeros(n_m, dtype=bool)
+        inside[root] = True
+        for gen in tree.generations[1:]:
+            inside[gen] = inside[tree.b_parent[tree.m_in_branch[gen]]] | (gen == root)
+        m_keep = m_keep & inside
+        m_keep[root] = True
+        level = level - level[root] + 1
 
     copies = tree.b_count[tree.l_branch].astype(int) if expand else np.ones(len(tree.loads), dtype=int)
     copies = np.minimum(copies, 16)
+    load_parent = tree.b_parent[tree.l_branch]
+    child_parent = tree.b_parent[tree.m_in_branch[1:]] if n_m > 1 else np.zeros(0, dtype=np.int64)
 
-    def count_nodes(limit_depth: int | None) -> int:
-        keep = m_keep if limit_depth is None else m_keep & (level <= limit_depth)
-        loads_shown = load_keep & (keep[tree.b_parent[tree.l_branch]])
-        return 1 + int(keep.sum()) + int(copies[loads_shown].sum())
+    def size(limit_depth: int | None, grouped: bool) -> tuple[int, int]:
+        """(nodes, rows) of a view: rows = nodes at the right-hand edge, i.e. the height."""
+        keep = m_keep & (level >= 1) if limit_depth is None else m_keep & (level >= 1) & (level <= limit_depth)
+        shown_loads = load_keep & keep[load_parent]
+        if grouped:
+            leaves = int(np.unique(load_parent[shown_loads]).size)
+        else:
+            leaves = int(copies[shown_loads].sum())
+        cut = keep[child_parent] & ~keep[1:] & m_keep[1:] if n_m > 1 else np.zeros(0, dtype=bool)
+        summaries = int(np.unique(child_parent[cut]).size)
+        return 1 + int(keep.sum()) + leaves + summaries, leaves + summaries
 
-    if depth is None and count_nodes(None) > node_limit:
-        depth = 1
-        while depth < len(tree.generations) and count_nodes(depth + 1) <= node_limit:
-            depth += 1
-        notes.append(f"{count_nodes(None)} nodes are too many to read: showing {depth} mirror level(s) "
-                     f"and summing up the rest (use --depth or --only-failing to choose)")
-    shown = m_keep & (level <= depth) if depth is not None else m_keep
+    grouped = False
+    full_nodes = size(depth, False)[0]
+    depth_max = int(level[m_keep].max())
+    if fit and depth is None and size(None, False)[1] > row_limit:
+        grouped = True
+        if size(None, True)[1] > row_limit:
+            depth = 1
+            while depth < depth_max and size(depth + 1, True)[1] <= row_limit:
+                depth += 1
+        notes.append(f"{full_nodes} nodes would be {size(None, False)[1]} rows tall: each mirror's loads are one "
+                     "summary node" + (f", {depth} mirror level(s) shown" if depth is not None else "")
+                     + " (--subtree NAME draws one part in full; the HTML report lists every load)")
+    if size(depth, grouped)[0] > node_limit:
+        if not grouped and size(depth, True)[0] <= node_limit:
+            grouped = True
+        else:
+            grouped = True
+            depth = 1
+            while depth < depth_max and size(depth + 1, True)[0] <= node_limit:
+                depth += 1
+        notes.append(f"{full_nodes} nodes are too many to draw: loads summarised per mirror"
+                     + (f", {depth} mirror level(s) shown" if depth is not None else "")
+                     + " (use --subtree, --depth or --only-failing to choose)")
+    shown = m_keep & (level >= 1) & ((level <= depth) if depth is not None else True)
 
     lines = [
         "digraph biastree {",
@@ -107,11 +155,17 @@ def to_dot(
         '  edge [fontname="Helvetica", fontsize=9, arrowsize=0.7];',
     ]
     ref = plan.reference
+    ref_rows = [f"{escape(format_si(ref.current, 'A'))} ±{ref.tolerance * 100:.3g}%",
+                f"headroom {escape(format_si(result.reference_headroom, 'V'))}"]
+    if root:
+        above, m = [], root
+        while tree.m_in_branch[m] >= 0:
+            m = int(tree.b_parent[tree.m_in_branch[m]])
+            above.insert(0, tree.mirrors[m])
+        ref_rows.append("via " + escape(" › ".join(above)))
     lines.append(
         f'  reference [shape=box, style="filled", color="{REF_COLOUR}", fillcolor="{REF_FILL}", label='
-        + _rows("reference", [f"{escape(format_si(ref.current, 'A'))} ±{ref.tolerance * 100:.3g}%",
-                               f"headroom {escape(format_si(result.reference_headroom, 'V'))}"], REF_COLOUR)
-        + "];"
+        + _rows("reference", ref_rows, REF_COLOUR) + "];"
     )
     edge_error = _edge_errors(result) if annotate == "error" else None
     # mirrors
@@ -132,9 +186,11 @@ def to_dot(
         lines.append(f'  {_q("m:" + name)} [color="{colour}", fillcolor="{MIRROR_FILL}", '
                      f'penwidth={2.5 if headroom_bad else 1}, label={_rows(escape(name), rows, colour)}];')
     # edges and loads
-    ref_child = tree.mirrors[0]
-    lines.append(f'  reference -> {_q("m:" + ref_child)} [label={_q(format_si(ref.current, "A"))}];')
+    ref_child = tree.mirrors[root]
+    feed = format_si(ref.current if not root else float(op.m_i_in[root, 1]), "A")
+    lines.append(f'  reference -> {_q("m:" + ref_child)} [label={_q(feed)}{", style=dashed" if root else ""}];')
     hidden: dict[int, list[int]] = {}
+    groups: dict[int, list[int]] = {}
     for b in range(len(tree.b_parent)):
         parent = int(tree.b_parent[b])
         if not shown[parent]:
@@ -143,6 +199,9 @@ def to_dot(
         if tree.b_to_load[b]:
             i = int(tree.b_child[b])
             if not load_keep[i]:
+                continue
+            if grouped:
+                groups.setdefault(parent, []).append(i)
                 continue
             ok = bool(result.passed[i])
             colour = PASS_COLOUR if ok else FAIL_COLOUR
@@ -172,15 +231,16 @@ def to_dot(
                              f'penwidth={2 if bad else 1}];')
             elif m_keep[child]:
                 hidden.setdefault(parent, []).append(child)
+    for parent, members in groups.items():
+        lines += _load_group(result, parent, members)
     # summaries of what a depth cut hides
-    n_below, fail_below = _counts_below(result) if hidden else (None, None)
     for parent, children in hidden.items():
         n_loads = int(sum(n_below[c] for c in children))
         n_fail = int(sum(fail_below[c] for c in children))
         node = f"more:{tree.mirrors[parent]}"
         colour = FAIL_COLOUR if n_fail else PASS_COLOUR
         mark = f"{FAIL_MARK}: {n_fail}" if n_fail else PASS_MARK
-        text = f"{len(children)} mirror(s), {n_loads} load(s) below" + "\\n" + mark
+        text = f"{len(children)} mirror(s), {n_loads} load(s) below\n{mark}"
         lines.append(f'  {_q(node)} [shape=folder, style="filled", color="{colour}", fillcolor="white", '
                      f"label={_q(text)}];")
         lines.append(f'  {_q("m:" + tree.mirrors[parent])} -> {_q(node)} [style=dashed, color="#90a4ae"];')
@@ -191,13 +251,29 @@ def to_dot(
     return Diagram(text, nodes, tuple(notes))
 
 
+def _load_group(result: Audit, parent: int, members: list[int]) -> list[str]:
+    """One node for a mirror's loads: how many, how many fail, the smallest margin."""
+    tree = result.tree
+    fails = [i for i in members if not result.passed[i]]
+    worst = min(members, key=lambda i: float(result.margin[i]))
+    colour = FAIL_COLOUR if fails else PASS_COLOUR
+    rows = [f"{int(tree.l_mult[members].sum())} instances",
+            f"smallest margin {_pct(result.margin[worst])} ({escape(tree.loads[worst])})",
+            f"<B>{FAIL_MARK}: {len(fails)}</B>" if fails else f"<B>{PASS_MARK}</B>"]
+    node = _q(f"loads:{tree.mirrors[parent]}")
+    return [f'  {node} [shape=note, color="{colour}", fillcolor="{FAIL_FILL if fails else PASS_FILL}", '
+            f'penwidth={2.5 if fails else 1}, peripheries={2 if fails else 1}, '
+            f'label={_rows(f"{len(members)} loads", rows, colour)}];',
+            f'  {_q("m:" + tree.mirrors[parent])} -> {node} [color="{colour if fails else "#607d8b"}"];']
+
+
 def _title(result: Audit, notes: list[str]) -> str:
     s = result.summary()
     plan = result.tree.plan
     head = (f"{plan.title or 'bias tree'} — {s['passed']} of {s['loads']} loads pass"
             + (f", {s['failed']} FAIL" if s["failed"] else "")
             + f" — {plan.supply:g} V, {plan.temperature - 273.15:.4g} °C — design estimates")
-    return head + "".join(f"\\n{n}" for n in notes)
+    return head + "".join(f"\n{n}" for n in notes)
 
 
 def _load_rows(result: Audit, i: int) -> list[str]:

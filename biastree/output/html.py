@@ -1,173 +1,157 @@
-"""Self-contained HTML review report: everything inline (styles, script,
-the tree diagram as SVG, the error-breakdown charts as SVG), no network."""
+"""Self-contained interactive HTML review report.
+
+One page, nothing fetched (styles, script, data, pictures inline), so it
+opens from disk anywhere.  The numbers travel as one compact JSON object
+(column arrays, the same floats as ``check --json``); the page's script
+(``html_script``) builds the tables, the tree outline and every failing
+load's explanation from it when they are asked for, so the page stays light
+at chip scale and no explanation is left out.
+"""
 
 from __future__ import annotations
 
 from html import escape
+from typing import Any
 
 import numpy as np
 
 from biastree.analysis.audit import Audit
-from biastree.output.breakdown import breakdown, budget_use, device_parameters, where
+from biastree.output.breakdown import breakdown, budget_use, device_parameters, tempco_ppm, where
 from biastree.output.dot import FAIL_COLOUR, PASS_COLOUR
+from biastree.output.html_script import SCRIPT, STYLE
 from biastree.output.markdown import CAUTION
-from biastree.units import format_si, signed_percent
-
-_STYLE = """
-body{font-family:Helvetica,Arial,sans-serif;margin:1.5em auto;max-width:80em;color:#1c2833;padding:0 1em}
-h1{font-size:1.5em;margin-bottom:.2em} h2{font-size:1.2em;margin-top:1.6em;border-bottom:1px solid #cfd8dc}
-table{border-collapse:collapse;font-size:.9em;margin:.5em 0} th,td{padding:.25em .6em;border-bottom:1px solid #eceff1}
-th{background:#eceff1;text-align:left} th.sort{cursor:pointer} th.sort:after{content:" \\2195";color:#90a4ae}
-td.num{text-align:right;font-variant-numeric:tabular-nums}
-.pass{color:%(pass)s;font-weight:bold} .fail{color:%(fail)s;font-weight:bold}
-tr.failrow td{background:#fdf0ee}
-.counts span{display:inline-block;margin-right:1.5em;font-size:1.1em}
-.diagram{overflow:auto;border:1px solid #cfd8dc;padding:.5em;max-height:50em}
-.caution{margin-top:2em;padding:.8em;border-left:4px solid #455a64;background:#f3f5f6;font-size:.9em}
-""" % {"pass": PASS_COLOUR, "fail": FAIL_COLOUR}
-
-_SCRIPT = """
-document.querySelectorAll('table.sortable').forEach(function(table){
-  table.querySelectorAll('th.sort').forEach(function(th, col){
-    th.addEventListener('click', function(){
-      var body = table.tBodies[0], rows = Array.from(body.rows);
-      var asc = th.dataset.dir !== 'asc'; th.dataset.dir = asc ? 'asc' : 'desc';
-      rows.sort(function(a, b){
-        var x = a.cells[col].dataset.v, y = b.cells[col].dataset.v;
-        var nx = parseFloat(x), ny = parseFloat(y);
-        var c = (!isNaN(nx) && !isNaN(ny)) ? nx - ny : String(x).localeCompare(String(y));
-        return asc ? c : -c;
-      });
-      rows.forEach(function(r){ body.appendChild(r); });
-    });
-  });
-});
-"""
+from biastree.units import format_si
 
 
-MAX_BREAKDOWNS = 300  # failing loads explained with a chart; beyond that the page gets unwieldy
+def _floats(values: Any) -> list[float | None]:
+    """Exact floats, ``None`` where not finite (JSON has no inf)."""
+    arr = np.asarray(values, dtype=float)
+    return [x if np.isfinite(x) else None for x in arr.tolist()]
 
 
-def _pct(x: float) -> str:
-    return signed_percent(x, 3)
+def explanation(result: Audit, i: int, stages: dict[str, int] | None = None) -> dict[str, Any]:
+    """Everything the page shows about why one load fails (plain data).
+
+    A per-load object, so that more (e.g. the deciding case) can be added
+    without changing the page's other data.
+    """
+    if stages is None:  # mirror name → index (pass it in when explaining many loads)
+        stages = {name: k for k, name in enumerate(result.tree.mirrors)}
+    return {
+        "reasons": result.reasons(i),
+        "hints": result.hints.get(i, []),
+        "where": where(result, i),
+        "budget": budget_use(result, i),
+        # (stage: mirror index, or a name such as 'plan' or 'reference'; effect label; value)
+        "terms": [[stages.get(stage, stage), label, value] for stage, label, value in breakdown(result, i)],
+    }
 
 
-def _td(text: str, value: object, num: bool = True, cls: str = "") -> str:
-    klass = " ".join(c for c in ("num" if num else "", cls) if c)
-    return f'<td{f" class={chr(34)}{klass}{chr(34)}" if klass else ""} data-v="{escape(str(value))}">{text}</td>'
+def page_data(result: Audit) -> dict[str, Any]:
+    """The compact data the page is built from."""
+    tree, op, plan = result.tree, result.op, result.tree.plan
+    n_m = len(tree.mirrors)
+    m_parent = np.full(n_m, -1, dtype=np.int64)
+    has_parent = tree.m_in_branch >= 0
+    m_parent[has_parent] = tree.b_parent[tree.m_in_branch[has_parent]]
+    depth = np.zeros(n_m, dtype=np.int64)
+    for k, gen in enumerate(tree.generations):
+        depth[gen] = k
+    worst = result.error[np.arange(len(tree.loads)), result.worst_case.astype(int)]
+    loads: dict[str, Any] = {
+        "name": list(tree.loads),
+        "mirror": tree.b_parent[tree.l_branch].tolist(),
+        "count": tree.l_mult.astype(int).tolist(),
+        "target": _floats(result.target),
+        "delivered": _floats(result.delivered[:, 1]),
+        "error": _floats(result.error[:, 1]),
+        "worst": _floats(worst),
+        "tolerance": _floats(result.tolerance),
+        "margin": _floats(result.margin),
+        "compliance": _floats(result.compliance),
+        "rout": _floats(result.rout),
+        "pass": result.passed.astype(int).tolist(),
+    }
+    conditions: list[str] = []
+    if result.conditions is not None:
+        conditions = list(result.conditions.columns.names)
+        loads["cond_worst"] = _floats(result.conditions.worst_error)
+        loads["cond_at"] = result.conditions.worst_index.astype(int).tolist()
+        tc = tempco_ppm(result.conditions)
+        if tc is not None:
+            loads["tempco"] = _floats(tc)
+    if result.spread is not None:
+        loads["ksigma"] = _floats(result.k_sigma * result.sigma)
+    mirrors = {
+        "name": list(tree.mirrors),
+        "parent": m_parent.tolist(),
+        "depth": depth.tolist(),
+        "device": [plan.mirrors[m].device for m in tree.mirrors],
+        "topology": [plan.mirrors[m].topology for m in tree.mirrors],
+        "copies": _floats(tree.m_mult),
+        "input": _floats(op.m_i_in[:, 1]),
+        "vin": _floats(op.m_v_in[:, 1]),
+        "fanout": _floats(tree.m_fanout),
+    }
+    index = {name: k for k, name in enumerate(tree.mirrors)}
+    explain = {str(int(i)): explanation(result, int(i), index) for i in np.flatnonzero(~result.passed)}
+    return {"k_sigma": result.k_sigma, "conditions": conditions, "loads": loads, "mirrors": mirrors,
+            "explain": explain}
 
 
-def bar_chart(rows: list[tuple[str, str, float]], width: int = 640) -> str:
-    """Inline SVG: one horizontal bar per (stage, effect) term, signed, in %."""
-    if not rows:
-        return ""
-    scale = max(abs(v) for _, _, v in rows) or 1.0
-    label_w, value_w, bar_h, gap = 280, 70, 16, 6
-    half = (width - label_w - value_w - 10) / 2
-    mid = label_w + value_w + half
-    height = len(rows) * (bar_h + gap) + 20
-    parts = [f'<svg xmlns="http://www.w3.org/2000/svg" width="{width}" height="{height}" role="img" '
-             f'aria-label="error terms" font-family="Helvetica,Arial,sans-serif" font-size="12">',
-             f'<line x1="{mid}" y1="0" x2="{mid}" y2="{height - 16}" stroke="#90a4ae"/>']
-    for k, (stage, label, value) in enumerate(rows):
-        y = k * (bar_h + gap) + 4
-        w = abs(value) / scale * half
-        x = mid if value >= 0 else mid - w
-        colour = "#5c6bc0" if value >= 0 else "#ef6c00"
-        pattern = "" if value >= 0 else ' stroke="#bf360c" stroke-dasharray="3,2"'
-        parts.append(f'<text x="{label_w - 6}" y="{y + 12}" text-anchor="end">{escape(stage)}: {escape(label)}</text>')
-        parts.append(f'<text x="{label_w + value_w - 6}" y="{y + 12}" text-anchor="end">{_pct(value)}</text>')
-        parts.append(f'<rect x="{x:.1f}" y="{y}" width="{max(w, 0.5):.1f}" height="{bar_h}" fill="{colour}"{pattern}/>')
-    parts.append(f'<text x="{mid}" y="{height - 2}" text-anchor="middle" fill="#607d8b">'
-                 "0 · solid: raises the current · dashed: lowers it</text>")
-    parts.append("</svg>")
-    return "".join(parts)
+def _json_for_script(data: Any) -> str:
+    import orjson
+
+    text = orjson.dumps(data).decode("utf-8")
+    # inside <script> only "</" could end the element early
+    return text.replace("</", "<\\/")
 
 
-def to_html(result: Audit, svg: str | None = None, source: str | None = None) -> str:
-    """The whole review as one HTML page.  ``svg`` is the rendered tree (inline)."""
-    tree = result.tree
-    plan = tree.plan
-    op = result.op
+def _summary(result: Audit, source: str | None) -> list[str]:
+    plan = result.tree.plan
     s = result.summary()
-    title = escape(plan.title or "untitled plan")
-    h = [
-        "<!DOCTYPE html>",
-        '<html lang="en"><head><meta charset="utf-8">',
-        f"<title>Bias tree review: {title}</title>",
-        f"<style>{_STYLE}</style></head><body>",
-        f"<h1>Bias tree review: {title}</h1>",
+    ok = s["failed"] == 0
+    verdict = (f'<span class="big pass">PASS</span> all {s["loads"]} loads inside their budgets' if ok else
+               f'<span class="big fail">FAIL</span> {s["failed"]} of {s["loads"]} loads out of budget '
+               f'({s["passed"]} pass)')
+    ref = plan.reference
+    facts = [
+        ("loads / instances", f'{s["loads"]} / {s["instances"]}'),
+        ("mirrors", str(len(result.tree.mirrors))),
+        ("supply", format_si(plan.supply, "V")),
+        ("temperature", f"{plan.temperature - 273.15:.4g} °C"),
+        ("reference", f"{format_si(ref.current, 'A')} ±{ref.tolerance * 100:.3g}%"),
+        ("reference headroom", format_si(result.reference_headroom, "V")),
+        ("delivered", format_si(s["delivered_current"], "A", 4)),
+        ("overhead", f"{format_si(s['overhead_current'], 'A', 4)} ({format_si(s['overhead_power'], 'W', 4)})"),
+        ("supply power", format_si(s["supply_power"], "W", 4)),
+        ("device units", f"{s['device_units']:.6g}"
+         + (f" (MOS gate {s['mos_gate_area'] * 1e12:.4g} µm²)" if s["mos_units"] else "")),
     ]
+    if result.conditions is not None:
+        facts.append(("conditions", f"{len(result.conditions.columns.names)} solved, worst counts"))
+    if result.spread is not None:
+        facts.append(("mismatch", f"{result.k_sigma:g}σ counts"))
+    cells = "".join(f"<div><b>{escape(k)}</b><span>{escape(v)}</span></div>" for k, v in facts)
+    out = [f'<section id="summary"><p class="verdict">{verdict}</p><div class="facts">{cells}</div>']
     if source:
-        h.append(f"<p>Plan file: <code>{escape(source)}</code></p>")
-    fail_text = f'<span class="fail">{s["failed"]} FAIL</span>' if s["failed"] else ""
-    h += [
-        '<p class="counts">'
-        f'<span class="pass">{s["passed"]} of {s["loads"]} loads PASS</span>{fail_text}'
-        f'<span>{s["instances"]} instances</span></p>',
-        "<h2>Inputs</h2><table>",
-        f"<tr><th>supply</th><td>{format_si(plan.supply, 'V')}</td></tr>",
-        f"<tr><th>temperature</th><td>{plan.temperature - 273.15:.4g} °C</td></tr>",
-        f"<tr><th>reference</th><td>{format_si(plan.reference.current, 'A')} ±{plan.reference.tolerance * 100:.3g}% "
-        f"→ {escape(plan.reference.feeds)} (headroom {format_si(result.reference_headroom, 'V')})</td></tr>",
-        f"<tr><th>delivered</th><td>{format_si(s['delivered_current'], 'A', 4)}</td></tr>",
-        f"<tr><th>overhead</th><td>{format_si(s['overhead_current'], 'A', 4)} "
-        f"({format_si(s['overhead_power'], 'W', 4)})</td></tr>",
-        f"<tr><th>total supply power</th><td>{format_si(s['supply_power'], 'W', 4)}</td></tr>",
-        f"<tr><th>device units</th><td>{s['device_units']:.6g}"
-        + (f" (MOS gate area {s['mos_gate_area'] * 1e12:.6g} µm²)" if s["mos_units"] else "") + "</td></tr>",
-        "</table>",
-        "<h3>Device models</h3><table><tr><th>model</th><th>kind</th><th>parameters</th></tr>",
-    ]
+        out.append(f'<p class="src">plan file <code>{escape(source)}</code></p>')
+    out.append("</section>")
+    return out
+
+
+def _inputs(result: Audit) -> list[str]:
+    plan = result.tree.plan
+    h = ['<section id="inputs"><h2>Device models</h2><table class="plain"><thead><tr><th>model</th><th>kind</th>'
+         "<th>parameters</th></tr></thead><tbody>"]
     for name, dev in plan.devices.items():
-        params = device_parameters(dev)
-        h.append(f"<tr><td>{escape(name)}</td><td>{dev.kind}</td><td>{escape(params)}</td></tr>")
-    h.append("</table><h3>Mirrors</h3><table><tr><th>mirror</th><th>device</th><th>topology</th><th>copies</th>"
-             "<th>input current</th><th>input voltage</th><th>fan-out</th></tr>")
-    for m, name in enumerate(tree.mirrors):
-        spec = plan.mirrors[name]
-        h.append(f"<tr><td>{escape(name)}</td><td>{escape(spec.device)}</td><td>{escape(spec.topology)}</td>"
-                 f'<td class="num">{tree.m_mult[m]:g}</td><td class="num">{format_si(op.m_i_in[m, 1], "A", 4)}</td>'
-                 f'<td class="num">{format_si(op.m_v_in[m, 1], "V", 4)}</td><td class="num">{tree.m_fanout[m]:g}</td></tr>')
-    h.append("</table>")
-    h.append("<h2>Tree</h2>")
-    if svg:
-        h.append(f'<div class="diagram">{svg}</div>')
-    else:
-        h.append("<p>(diagram not included)</p>")
-    h += ["<h2>Loads</h2>", "<p>Click a column heading to sort.</p>",
-          '<table class="sortable"><thead><tr>']
-    extra_heads = (["worst cond."] if result.conditions is not None else []) + (
-        [f"{result.k_sigma:g}σ"] if result.spread is not None else [])
-    for head in ("load", "×", "path", "target", "delivered", "error", "worst error", "budget", "margin",
-                 "compliance", "Rout", "verdict", *extra_heads):
-        h.append(f'<th class="sort">{head}</th>')
-    h.append("</tr></thead><tbody>")
-    for i, name in enumerate(tree.loads):
-        ok = bool(result.passed[i])
-        worst = float(result.error[i, int(result.worst_case[i])])
-        path = " › ".join(tree.mirrors[m] for m in tree.path(i))
-        verdict = '<span class="pass">PASS</span>' if ok else f'<a href="#fail-{i}" class="fail">FAIL</a>'
-        h.append(
-            f'<tr{"" if ok else " class=failrow"}>'
-            + _td(escape(name), name, num=False) + _td(str(int(tree.l_mult[i])), int(tree.l_mult[i]))
-            + _td(escape(path), path, num=False)
-            + _td(format_si(result.target[i], "A", 4), result.target[i])
-            + _td(format_si(result.delivered[i, 1], "A", 6), result.delivered[i, 1])
-            + _td(_pct(result.error[i, 1]), result.error[i, 1]) + _td(_pct(worst), worst)
-            + _td(f"±{result.tolerance[i] * 100:.3g}%", result.tolerance[i])
-            + _td(_pct(result.margin[i]), result.margin[i])
-            + _td(format_si(result.compliance[i], "V", 4), result.compliance[i])
-            + _td(format_si(float(result.rout[i]), "Ω", 4) if np.isfinite(result.rout[i]) else "∞",
-                  result.rout[i] if np.isfinite(result.rout[i]) else 1e300)
-            + _td(verdict, "pass" if ok else "fail", num=False)
-            + (_td(_pct(float(result.conditions.worst_error[i])) + f" ({escape(result.conditions.worst_name(i))})",
-                   float(result.conditions.worst_error[i])) if result.conditions is not None else "")
-            + (_td(f"{result.k_sigma * float(result.sigma[i]) * 100:.3g}%", result.k_sigma * float(result.sigma[i]))
-               if result.spread is not None else "")
-            + "</tr>"
-        )
-    h.append("</tbody></table>")
+        h.append(f"<tr><td>{escape(name)}</td><td>{dev.kind}</td><td>{escape(device_parameters(dev))}</td></tr>")
+    h.append("</tbody></table></section>")
+    return h
+
+
+def _notes(result: Audit) -> list[str]:
+    tree = result.tree
     notes = [t for t in (result.floorplan_text(i) for i in range(len(tree.loads))) if t]
     for m in result.matched():
         notes.append(f"matched pair {m['name']} ({' / '.join(m['loads'])}): ratio error {m['ratio_error'] * 100:+.3g} %, "
@@ -176,23 +160,72 @@ def to_html(result: Audit, svg: str | None = None, source: str | None = None) ->
     if result.conditions is not None:
         notes.append(f"{len(result.conditions.columns.names)} operating conditions (temperature × supply × corner × "
                      "voltage end) were solved; the verdicts use the worst of them.")
-    if notes:
-        h.append("<h3>Notes</h3><ul>" + "".join(f"<li>{escape(n)}</li>" for n in notes) + "</ul>")
-    failing = [i for i in range(len(tree.loads)) if not result.passed[i]]
-    if failing:
-        h.append("<h2>Why loads fail</h2>")
-        if len(failing) > MAX_BREAKDOWNS:
-            h.append(f"<p>{len(failing)} loads fail; the first {MAX_BREAKDOWNS} are explained here "
-                     "(<code>biastree check --json</code> and the CSV hold every one).</p>")
-        for i in failing[:MAX_BREAKDOWNS]:
-            h.append(f'<h3 id="fail-{i}">{escape(tree.loads[i])}</h3><ul>')
-            h += [f"<li>{escape(r)}</li>" for r in result.reasons(i)]
-            h += [f"<li><b>hint:</b> {escape(x)}</li>" for x in result.hints.get(i, [])]
-            h.append(f"</ul><p>Error terms {escape(where(result, i))}, stage by stage "
-                     "(they compound: Π(1 + term) − 1 = the load's error):</p>")
-            h.append(bar_chart(breakdown(result, i)))
-            h.append(f"<p>{escape(budget_use(result, i))}</p>")
+    if not notes:
+        return []
+    return ['<section id="notes"><h2>Notes</h2><ul>'] + [f"<li>{escape(n)}</li>" for n in notes] + ["</ul></section>"]
+
+
+def to_html(result: Audit, svg: str | None = None, source: str | None = None,
+            plots: list[tuple[str, str]] | None = None, diff: str | None = None) -> str:
+    """The whole review as one HTML page.
+
+    ``svg`` is the rendered tree diagram (inline, fitted and zoomable in the
+    page); ``plots`` are (caption, SVG text) pairs; ``diff`` an HTML fragment
+    comparing this plan with another (``biastree.output.diff_report``).
+    """
+    plan = result.tree.plan
+    title = escape(plan.title or "untitled plan")
+    toc = [("summary", "Summary"), ("worst", "Worst loads"), ("loads", "Loads"), ("tree", "Tree"),
+           ("mirrors", "Mirrors")]
+    if plots:
+        toc.append(("plots", "Plots"))
+    if diff:
+        toc.append(("diff", "Changes"))
+    toc += [("inputs", "Devices"), ("notes", "Notes")]
+    colours = {"pass": PASS_COLOUR, "fail": FAIL_COLOUR}
+    h = [
+        "<!DOCTYPE html>",
+        '<html lang="en"><head><meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        f"<title>Bias tree review: {title}</title>",
+        f"<style>{STYLE % colours}</style></head><body>",
+        f'<header><h1>Bias tree review: {title}</h1><nav id="toc">'
+        + "".join(f'<a href="#{k}">{v}</a>' for k, v in toc) + "</nav></header><main>",
+    ]
+    h += _summary(result, source)
+    h += ['<section id="worst"><h2>Worst loads</h2><p class="hint">The ten smallest margins; '
+          'click FAIL for the explanation.</p><div id="worst-table"></div></section>',
+          '<section id="loads"><h2>Loads</h2><div class="controls">'
+          '<input id="search" type="search" placeholder="search load or mirror name" aria-label="search by name">'
+          '<select id="verdict" aria-label="verdict filter"><option value="all">all loads</option>'
+          '<option value="fail">failing only</option><option value="pass">passing only</option></select>'
+          '<select id="condition" aria-label="worst condition filter"><option value="">any worst condition</option>'
+          '</select><span id="subtree"></span><span id="count" class="hint"></span></div>'
+          '<div id="load-table"></div>'
+          '<div id="why" hidden></div></section>',
+          '<section id="tree"><h2>Tree</h2><div class="controls"><button id="expand">expand one level</button>'
+          '<button id="collapse">collapse</button><span class="hint">click a mirror name to see only its loads</span>'
+          '</div><div id="outline"></div>']
+    if svg:
+        attr = " open" if len(result.tree.loads) <= 40 else ""
+        h.append(f'<details id="diagram-box"{attr}><summary>Diagram (drag to pan, wheel to zoom, double-click to fit)'
+                 f'</summary><div id="diagram">{svg}</div></details>')
+    else:
+        h.append('<p class="hint">No diagram embedded (too large or not asked for): '
+                 "the outline above holds every mirror; <code>biastree draw --subtree NAME</code> draws a part.</p>")
+    h.append("</section>")
+    h.append('<section id="mirrors"><h2>Mirrors</h2><div id="mirror-table"></div></section>')
+    if plots:
+        h.append('<section id="plots"><h2>Plots</h2>')
+        for caption, picture in plots:
+            h.append(f'<figure class="plot">{picture}<figcaption>{escape(caption)}</figcaption></figure>')
+        h.append("</section>")
+    if diff:
+        h.append(f'<section id="diff"><h2>Changes</h2>{diff}</section>')
+    h += _inputs(result)
+    h += _notes(result) or ['<section id="notes"><h2>Notes</h2><p>none</p></section>']
     h += [f'<p class="caution">{escape(CAUTION)} Generated by biastree from the plan file; '
-          "all numbers are reproducible with <code>biastree check --json</code>.</p>",
-          f"<script>{_SCRIPT}</script>", "</body></html>"]
+          "all numbers are reproducible with <code>biastree check --json</code>.</p></main>",
+          f'<script type="application/json" id="data">{_json_for_script(page_data(result))}</script>',
+          f"<script>{SCRIPT}</script>", "</body></html>"]
     return "\n".join(h) + "\n"

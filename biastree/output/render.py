@@ -7,6 +7,8 @@ from biastree.errors import RenderError
 
 FORMATS = ("svg", "png", "pdf")
 PNG_NODE_LIMIT = 400  # a PNG of a wider tree is unreadable at any sane size
+RENDER_NODE_LIMIT = 6000  # Graphviz's layout time grows fast: refuse more than this
+MAX_HEIGHT_PT = 7200.0  # 100 inches: taller than this is not read, only scrolled
 
 INSTALL_HINT = (
     "the Graphviz `dot` program is not installed: install it (Debian/Ubuntu: apt-get install graphviz); "
@@ -22,6 +24,8 @@ def render(dot_text: str, fmt: str, nodes: int = 0) -> bytes:
         raise RenderError(
             f"a PNG of {nodes} nodes would be unreadable: write .svg or .pdf, or cut the tree with --depth / --only-failing"
         )
+    if nodes > RENDER_NODE_LIMIT:
+        raise RenderError(f"{nodes} nodes are too many to lay out: cut the tree (--subtree, --depth, --only-failing)")
     try:
         import graphviz
     except ImportError:
@@ -40,3 +44,15 @@ def svg_body(svg: bytes) -> str:
     text = svg.decode("utf-8")
     start = text.find("<svg")
     return text[start:] if start >= 0 else text
+
+
+def height_note(svg: bytes) -> str | None:
+    """A note when a rendered SVG is taller than ``MAX_HEIGHT_PT`` (else ``None``)."""
+    import re
+
+    head = svg[:4000].decode("utf-8", "replace")
+    match = re.search(r'<svg[^>]*\bheight="([\d.]+)pt"', head)
+    if not match or float(match.group(1)) <= MAX_HEIGHT_PT:
+        return None
+    return (f"the diagram is {float(match.group(1)):.0f} pt tall (over {MAX_HEIGHT_PT:.0f} pt): "
+            "cut it with --depth or --subtree NAME to read it without scrolling")
