@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -21,33 +22,33 @@ class ConditionResult:
     columns: Columns
     op: OperatingPoint
 
-    @property
+    @cached_property  # read once per load by the exporters: compute once
     def error(self) -> Array:
         """(n_loads, C): delivered / target − 1 in each column."""
         target = np.array([self.tree.plan.loads[n].current for n in self.tree.loads])
         return self.op.l_current / target[:, None] - 1.0
 
-    @property
+    @cached_property
     def worst_index(self) -> Array:
         return np.argmax(np.abs(self.error), axis=1)
 
-    @property
+    @cached_property
     def worst_error(self) -> Array:
         return self.error[np.arange(len(self.tree.loads)), self.worst_index]
 
     def worst_name(self, load: int) -> str:
         return self.columns.names[int(self.worst_index[load])]
 
-    @property
+    @cached_property
     def compliance(self) -> Array:
         """(n_loads,) smallest compliance margin over all columns, V."""
         return self.op.b_compliance[self.tree.l_branch].min(axis=1)
 
-    @property
+    @cached_property
     def compliance_index(self) -> Array:
         return np.argmin(self.op.b_compliance[self.tree.l_branch], axis=1)
 
-    @property
+    @cached_property
     def headroom(self) -> Array:
         """(n_loads,) smallest compliance margin of the branches between mirrors on the path."""
         tree = self.tree

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
+from functools import cached_property
 from typing import Callable
 
 import numpy as np
@@ -108,25 +109,28 @@ class Analytic:
                 + self.s_vt[b] ** 2 * (s.out_vt[b] ** 2 + s.in_vt[p] ** 2)
                 + self.s_k[b] ** 2 * (s.out_k[b] ** 2 + s.in_k[p] ** 2))
 
-    @property
+    @cached_property
     def mismatch(self) -> Array:
         """(n_loads,) relative σ of each load's current from mismatch alone."""
         return np.sqrt(self.b_var[self.tree.l_branch])
 
-    @property
+    @cached_property
     def total(self) -> Array:
         """(n_loads,) mismatch and reference together."""
         return np.sqrt(self.mismatch**2 + self.reference_sigma**2)
 
+    @cached_property
+    def _local_sigma(self) -> list[float]:
+        return np.sqrt(self.local_var(np.arange(len(self.tree.b_parent)))).tolist()
+
     def stage_sigmas(self, load: int) -> list[tuple[str, float]]:
         """(mirror, σ this stage adds) along the load's path."""
         tree = self.tree
-        path = tree.path(load)
-        out = []
-        for k, m in enumerate(path):
-            b = int(tree.m_in_branch[path[k + 1]]) if k + 1 < len(path) else int(tree.l_branch[load])
-            out.append((tree.mirrors[m], float(np.sqrt(self.local_var(b)))))
-        return out
+        sig = self._local_sigma
+        branches = tree.mirror_branch_paths[int(tree.b_parent[tree.l_branch[load]])] + (int(tree.l_branch[load]),)
+        names = tree.mirrors
+        parent = tree.b_parent
+        return [(names[parent[b]], sig[b]) for b in branches]
 
     def ratio_sigma(self, a: int, b: int) -> float:
         """σ of ln(I_a/I_b): only the devices the two loads do not share count."""
@@ -198,7 +202,7 @@ class MonteCarlo:
     def samples(self) -> int:
         return self.currents.shape[1]
 
-    @property
+    @cached_property  # read once per load by the writers: build it once
     def target(self) -> Array:
         return np.array([self.tree.plan.loads[n].current for n in self.tree.loads])
 
