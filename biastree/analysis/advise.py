@@ -20,10 +20,13 @@ import numpy as np
 from biastree.analysis.audit import Audit
 from biastree.analysis.pipeline import check_tree
 from biastree.physics.topologies import TOPOLOGIES
+from biastree.tree.arrays import Tree
 from biastree.units import format_percent, format_si
 
-MAX_TRIALS = 12  # re-solves of the whole tree per audit
-MAX_MIRRORS = 2500  # above this, hints are skipped (each trial re-solves everything)
+# Families in which a topology's input voltage and its other outputs do not
+# depend on one output's voltage (no base current that varies with it):
+# changing what hangs below one branch then touches that branch alone.
+_INDEPENDENT = {"simple": ("bjt", "mos"), "beta_helper": ("bjt",), "cascode": ("mos",), "wide_swing": ("mos",)}
 
 _FOR_TERM = {
     "β loading": ("beta_helper", "wilson"),
@@ -69,28 +72,94 @@ def _candidates(result: Audit, load: int) -> list[tuple[str, str, str]]:
     return usable
 
 
-def _trial(result: Audit, mirror: str, topology: str) -> Trial:
-    plan = result.tree.plan
-    spec = plan.mirrors[mirror]
+def _changed(spec, topology: str):  # type: ignore[no-untyped-def]
     keep = {k: getattr(spec, k) for k in ("device", "input_size", "branches")}
-    changed = type(spec)(topology=topology, **keep)
-    new_plan = plan.model_copy(update={"mirrors": {**plan.mirrors, mirror: changed}})
+    return type(spec)(topology=topology, **keep)
+
+
+def _solve_with(result: Audit, changes: dict[str, str]) -> Audit:
+    """The same verdict pipeline as the original (conditions and mismatch
+    included), with the topologies of ``changes`` swapped in.  Same structure,
+    other topologies: the tree need not be checked or built again."""
+    plan = result.tree.plan
+    mirrors = dict(plan.mirrors)
+    for mirror, topology in changes.items():
+        mirrors[mirror] = _changed(plan.mirrors[mirror], topology)
+    tree = dataclasses.replace(result.tree, plan=plan.model_copy(update={"mirrors": mirrors}))
+    return check_tree(tree, conditions=result.conditions is not None, mismatch=result.spread is not None,
+                      k_sigma=result.k_sigma, detail=False)
+
+
+def _trial(result: Audit, mirror: str, topology: str) -> Trial:
     try:
-        # the same verdict pipeline as the original (conditions and mismatch included)
-        # same structure, other topology: no need to check the tree again
-        tree = dataclasses.replace(result.tree, plan=new_plan)
-        return Trial(mirror, topology, check_tree(tree, conditions=result.conditions is not None,
-                                             mismatch=result.spread is not None, k_sigma=result.k_sigma,
-                                             detail=False))
+        return Trial(mirror, topology, _solve_with(result, {mirror: topology}))
     except Exception as exc:  # a candidate that cannot be solved is simply not suggested
         return Trial(mirror, topology, None, str(exc))
 
 
-def hints(result: Audit) -> dict[int, list[str]]:
-    """Hints per failing load index (empty when nothing tried helps)."""
+def _reach(tree: Tree, top: int) -> int:
+    """The topmost mirror whose subtree holds everything a change at mirror
+    ``top`` can move: a changed mirror's input voltage moves its feeding
+    branch, and through it the parent's other outputs and input voltage only
+    where the parent's outputs are coupled (base currents that depend on them)."""
+    plan = tree.plan
+    while True:
+        b = int(tree.m_in_branch[top])
+        if b < 0:
+            return top
+        parent = int(tree.b_parent[b])
+        family = "bjt" if tree.m_bipolar[parent] else "mos"
+        if family in _INDEPENDENT.get(plan.mirrors[tree.mirrors[parent]].topology, ()):
+            return top
+        top = parent
+
+
+def waves(result: Audit, keys: list[tuple[str, str]]) -> list[list[tuple[str, str]]]:
+    """Group trials so that no two in a group can move the same branch: their
+    reaches are not ancestor and descendant (or the same mirror).  One re-solve
+    then answers a whole group, each trial read off the loads below it."""
     tree = result.tree
-    if len(tree.mirrors) > MAX_MIRRORS:
-        return {}
+    index = {name: i for i, name in enumerate(tree.mirrors)}
+    tops = {key: _reach(tree, index[key[0]]) for key in keys}
+    paths = tree.mirror_paths
+    order = sorted(keys, key=lambda k: len(paths[tops[k]]))
+    used: dict[int, set[int]] = {}  # top mirror → waves holding a trial that reaches from it
+    out: list[list[tuple[str, str]]] = []
+    for key in order:
+        top = tops[key]
+        taken: set[int] = set()
+        for m in paths[top]:  # ancestors and the top itself
+            taken |= used.get(m, set())
+        w = 0
+        while w in taken:
+            w += 1
+        if w == len(out):
+            out.append([])
+        out[w].append(key)
+        used.setdefault(top, set()).add(w)
+    return out
+
+
+def _run_waves(result: Audit, keys: list[tuple[str, str]]) -> dict[tuple[str, str], Trial]:
+    trials: dict[tuple[str, str], Trial] = {}
+    for group in waves(result, keys):
+        try:
+            shared = _solve_with(result, dict(group))
+        except Exception:  # one change that cannot be solved: try each of the group alone
+            for key in group:
+                trials[key] = _trial(result, *key)
+            continue
+        for key in group:
+            trials[key] = Trial(key[0], key[1], shared)
+    return trials
+
+
+def hints(result: Audit, batched: bool = True) -> dict[int, list[str]]:
+    """Hints per failing load index (empty when nothing tried helps).
+
+    Every candidate change is tried.  ``batched`` (the default) answers many
+    trials with one re-solve (see ``waves``); ``batched=False`` re-solves the
+    tree once per trial, the slow path the tests compare against."""
     failing = [int(i) for i in np.flatnonzero(~result.passed)]
     wanted: dict[tuple[str, str], int] = {}
     motives: dict[int, list[tuple[str, str, str]]] = {}
@@ -98,8 +167,7 @@ def hints(result: Audit) -> dict[int, list[str]]:
         motives[i] = _candidates(result, i)
         for mirror, topo, _ in motives[i]:
             wanted[(mirror, topo)] = wanted.get((mirror, topo), 0) + 1
-    chosen = sorted(wanted, key=lambda k: -wanted[k])[:MAX_TRIALS]
-    trials = {key: _trial(result, *key) for key in chosen}
+    trials = _run_waves(result, list(wanted)) if batched else {key: _trial(result, *key) for key in wanted}
     out: dict[int, list[str]] = {}
     for i in failing:
         lines = []

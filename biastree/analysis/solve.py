@@ -28,6 +28,7 @@ from biastree.tree.arrays import Tree
 
 VOLTAGE_TOL = 1e-12  # V: sweeps stop when no input voltage moves more than this
 MAX_SWEEPS = 200
+DEEP_TREE = 24  # generations: deeper trees are solved with a local fixed point per generation
 
 
 @dataclass(frozen=True)
@@ -116,22 +117,35 @@ class _Context:
     dev: DeviceArrays
     params: dict[str, Array]
     cols: Columns
+    cache: dict = field(default_factory=dict)  # type: ignore[type-arg]
+
+    def _static(self, g: _Group, dev: DeviceArrays | None) -> tuple:  # type: ignore[type-arg]
+        """What does not change from sweep to sweep: taken once per group."""
+        key = (id(g), id(dev))
+        got = self.cache.get(key)
+        if got is None:
+            b = g.branches
+            c = self.cols
+            pick = lambda a: None if a is None else a[b]  # noqa: E731
+            got = ((dev or self.dev).take(g.mirrors, g.family), {k: v[g.mirrors] for k, v in self.params.items()},
+                   self.tree.b_ratio[b][:, None], self.tree.b_count[b][:, None],
+                   pick(c.is_scale), pick(c.vt_shift), pick(c.k_scale), g, dev)  # g, dev: keep the ids alive
+            self.cache[key] = got
+        return got
 
     def group_input(self, g: _Group, i_in: Array, distance: Array, dev: DeviceArrays | None = None,
                     b_current: Array | None = None) -> GroupInput:
-        b = g.branches
         c = self.cols
-        pick = lambda a: None if a is None else a[b]  # noqa: E731
-        is_scale, vt_shift, k_scale = pick(c.is_scale), pick(c.vt_shift), pick(c.k_scale)
+        taken, params, ratio, count, is_scale, vt_shift, k_scale, _, _ = self._static(g, dev)
         if c.remote is not None and b_current is not None:
             is_scale, vt_shift, k_scale = self._remote(g, b_current, distance, is_scale, vt_shift, k_scale)
         return GroupInput(
-            dev=(dev or self.dev).take(g.mirrors, g.family),
-            params={k: v[g.mirrors] for k, v in self.params.items()},
+            dev=taken,
+            params=params,
             i_in=i_in[g.mirrors],
             row=g.row,
-            ratio=self.tree.b_ratio[b][:, None],
-            count=self.tree.b_count[b][:, None],
+            ratio=ratio,
+            count=count,
             distance=distance,
             supply=c.supply[None, :],
             is_scale=is_scale,
@@ -229,24 +243,55 @@ def _solve(
     root = tree.generations[0]
     i_ref = cols.i_ref[None, :]
 
+    def branch_distances(g: _Group) -> tuple[Array, Array]:
+        b = g.branches
+        child_mirror = ~tree.b_to_load[b]
+        dist = distance[b]
+        dist[child_mirror] = supply - m_v_in[tree.b_child[b[child_mirror]]]
+        distance[b] = dist
+        return dist, child_mirror
+
+    def solve_generation(generation: list[_Group]) -> None:
+        for g in generation:
+            b = g.branches
+            dist, child_mirror = branch_distances(g)
+            out = TOPOLOGIES[g.topology].solve(ctx.group_input(g, m_i_in, dist, b_current=b_current))
+            m_v_in[g.mirrors] = out.v_in
+            m_extra[g.mirrors] = out.extra
+            b_current[b] = out.current
+            b_min[b] = out.min_distance
+            if out.internal_margin is not None:
+                b_internal[b] = out.internal_margin
+            m_i_in[tree.b_child[b[child_mirror]]] = out.current[child_mirror]
+
+    def child_voltages(generation: list[_Group]) -> float:
+        """Input voltages of a generation from its (new) input currents; the
+        largest change.  Only the input voltages are kept."""
+        moved = 0.0
+        for g in generation:
+            dist, _ = branch_distances(g)
+            v_in = TOPOLOGIES[g.topology].solve(ctx.group_input(g, m_i_in, dist, b_current=b_current)).v_in
+            old = m_v_in[g.mirrors]
+            v_in = np.where(np.isfinite(v_in), v_in, old)
+            moved = max(moved, float(np.max(np.abs(v_in - old), initial=0.0)))
+            m_v_in[g.mirrors] = v_in
+        return moved
+
+    # A deep tree converges slowly when swept as a whole (each sweep carries an
+    # input-voltage error one more generation down, so chains of thousands of
+    # mirrors needed dozens of sweeps): there each generation is first brought
+    # to a local fixed point with its children's input voltages.
+    local = len(groups) > DEEP_TREE
     for sweep in range(1, MAX_SWEEPS + 1):
         previous = m_v_in.copy()
         m_i_in[root] = i_ref
-        for generation in groups:
-            for g in generation:
-                b = g.branches
-                child_mirror = ~tree.b_to_load[b]
-                dist = distance[b]
-                dist[child_mirror] = supply - m_v_in[tree.b_child[b[child_mirror]]]
-                distance[b] = dist
-                out = TOPOLOGIES[g.topology].solve(ctx.group_input(g, m_i_in, dist, b_current=b_current))
-                m_v_in[g.mirrors] = out.v_in
-                m_extra[g.mirrors] = out.extra
-                b_current[b] = out.current
-                b_min[b] = out.min_distance
-                if out.internal_margin is not None:
-                    b_internal[b] = out.internal_margin
-                m_i_in[tree.b_child[b[child_mirror]]] = out.current[child_mirror]
+        for k, generation in enumerate(groups):
+            solve_generation(generation)
+            if local and sweep == 1 and k + 1 < len(groups):
+                for _ in range(MAX_SWEEPS):
+                    if not child_voltages(groups[k + 1]) >= VOLTAGE_TOL:  # (NaN stops too)
+                        break
+                    solve_generation(generation)
         if not np.all(np.isfinite(m_v_in)) or not np.all(np.isfinite(b_current)):
             bad = [tree.mirrors[i] for i in np.flatnonzero(~np.all(np.isfinite(m_v_in), axis=1))][:3]
             raise SolveError(

@@ -2,15 +2,35 @@
 
 from __future__ import annotations
 
+import gc
+import sys
+from contextlib import contextmanager
 from enum import Enum
 from pathlib import Path
-from typing import Annotated, Optional
+from typing import Annotated, Iterator, Optional
 
 import typer
 
 import biastree
 from biastree.cli.app import PlanArg, app, emit, guarded, load_tree
 from biastree.errors import BiasTreeError
+
+
+class JsonDetail(str, Enum):
+    stages = "stages"
+    loads = "loads"
+    summary = "summary"
+
+
+@contextmanager
+def _gc_paused() -> Iterator[None]:
+    enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if enabled:
+            gc.enable()
 
 
 @app.command()
@@ -26,19 +46,33 @@ def check(
     k_sigma: Annotated[Optional[float], typer.Option(help="budgets must hold with this many σ of mismatch (plan default 3)")] = None,
     conditions: Annotated[bool, typer.Option(help="also solve the plan's temperatures, supplies and corners")] = True,
     mismatch: Annotated[bool, typer.Option(help="add k·σ of mismatch when devices carry matching coefficients")] = True,
+    json_detail: Annotated[Optional[JsonDetail], typer.Option(
+        help="with --json: stages (every stage's terms), loads (no stage terms) or summary (no loads); "
+             "default stages, or loads when the stages would exceed a million rows")] = None,
 ) -> None:
     """Solve the plan and audit every load against its budget (exit 1 if any fails)."""
     if k_sigma is not None and k_sigma <= 0:
         raise BiasTreeError("--k-sigma: must be > 0")
-    result = biastree.check(load_tree(plan, forward_bias), conditions=conditions, mismatch=mismatch, k_sigma=k_sigma)
-    if json:
-        from biastree.output.json import to_json
+    with _gc_paused():  # millions of small acyclic objects: nothing for the collector to find
+        result = biastree.check(load_tree(plan, forward_bias), conditions=conditions, mismatch=mismatch, k_sigma=k_sigma)
+        if json:
+            from biastree.output.json import default_detail, iter_json
 
-        emit(to_json(result), output)
-    else:
-        from biastree.output.table import to_table
+            detail = json_detail.value if json_detail is not None else default_detail(result)
+            if json_detail is None and detail != "stages":
+                typer.echo(f"note: {detail} detail (the stage terms would be too many rows); "
+                           "--json-detail stages includes them", err=True)
+            pieces = iter_json(result, detail)
+            if output is None or str(output) == "-":
+                for piece in pieces:  # streamed: the whole text never sits in memory
+                    sys.stdout.buffer.write(piece)
+                sys.stdout.flush()
+            else:
+                emit(b"".join(pieces), output)  # type: ignore[arg-type]  (written whole or not at all)
+        else:
+            from biastree.output.table import to_table
 
-        emit(to_table(result, failing_only=failing), output)
+            emit(to_table(result, failing_only=failing), output)
     matched_ok = all(m["verdict"] == "pass" for m in result.matched())
     raise typer.Exit(0 if bool(result.passed.all()) and matched_ok else 1)
 

@@ -22,6 +22,18 @@ DETAILS = ("stages", "loads", "summary")
 _NUMPY = orjson.OPT_SERIALIZE_NUMPY  # a numpy float64 is written as the float it is
 
 
+STAGE_ROWS = 1_000_000  # above this many stage rows in all, the default detail is "loads"
+
+
+def default_detail(result: Audit) -> str:
+    """``stages`` unless the per-load stage lists would hold more than STAGE_ROWS rows
+    (a deep comb: n loads × depth n), then ``loads``."""
+    tree = result.tree
+    depth = np.array([len(p) for p in tree.mirror_paths])
+    rows = int(depth[tree.b_parent[tree.l_branch]].sum())
+    return "stages" if rows <= STAGE_ROWS else "loads"
+
+
 def _check_finite(result: Audit) -> None:
     # orjson writes NaN and infinity as null; the standard library refused them
     # (allow_nan=False), and the schema wants numbers there: keep refusing.

@@ -325,23 +325,34 @@ def _cascode(g: GroupInput) -> GroupOutput:
 def _mos_cascode_node(k2: Array, k4: Array, vg2: Array, vg4: Array, d: Array, vth: Array, lam: Array) -> Array:
     """Middle node V_x of an output stack: bottom device (gate vg2, drain V_x) and
     cascode device (gate vg4, source V_x, drain d) carry the same current.
-    Solved by bisection-safeguarded Newton; f(V_x) is increasing in V_x."""
-    def f(vx: Array) -> Array:
-        bottom = 0.5 * k2 * (vg2 - vth) ** 2 * (1.0 + lam * vx)
-        vov4 = np.maximum(vg4 - vx - vth, 0.0)
-        top = 0.5 * k4 * vov4**2 * (1.0 + lam * (d - vx))
-        return bottom - top
 
-    lo = np.zeros(np.broadcast(d, vg4).shape)
-    hi = np.broadcast_to(vg4 - vth, lo.shape).copy()
-    for _ in range(200):  # bisection to machine precision (robust and vectorised)
-        mid = 0.5 * (lo + hi)
-        positive = f(mid) > 0
-        hi = np.where(positive, mid, hi)
-        lo = np.where(positive, lo, mid)
-        if np.all(hi - lo <= 1e-16 * np.maximum(np.abs(hi), 1.0)):
+    f(V_x) = I_bottom − I_cascode is increasing in V_x on [0, vg4 − V_T]:
+    Newton's method from the λ = 0 solution, kept inside a shrinking bracket
+    (a step that leaves it bisects instead), to machine precision — a few
+    steps where a plain bisection took about 55."""
+    shape = np.broadcast(k2, k4, vg2, vg4, d, vth, lam).shape
+    a = 0.5 * k2 * (vg2 - vth) ** 2  # bottom current at λ = 0
+    lo = np.zeros(shape)
+    hi = np.broadcast_to(vg4 - vth, shape).copy()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        x = np.clip(vg4 - vth - np.sqrt(a / (0.5 * k4)), lo, hi)
+    x = np.where(np.isfinite(x), x, 0.5 * (lo + hi))
+    for _ in range(100):
+        vov4 = np.maximum(vg4 - x - vth, 0.0)
+        f = a * (1.0 + lam * x) - 0.5 * k4 * vov4**2 * (1.0 + lam * (d - x))
+        slope = a * lam + 0.5 * k4 * (2.0 * vov4 * (1.0 + lam * (d - x)) + lam * vov4**2)
+        positive = f > 0
+        hi = np.where(positive, x, hi)
+        lo = np.where(positive, lo, x)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            new = x - f / slope
+        inside = (new > lo) & (new < hi)
+        new = np.where(inside, new, 0.5 * (lo + hi))
+        done = np.abs(new - x) <= 4e-16 * np.maximum(np.abs(x), 1.0)
+        x = new
+        if np.all(done | (hi - lo <= 1e-16 * np.maximum(np.abs(hi), 1.0))):
             break
-    return 0.5 * (lo + hi)
+    return x
 
 
 # --- wide-swing cascode (MOS) -----------------------------------------------------
