@@ -18,7 +18,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from biastree.analysis.audit import Audit
+from biastree.analysis.audit import audit
+from biastree.analysis.corners import ConditionResult
 from biastree.analysis.pipeline import check_tree
+from biastree.analysis.solve import solve
+from biastree.analysis.spread import analytic
 from biastree.physics.topologies import TOPOLOGIES
 from biastree.tree.arrays import Tree
 from biastree.units import format_percent, format_si
@@ -77,24 +81,71 @@ def _changed(spec, topology: str):  # type: ignore[no-untyped-def]
     return type(spec)(topology=topology, **keep)
 
 
-def _solve_with(result: Audit, changes: dict[str, str]) -> Audit:
+def _solve_with(result: Audit, changes: dict[str, str], only: np.ndarray | None = None) -> Audit:
     """The same verdict pipeline as the original (conditions and mismatch
     included), with the topologies of ``changes`` swapped in.  Same structure,
-    other topologies: the tree need not be checked or built again."""
+    other topologies: the tree need not be checked or built again.  With
+    ``only`` (bool per mirror), only those mirrors are re-solved, starting from
+    the original solution; everything else cannot move (see ``_reach``)."""
     plan = result.tree.plan
     mirrors = dict(plan.mirrors)
     for mirror, topology in changes.items():
         mirrors[mirror] = _changed(plan.mirrors[mirror], topology)
     tree = dataclasses.replace(result.tree, plan=plan.model_copy(update={"mirrors": mirrors}))
-    return check_tree(tree, conditions=result.conditions is not None, mismatch=result.spread is not None,
-                      k_sigma=result.k_sigma, detail=False)
+    if only is None:
+        return check_tree(tree, conditions=result.conditions is not None, mismatch=result.spread is not None,
+                          k_sigma=result.k_sigma, detail=False)
+    op = solve(tree, result.op.columns, output_resistance=False, base=result.op, only=only)
+    cond = None
+    if result.conditions is not None:
+        c = result.conditions
+        cond = ConditionResult(tree, c.columns, solve(tree, c.columns, output_resistance=False, base=c.op, only=only))
+    spread = analytic(tree, base=result.spread, only=only) if result.spread is not None else None
+    return audit(op, cond, spread, result.k_sigma)
 
 
-def _trial(result: Audit, mirror: str, topology: str) -> Trial:
+def _trial(result: Audit, mirror: str, topology: str, only: np.ndarray | None = None) -> Trial:
     try:
-        return Trial(mirror, topology, _solve_with(result, {mirror: topology}))
+        return Trial(mirror, topology, _solve_with(result, {mirror: topology}, only))
     except Exception as exc:  # a candidate that cannot be solved is simply not suggested
         return Trial(mirror, topology, None, str(exc))
+
+
+class _Spans:
+    """Each mirror's subtree as one run of a depth-first order."""
+
+    def __init__(self, tree: Tree) -> None:
+        n = len(tree.mirrors)
+        children: list[list[int]] = [[] for _ in range(n)]
+        for b in np.flatnonzero(~tree.b_to_load).tolist():
+            children[int(tree.b_parent[b])].append(int(tree.b_child[b]))
+        order: list[int] = []
+        size = [1] * n
+        stack = [(int(tree.generations[0][0]), False)]
+        while stack:
+            m, done = stack.pop()
+            if done:
+                size[m] += sum(size[c] for c in children[m])
+                continue
+            order.append(m)
+            stack.append((m, True))
+            stack.extend((c, False) for c in reversed(children[m]))
+        self.order = np.array(order, dtype=np.int64)
+        self.start = np.empty(n, dtype=np.int64)
+        self.start[self.order] = np.arange(n)
+        self.size = size
+        self.tree = tree
+
+    def mask(self, tops: list[int]) -> np.ndarray:
+        """Subtrees of ``tops`` and each top's parent (whose branch to it moves)."""
+        tree = self.tree
+        out = np.zeros(len(tree.mirrors), dtype=bool)
+        for top in tops:
+            out[self.order[self.start[top]:self.start[top] + self.size[top]]] = True
+            b = int(tree.m_in_branch[top])
+            if b >= 0:
+                out[int(tree.b_parent[b])] = True
+        return out
 
 
 def _reach(tree: Tree, top: int) -> int:
@@ -141,13 +192,17 @@ def waves(result: Audit, keys: list[tuple[str, str]]) -> list[list[tuple[str, st
 
 
 def _run_waves(result: Audit, keys: list[tuple[str, str]]) -> dict[tuple[str, str], Trial]:
+    tree = result.tree
+    index = {name: i for i, name in enumerate(tree.mirrors)}
+    spans = _Spans(tree)
     trials: dict[tuple[str, str], Trial] = {}
     for group in waves(result, keys):
+        tops = [_reach(tree, index[key[0]]) for key in group]
         try:
-            shared = _solve_with(result, dict(group))
+            shared = _solve_with(result, dict(group), spans.mask(tops))
         except Exception:  # one change that cannot be solved: try each of the group alone
-            for key in group:
-                trials[key] = _trial(result, *key)
+            for key, top in zip(group, tops):
+                trials[key] = _trial(result, *key, only=spans.mask([top]))
             continue
         for key in group:
             trials[key] = Trial(key[0], key[1], shared)

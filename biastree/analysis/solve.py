@@ -93,6 +93,21 @@ class _Group:
     position: np.ndarray  # index of each branch within its mirror
 
 
+def _branches_of(tree: Tree, sel: np.ndarray) -> np.ndarray:
+    """Branches of the mirrors ``sel`` (sorted), in order.  The build lists
+    branches mirror by mirror, so each mirror's branches are one run."""
+    start = np.searchsorted(tree.b_parent, sel, "left")
+    count = np.searchsorted(tree.b_parent, sel, "right") - start
+    offsets = np.cumsum(count) - count
+    return np.repeat(start - offsets, count) + np.arange(int(count.sum()))
+
+
+def _group(tree: Tree, family: str, name: str, sel: np.ndarray) -> _Group:
+    branches = _branches_of(tree, sel)
+    row = np.searchsorted(sel, tree.b_parent[branches])
+    return _Group(family, name, sel, branches, row, tree.b_index[branches])
+
+
 def _groups(tree: Tree) -> list[list[_Group]]:
     """Per generation: mirrors and their branches grouped by (family, topology)."""
     plan = tree.plan
@@ -104,10 +119,24 @@ def _groups(tree: Tree) -> list[list[_Group]]:
             for name in TOPOLOGIES:
                 sel = gen[(tree.m_bipolar[gen] == bip) & (topo[gen] == name)]
                 if sel.size:
-                    branches = np.flatnonzero(np.isin(tree.b_parent, sel))
-                    row = np.searchsorted(sel, tree.b_parent[branches])
-                    groups.append(_Group(family, name, sel, branches, row, tree.b_index[branches]))
+                    groups.append(_group(tree, family, name, sel))
         out.append(groups)
+    return out
+
+
+def _restrict(tree: Tree, groups: list[list[_Group]], only: np.ndarray) -> list[list[_Group]]:
+    """The groups cut down to the mirrors of ``only``; empty generations dropped."""
+    out = []
+    for generation in groups:
+        kept = []
+        for g in generation:
+            sel = g.mirrors[only[g.mirrors]]
+            if sel.size == g.mirrors.size:
+                kept.append(g)
+            elif sel.size:
+                kept.append(_group(tree, g.family, g.topology, sel))
+        if kept:
+            out.append(kept)
     return out
 
 
@@ -192,12 +221,16 @@ class _Context:
 
 
 def solve(tree: Tree, columns: Columns | None = None, output_resistance: bool = True,
-          is_scale: Array | None = None) -> OperatingPoint:
+          is_scale: Array | None = None, base: OperatingPoint | None = None,
+          only: Array | None = None) -> OperatingPoint:
     """Solve the operating point of every mirror and branch, in every column
     of ``columns`` (default: the three ends of the load voltages at the plan's
     conditions).  ``is_scale`` (n_branches, 1) multiplies each output device's
     IS relative to its input device (a quick mismatch study);
     ``output_resistance=False`` skips the term split and the small-signal pass.
+    ``base`` and ``only`` (bool per mirror) re-solve only the mirrors of
+    ``only``, everything else taken from ``base`` (same tree structure and
+    columns): the caller promises that nothing outside ``only`` can move.
 
     >>> import biastree
     >>> op = biastree.solve(biastree.load("samples/bipolar_small.yaml"))
@@ -207,7 +240,7 @@ def solve(tree: Tree, columns: Columns | None = None, output_resistance: bool = 
     # Outside a device's valid region the equations can produce NaN on the way;
     # they are caught as a SolveError with the mirror named, not as numpy warnings.
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        return _solve(tree, columns, output_resistance, is_scale)
+        return _solve(tree, columns, output_resistance, is_scale, base, only)
 
 
 def _solve(
@@ -215,6 +248,8 @@ def _solve(
     columns: Columns | None = None,
     output_resistance: bool = True,
     is_scale: Array | None = None,
+    base: OperatingPoint | None = None,
+    only: Array | None = None,
 ) -> OperatingPoint:
     plan = tree.plan
     cols = default_columns(tree) if columns is None else columns
@@ -240,6 +275,14 @@ def _solve(
     b_min = np.zeros((n_b, n_c))
     b_internal = np.full((n_b, n_c), np.inf)
     groups = _groups(tree)
+    if base is not None and only is not None:
+        # start from the base solution; solve only the chosen mirrors
+        m_i_in, m_v_in, m_extra = base.m_i_in.copy(), base.m_v_in.copy(), base.m_extra.copy()
+        b_current, distance, b_internal = base.b_current.copy(), base.b_distance.copy(), base.b_internal_margin.copy()
+        b_min = base.b_min_distance.copy()
+        if plan.compliance.bjt_forward_bias:  # added back below
+            b_min = b_min + np.where(tree.m_bipolar[tree.b_parent], plan.compliance.bjt_forward_bias, 0.0)[:, None]
+        groups = _restrict(tree, groups, np.asarray(only, dtype=bool))
     root = tree.generations[0]
     i_ref = cols.i_ref[None, :]
 
@@ -284,7 +327,8 @@ def _solve(
     local = len(groups) > DEEP_TREE
     for sweep in range(1, MAX_SWEEPS + 1):
         previous = m_v_in.copy()
-        m_i_in[root] = i_ref
+        if only is None or only[root[0]]:
+            m_i_in[root] = i_ref
         for k, generation in enumerate(groups):
             solve_generation(generation)
             if local and sweep == 1 and k + 1 < len(groups):

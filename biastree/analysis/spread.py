@@ -100,6 +100,7 @@ class Analytic:
     s_k: Array  # ∂ln(gain)/∂ln(β_out/β_in)
     b_var: Array  # (n_branches,) variance of ln(current) from mismatch, down to this branch
     reference_sigma: float  # relative σ of the reference (tolerance/3: common practice)
+    op: object = None  # the sensitivity solve (biastree.analysis.solve.OperatingPoint), for re-solves
 
     def local_var(self, b: np.ndarray | int) -> Array:
         """Variance one stage adds to a branch (its output device and its mirror's input device)."""
@@ -161,10 +162,13 @@ class Analytic:
         return math.sqrt(var)
 
 
-def analytic(tree: Tree) -> Analytic:
-    """First-order mismatch σ of every load, from sensitivities on the exact solution."""
-    base = default_columns(tree)
-    nominal = base.take(np.array([1, 1, 1, 1]))
+def analytic(tree: Tree, base: Analytic | None = None, only: Array | None = None) -> Analytic:
+    """First-order mismatch σ of every load, from sensitivities on the exact solution.
+
+    ``base`` and ``only`` (bool per mirror): re-solve only those mirrors (see
+    biastree.analysis.solve.solve)."""
+    plain = default_columns(tree)
+    nominal = plain.take(np.array([1, 1, 1, 1]))
     n_b = len(tree.b_parent)
     ones, zeros = np.ones((n_b, 4)), np.zeros((n_b, 4))
     is_scale, vt_shift, k_scale = ones.copy(), zeros.copy(), ones.copy()
@@ -172,7 +176,7 @@ def analytic(tree: Tree) -> Analytic:
     vt_shift[:, 2] = _H
     k_scale[:, 3] = 1.0 + _H
     cols = replace(nominal, names=("nominal", "is", "vt", "k"), is_scale=is_scale, vt_shift=vt_shift, k_scale=k_scale)
-    op = solve(tree, cols, output_resistance=False)
+    op = solve(tree, cols, output_resistance=False, base=None if base is None else base.op, only=only)
     gain = op.b_current / op.m_i_in[tree.b_parent]
     s_is = (gain[:, 1] / gain[:, 0] - 1.0) / _H
     s_vt = (gain[:, 2] / gain[:, 0] - 1.0) / _H
@@ -184,7 +188,7 @@ def analytic(tree: Tree) -> Analytic:
     for gen in tree.generations[1:]:
         b = tree.m_in_branch[gen]
         m_var[gen] = m_var[tree.b_parent[b]] + local[b]
-    return replace(result, b_var=local + m_var[tree.b_parent])
+    return replace(result, b_var=local + m_var[tree.b_parent], op=op)
 
 
 # --- Monte Carlo -----------------------------------------------------------------
