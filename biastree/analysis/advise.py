@@ -32,6 +32,9 @@ from biastree.units import format_percent, format_si
 # changing what hangs below one branch then touches that branch alone.
 _INDEPENDENT = {"simple": ("bjt", "mos"), "beta_helper": ("bjt",), "cascode": ("mos",), "wide_swing": ("mos",)}
 
+FIRST_TRIALS = 12  # trials always run (those addressing the most failing loads)
+HINT_WORK = 4  # further trials while the mirrors they re-solve stay under this many times the tree's
+
 _FOR_TERM = {
     "β loading": ("beta_helper", "wilson"),
     "Early effect": ("cascode", "wilson"),
@@ -209,6 +212,26 @@ def _run_waves(result: Audit, keys: list[tuple[str, str]]) -> dict[tuple[str, st
     return trials
 
 
+def _within_budget(result: Audit, wanted: dict[tuple[str, str], int]) -> list[tuple[str, str]]:
+    """The trials to run: those that address the most failing loads first, the
+    first FIRST_TRIALS always, then as many as fit in a re-solve budget of
+    HINT_WORK times the tree's mirrors (each trial costs the mirrors it can
+    move), so that hints stay within a small multiple of the audit's cost."""
+    tree = result.tree
+    index = {name: i for i, name in enumerate(tree.mirrors)}
+    spans = _Spans(tree)
+    ranked = sorted(wanted, key=lambda k: (-wanted[k], k))
+    budget = HINT_WORK * len(tree.mirrors)
+    chosen, spent = [], 0
+    for key in ranked:
+        cost = spans.size[_reach(tree, index[key[0]])]
+        if len(chosen) >= FIRST_TRIALS and spent + cost > budget:
+            continue
+        chosen.append(key)
+        spent += cost
+    return chosen
+
+
 def hints(result: Audit, batched: bool = True) -> dict[int, list[str]]:
     """Hints per failing load index (empty when nothing tried helps).
 
@@ -222,7 +245,8 @@ def hints(result: Audit, batched: bool = True) -> dict[int, list[str]]:
         motives[i] = _candidates(result, i)
         for mirror, topo, _ in motives[i]:
             wanted[(mirror, topo)] = wanted.get((mirror, topo), 0) + 1
-    trials = _run_waves(result, list(wanted)) if batched else {key: _trial(result, *key) for key in wanted}
+    keys = _within_budget(result, wanted)
+    trials = _run_waves(result, keys) if batched else {key: _trial(result, *key) for key in keys}
     out: dict[int, list[str]] = {}
     for i in failing:
         lines = []
