@@ -54,6 +54,7 @@ class OperatingPoint:
     sweeps: int
     cases: tuple[str, ...] = field(default=CASES)
     columns: Columns | None = None
+    devices: DeviceArrays | None = None  # device parameters per mirror and column (they do not depend on topology)
 
     @property
     def b_compliance(self) -> Array:
@@ -255,7 +256,7 @@ def _solve(
     cols = default_columns(tree) if columns is None else columns
     if is_scale is not None:
         cols = replace(cols, is_scale=np.broadcast_to(is_scale, (len(tree.b_parent), cols.size)))
-    dev = device_arrays(tree, cols)
+    dev = base.devices if base is not None and base.devices is not None and is_scale is None else device_arrays(tree, cols)
     ctx = _Context(tree, dev, topology_params(tree), cols)
     supply = cols.supply[None, :]
     n_m, n_b = len(tree.mirrors), len(tree.b_parent)
@@ -372,6 +373,7 @@ def _solve(
         sweeps=sweep,
         cases=cols.names,
         columns=cols,
+        devices=dev,
     )
 
 

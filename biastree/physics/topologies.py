@@ -354,13 +354,14 @@ def _mos_cascode_node(k2: Array, k4: Array, vg2: Array, vg4: Array, d: Array, vt
         f_lo = np.where(positive, f_lo, f)
         s_lo = np.where(positive, s_lo, slope)
         with np.errstate(invalid="ignore", divide="ignore"):
-            new = x - f / slope
-            from_lo = lo - f_lo / s_lo
+            step, step_lo = f / slope, f_lo / s_lo
+        at_x = np.abs(step) <= 4e-16 * np.maximum(np.abs(x), 1.0)  # x is the root to the last bits
+        at_lo = np.abs(step_lo) <= 4e-16 * np.maximum(np.abs(lo), 1.0)  # so is the bracket's left end
+        new, from_lo = x - step, lo - step_lo
         new = np.where((new > lo) & (new < hi), new,
                        np.where((from_lo > lo) & (from_lo < hi), from_lo, 0.5 * (lo + hi)))
-        new = np.where(end, x, new)
-        done = end | (np.abs(new - x) <= 4e-16 * np.maximum(np.abs(x), 1.0)) | \
-            (hi - lo <= 1e-16 * np.maximum(np.abs(hi), 1.0))
+        new = np.where(end | at_x, x, np.where(at_lo, lo, new))
+        done = end | at_x | at_lo | (hi - lo <= 1e-16 * np.maximum(np.abs(hi), 1.0))
         x = new
         if np.all(done):
             break
