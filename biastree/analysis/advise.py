@@ -32,8 +32,9 @@ from biastree.units import format_percent, format_si
 # changing what hangs below one branch then touches that branch alone.
 _INDEPENDENT = {"simple": ("bjt", "mos"), "beta_helper": ("bjt",), "cascode": ("mos",), "wide_swing": ("mos",)}
 
-FIRST_TRIALS = 12  # trials always run (those addressing the most failing loads)
-HINT_WORK = 4  # further trials while the mirrors they re-solve stay under this many times the tree's
+FIRST_TRIALS = 12  # trials always run on small plans (those addressing the most failing loads)
+SMALL_PLAN = 200  # mirrors
+HINT_WORK = 1  # otherwise trials while the mirrors they re-solve stay under this many times the tree's
 
 _FOR_TERM = {
     "β loading": ("beta_helper", "wilson"),
@@ -213,10 +214,10 @@ def _run_waves(result: Audit, keys: list[tuple[str, str]]) -> dict[tuple[str, st
 
 
 def _within_budget(result: Audit, wanted: dict[tuple[str, str], int]) -> list[tuple[str, str]]:
-    """The trials to run: those that address the most failing loads first, the
-    first FIRST_TRIALS always, then as many as fit in a re-solve budget of
-    HINT_WORK times the tree's mirrors (each trial costs the mirrors it can
-    move), so that hints stay within a small multiple of the audit's cost."""
+    """The trials to run: those that address the most failing loads first (on a
+    small plan the first FIRST_TRIALS always), while the mirrors they re-solve
+    (each trial costs the subtree it can move) stay within HINT_WORK times the
+    tree's mirrors — about the work of the audit itself.  The first trial always runs."""
     tree = result.tree
     index = {name: i for i, name in enumerate(tree.mirrors)}
     spans = _Spans(tree)
@@ -225,7 +226,8 @@ def _within_budget(result: Audit, wanted: dict[tuple[str, str], int]) -> list[tu
     chosen, spent = [], 0
     for key in ranked:
         cost = spans.size[_reach(tree, index[key[0]])]
-        if len(chosen) >= FIRST_TRIALS and spent + cost > budget:
+        small = len(chosen) < FIRST_TRIALS and len(tree.mirrors) <= SMALL_PLAN
+        if not small and chosen and spent + cost > budget:
             continue
         chosen.append(key)
         spent += cost
