@@ -2,12 +2,10 @@
 
 from __future__ import annotations
 
-import gc
 import sys
-from contextlib import contextmanager
 from enum import Enum
 from pathlib import Path
-from typing import Annotated, Iterator, Optional
+from typing import Annotated, Optional
 
 import typer
 
@@ -20,17 +18,6 @@ class JsonDetail(str, Enum):
     stages = "stages"
     loads = "loads"
     summary = "summary"
-
-
-@contextmanager
-def _gc_paused() -> Iterator[None]:
-    enabled = gc.isenabled()
-    gc.disable()
-    try:
-        yield
-    finally:
-        if enabled:
-            gc.enable()
 
 
 @app.command()
@@ -53,7 +40,7 @@ def check(
     """Solve the plan and audit every load against its budget (exit 1 if any fails)."""
     if k_sigma is not None and k_sigma <= 0:
         raise BiasTreeError("--k-sigma: must be > 0")
-    with _gc_paused():  # millions of small acyclic objects: nothing for the collector to find
+    with biastree._gc_paused():  # millions of small acyclic objects: nothing for the collector to find
         result = biastree.check(load_tree(plan, forward_bias), conditions=conditions, mismatch=mismatch, k_sigma=k_sigma)
         if json:
             from biastree.output.json import default_detail, iter_json
