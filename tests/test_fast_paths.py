@@ -193,3 +193,21 @@ def test_cascode_node_newton_equals_bisection() -> None:
     args = (k * rng.uniform(0.5, 2, n), k, vg2, vg4, rng.uniform(0.0, 3.3, n), vth, rng.uniform(0.0, 0.2, n))
     # same root of the same residual: within a few ulps of a volt
     assert np.max(np.abs(_mos_cascode_node(*args) - _bisection(*args))) < 1e-14
+
+
+def test_json_detail_option(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    from typer.testing import CliRunner
+
+    from biastree.cli import app
+
+    schema = json.loads((ROOT / "schemas" / "results.schema.json").read_text())
+    plan = str(ROOT / "samples" / "die_spread.yaml")
+    full = json.loads(CliRunner().invoke(app, ["check", plan, "--json"]).stdout)
+    out = tmp_path / "r.json"
+    result = CliRunner().invoke(app, ["check", plan, "--json", "--json-detail", "loads", "-o", str(out)])
+    assert result.exit_code in (0, 1)
+    data = json.loads(out.read_text())
+    jsonschema.validate(data, schema)
+    assert data["detail"] == "loads" and all("stages" not in l for l in data["loads"])
+    assert [l["name"] for l in data["loads"]] == [l["name"] for l in full["loads"]]
+    assert CliRunner().invoke(app, ["check", plan, "--json", "--json-detail", "all"]).exit_code == 2
