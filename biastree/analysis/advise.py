@@ -14,6 +14,8 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass
+from functools import partial
+from typing import Callable
 
 import numpy as np
 
@@ -52,20 +54,29 @@ class Trial:
     why_not: str = ""
 
 
-def _candidates(result: Audit, load: int) -> list[tuple[str, str, str]]:
-    """(mirror, topology, motive) worth trying for one failing load."""
+def _term_motive(label: str, stage: str, value: float) -> str:
+    return f"{label} at {stage} dominates ({format_percent(value)})"
+
+
+def _compliance_motive(parent: str, lacks: float) -> str:
+    return f"the output of {parent} lacks {format_si(lacks, 'V')}"
+
+
+def _candidates(result: Audit, load: int) -> list[tuple[str, str, Callable[[], str]]]:
+    """(mirror, topology, motive) worth trying for one failing load; the motive's
+    words are formatted only for the hints that are printed."""
     tree = result.tree
     out = []
     if result.margin[load] < 0:
         stage, label, value = result.largest_term(load)
         if stage != "plan":
             for topo in _FOR_TERM.get(label, ()):
-                out.append((stage, topo, f"{label} at {stage} dominates ({format_percent(value)})"))
+                out.append((stage, topo, partial(_term_motive, label, stage, value)))
     if result.compliance[load] < 0:
         parent = tree.mirrors[tree.b_parent[tree.l_branch[load]]]
         family = "bjt" if tree.m_bipolar[tree.b_parent[tree.l_branch[load]]] else "mos"
         for topo in _FOR_COMPLIANCE[family]:
-            out.append((parent, topo, f"the output of {parent} lacks {format_si(-float(result.compliance[load]), 'V')}"))
+            out.append((parent, topo, partial(_compliance_motive, parent, -float(result.compliance[load]))))
     plan = tree.plan
     usable = []
     for mirror, topo, motive in out:
@@ -252,7 +263,7 @@ def hints(result: Audit, batched: bool = True) -> dict[int, list[str]]:
     out: dict[int, list[str]] = {}
     for i in failing:
         lines = []
-        by_trial: dict[tuple[str, str], list[str]] = {}
+        by_trial: dict[tuple[str, str], list[Callable[[], str]]] = {}
         for mirror, topo, motive in motives[i]:
             by_trial.setdefault((mirror, topo), []).append(motive)
         for (mirror, topo), why in by_trial.items():
@@ -269,7 +280,7 @@ def hints(result: Audit, batched: bool = True) -> dict[int, list[str]]:
                 status = f"would still fail ({', '.join(left)})"
             detail = (f"error {format_percent(err)} (budget ±{new.tolerance[i] * 100:.3g} %), "
                       f"compliance margin {format_si(float(new.compliance[i]), 'V')}")
-            lines.append(f"{'; '.join(why)}: {topo} at {mirror} {status}: {detail}")
+            lines.append(f"{'; '.join(m() for m in why)}: {topo} at {mirror} {status}: {detail}")
         if lines:
             out[i] = lines
     return out
