@@ -33,6 +33,8 @@ def main() -> None:
     parser.add_argument("--loads", type=int, default=10_000)
     parser.add_argument("--samples", type=int, default=1000)
     parser.add_argument("--small-samples", type=int, default=1000)
+    parser.add_argument("--same-loads", type=int, default=1000, help="loads of the tree both tools sample")
+    parser.add_argument("--ngspice-samples", type=int, default=20, help="ngspice Monte Carlo samples on that tree")
     args = parser.parse_args()
 
     tree = biastree.loads(json.dumps(with_matching(random_plan(args.loads, seed=7))), "bench", "json")
@@ -64,6 +66,20 @@ def main() -> None:
     theirs = time.perf_counter() - start
     print(f"small plan ({len(small.loads)} loads, {len(small.mirrors)} mirrors), {n} samples: biastree {ours:.3f} s, "
           f"ngspice {theirs:.2f} s: ngspice takes {theirs / ours:.0f}× as long")
+
+    # a larger tree, the same for both: ngspice's own Monte Carlo loop runs fewer
+    # samples (each is a full operating point); compared per sample
+    big = biastree.loads(json.dumps(with_matching(random_plan(args.same_loads, seed=5,
+                                                              ranges=Ranges(families=("bjt",))))), "same", "json")
+    start = time.perf_counter()
+    monte_carlo(big, args.samples, seed=1, include_reference=False, include_process=False)
+    ours = (time.perf_counter() - start) / args.samples
+    start = time.perf_counter()
+    ngspice_monte_carlo(big, args.ngspice_samples, seed=1)
+    theirs = (time.perf_counter() - start) / args.ngspice_samples
+    print(f"same tree ({len(big.loads)} loads, {len(big.mirrors)} mirrors): biastree {ours * 1e3:.3f} ms per sample "
+          f"({args.samples} samples), ngspice {theirs * 1e3:.0f} ms per sample ({args.ngspice_samples} samples): "
+          f"ngspice takes {theirs / ours:.0f}× as long")
 
 
 if __name__ == "__main__":

@@ -14,14 +14,39 @@ from __future__ import annotations
 import gc
 from contextlib import contextmanager
 from pathlib import Path
-from typing import Iterator, Union
+from typing import TYPE_CHECKING, Any, Iterator, Union
 
-from biastree.analysis.audit import Audit, audit
-from biastree.analysis.solve import OperatingPoint, solve
 from biastree.errors import BiasTreeError, PlanError, Problem, RenderError, SimulatorError, SolveError
-from biastree.input.model import Plan
-from biastree.tree.arrays import Tree, build
 from biastree.version import __version__  # noqa: F401  (re-exported)
+
+if TYPE_CHECKING:
+    from biastree.analysis.audit import Audit, audit
+    from biastree.analysis.solve import OperatingPoint, solve
+    from biastree.input.model import Plan
+    from biastree.tree.arrays import Tree, build
+
+# numpy, pydantic and the models are imported on first use, so that
+# `import biastree` and `biastree --help` start fast.
+_LAZY = {
+    "Audit": "biastree.analysis.audit",
+    "audit": "biastree.analysis.audit",
+    "OperatingPoint": "biastree.analysis.solve",
+    "solve": "biastree.analysis.solve",
+    "Plan": "biastree.input.model",
+    "Tree": "biastree.tree.arrays",
+    "build": "biastree.tree.arrays",
+}
+
+
+def __getattr__(name: str) -> Any:
+    module = _LAZY.get(name)
+    if module is None:
+        raise AttributeError(f"module 'biastree' has no attribute '{name}'")
+    import importlib
+
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value
 
 __all__ = [
     "Audit",
@@ -59,6 +84,7 @@ def _gc_paused() -> Iterator[None]:
 def loads(text: str, source: str = "plan", fmt: str = "yaml") -> Tree:
     """Validate plan text (YAML or JSON) and build its tree; raises ``PlanError``."""
     from biastree.input.loader import parse_text, validate
+    from biastree.tree.arrays import build
 
     with _gc_paused():
         doc = parse_text(text, source, fmt)
@@ -74,6 +100,7 @@ def load(path: Union[str, Path]) -> Tree:
     (15, 4)
     """
     from biastree.input.loader import load_document, validate
+    from biastree.tree.arrays import build
 
     with _gc_paused():
         doc = load_document(path)
@@ -96,6 +123,7 @@ def check(path_or_tree: Union[str, Path, Tree], conditions: bool = True, mismatc
 
     from biastree.analysis.advise import hints
     from biastree.analysis.pipeline import check_tree
+    from biastree.tree.arrays import Tree
 
     tree = path_or_tree if isinstance(path_or_tree, Tree) else load(path_or_tree)
     result = check_tree(tree, conditions, mismatch, k_sigma, detail)

@@ -14,16 +14,29 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass
+from functools import partial
+from typing import Callable
 
 import numpy as np
 
 from biastree.analysis.audit import Audit
+from biastree.analysis.audit import audit
+from biastree.analysis.corners import ConditionResult
 from biastree.analysis.pipeline import check_tree
+from biastree.analysis.solve import solve
+from biastree.analysis.spread import analytic
 from biastree.physics.topologies import TOPOLOGIES
+from biastree.tree.arrays import Tree
 from biastree.units import format_percent, format_si
 
-MAX_TRIALS = 12  # re-solves of the whole tree per audit
-MAX_MIRRORS = 2500  # above this, hints are skipped (each trial re-solves everything)
+# Families in which a topology's input voltage and its other outputs do not
+# depend on one output's voltage (no base current that varies with it):
+# changing what hangs below one branch then touches that branch alone.
+_INDEPENDENT = {"simple": ("bjt", "mos"), "beta_helper": ("bjt",), "cascode": ("mos",), "wide_swing": ("mos",)}
+
+FIRST_TRIALS = 12  # trials always run on small plans (those addressing the most failing loads)
+SMALL_PLAN = 200  # mirrors
+HINT_WORK = 1  # otherwise trials while the mirrors they re-solve stay under this many times the tree's
 
 _FOR_TERM = {
     "β loading": ("beta_helper", "wilson"),
@@ -41,20 +54,29 @@ class Trial:
     why_not: str = ""
 
 
-def _candidates(result: Audit, load: int) -> list[tuple[str, str, str]]:
-    """(mirror, topology, motive) worth trying for one failing load."""
+def _term_motive(label: str, stage: str, value: float) -> str:
+    return f"{label} at {stage} dominates ({format_percent(value)})"
+
+
+def _compliance_motive(parent: str, lacks: float) -> str:
+    return f"the output of {parent} lacks {format_si(lacks, 'V')}"
+
+
+def _candidates(result: Audit, load: int) -> list[tuple[str, str, Callable[[], str]]]:
+    """(mirror, topology, motive) worth trying for one failing load; the motive's
+    words are formatted only for the hints that are printed."""
     tree = result.tree
     out = []
     if result.margin[load] < 0:
         stage, label, value = result.largest_term(load)
         if stage != "plan":
             for topo in _FOR_TERM.get(label, ()):
-                out.append((stage, topo, f"{label} at {stage} dominates ({format_percent(value)})"))
+                out.append((stage, topo, partial(_term_motive, label, stage, value)))
     if result.compliance[load] < 0:
         parent = tree.mirrors[tree.b_parent[tree.l_branch[load]]]
         family = "bjt" if tree.m_bipolar[tree.b_parent[tree.l_branch[load]]] else "mos"
         for topo in _FOR_COMPLIANCE[family]:
-            out.append((parent, topo, f"the output of {parent} lacks {format_si(-float(result.compliance[load]), 'V')}"))
+            out.append((parent, topo, partial(_compliance_motive, parent, -float(result.compliance[load]))))
     plan = tree.plan
     usable = []
     for mirror, topo, motive in out:
@@ -69,28 +91,166 @@ def _candidates(result: Audit, load: int) -> list[tuple[str, str, str]]:
     return usable
 
 
-def _trial(result: Audit, mirror: str, topology: str) -> Trial:
-    plan = result.tree.plan
-    spec = plan.mirrors[mirror]
+def _changed(spec, topology: str):  # type: ignore[no-untyped-def]
     keep = {k: getattr(spec, k) for k in ("device", "input_size", "branches")}
-    changed = type(spec)(topology=topology, **keep)
-    new_plan = plan.model_copy(update={"mirrors": {**plan.mirrors, mirror: changed}})
+    return type(spec)(topology=topology, **keep)
+
+
+def _solve_with(result: Audit, changes: dict[str, str], only: np.ndarray | None = None) -> Audit:
+    """The same verdict pipeline as the original (conditions and mismatch
+    included), with the topologies of ``changes`` swapped in.  Same structure,
+    other topologies: the tree need not be checked or built again.  With
+    ``only`` (bool per mirror), only those mirrors are re-solved, starting from
+    the original solution; everything else cannot move (see ``_reach``)."""
+    plan = result.tree.plan
+    mirrors = dict(plan.mirrors)
+    for mirror, topology in changes.items():
+        mirrors[mirror] = _changed(plan.mirrors[mirror], topology)
+    tree = dataclasses.replace(result.tree, plan=plan.model_copy(update={"mirrors": mirrors}))
+    if only is None:
+        return check_tree(tree, conditions=result.conditions is not None, mismatch=result.spread is not None,
+                          k_sigma=result.k_sigma, detail=False)
+    op = solve(tree, result.op.columns, output_resistance=False, base=result.op, only=only)
+    cond = None
+    if result.conditions is not None:
+        c = result.conditions
+        cond = ConditionResult(tree, c.columns, solve(tree, c.columns, output_resistance=False, base=c.op, only=only))
+    spread = analytic(tree, base=result.spread, only=only) if result.spread is not None else None
+    return audit(op, cond, spread, result.k_sigma)
+
+
+def _trial(result: Audit, mirror: str, topology: str, only: np.ndarray | None = None) -> Trial:
     try:
-        # the same verdict pipeline as the original (conditions and mismatch included)
-        # same structure, other topology: no need to check the tree again
-        tree = dataclasses.replace(result.tree, plan=new_plan)
-        return Trial(mirror, topology, check_tree(tree, conditions=result.conditions is not None,
-                                             mismatch=result.spread is not None, k_sigma=result.k_sigma,
-                                             detail=False))
+        return Trial(mirror, topology, _solve_with(result, {mirror: topology}, only))
     except Exception as exc:  # a candidate that cannot be solved is simply not suggested
         return Trial(mirror, topology, None, str(exc))
 
 
-def hints(result: Audit) -> dict[int, list[str]]:
-    """Hints per failing load index (empty when nothing tried helps)."""
+class _Spans:
+    """Each mirror's subtree as one run of a depth-first order."""
+
+    def __init__(self, tree: Tree) -> None:
+        n = len(tree.mirrors)
+        children: list[list[int]] = [[] for _ in range(n)]
+        for b in np.flatnonzero(~tree.b_to_load).tolist():
+            children[int(tree.b_parent[b])].append(int(tree.b_child[b]))
+        order: list[int] = []
+        size = [1] * n
+        stack = [(int(tree.generations[0][0]), False)]
+        while stack:
+            m, done = stack.pop()
+            if done:
+                size[m] += sum(size[c] for c in children[m])
+                continue
+            order.append(m)
+            stack.append((m, True))
+            stack.extend((c, False) for c in reversed(children[m]))
+        self.order = np.array(order, dtype=np.int64)
+        self.start = np.empty(n, dtype=np.int64)
+        self.start[self.order] = np.arange(n)
+        self.size = size
+        self.tree = tree
+
+    def mask(self, tops: list[int]) -> np.ndarray:
+        """Subtrees of ``tops`` and each top's parent (whose branch to it moves)."""
+        tree = self.tree
+        out = np.zeros(len(tree.mirrors), dtype=bool)
+        for top in tops:
+            out[self.order[self.start[top]:self.start[top] + self.size[top]]] = True
+            b = int(tree.m_in_branch[top])
+            if b >= 0:
+                out[int(tree.b_parent[b])] = True
+        return out
+
+
+def _reach(tree: Tree, top: int) -> int:
+    """The topmost mirror whose subtree holds everything a change at mirror
+    ``top`` can move: a changed mirror's input voltage moves its feeding
+    branch, and through it the parent's other outputs and input voltage only
+    where the parent's outputs are coupled (base currents that depend on them)."""
+    plan = tree.plan
+    while True:
+        b = int(tree.m_in_branch[top])
+        if b < 0:
+            return top
+        parent = int(tree.b_parent[b])
+        family = "bjt" if tree.m_bipolar[parent] else "mos"
+        if family in _INDEPENDENT.get(plan.mirrors[tree.mirrors[parent]].topology, ()):
+            return top
+        top = parent
+
+
+def waves(result: Audit, keys: list[tuple[str, str]]) -> list[list[tuple[str, str]]]:
+    """Group trials so that no two in a group can move the same branch: their
+    reaches are not ancestor and descendant (or the same mirror).  One re-solve
+    then answers a whole group, each trial read off the loads below it."""
     tree = result.tree
-    if len(tree.mirrors) > MAX_MIRRORS:
-        return {}
+    index = {name: i for i, name in enumerate(tree.mirrors)}
+    tops = {key: _reach(tree, index[key[0]]) for key in keys}
+    paths = tree.mirror_paths
+    order = sorted(keys, key=lambda k: len(paths[tops[k]]))
+    used: dict[int, set[int]] = {}  # top mirror → waves holding a trial that reaches from it
+    out: list[list[tuple[str, str]]] = []
+    for key in order:
+        top = tops[key]
+        taken: set[int] = set()
+        for m in paths[top]:  # ancestors and the top itself
+            taken |= used.get(m, set())
+        w = 0
+        while w in taken:
+            w += 1
+        if w == len(out):
+            out.append([])
+        out[w].append(key)
+        used.setdefault(top, set()).add(w)
+    return out
+
+
+def _run_waves(result: Audit, keys: list[tuple[str, str]]) -> dict[tuple[str, str], Trial]:
+    tree = result.tree
+    index = {name: i for i, name in enumerate(tree.mirrors)}
+    spans = _Spans(tree)
+    trials: dict[tuple[str, str], Trial] = {}
+    for group in waves(result, keys):
+        tops = [_reach(tree, index[key[0]]) for key in group]
+        try:
+            shared = _solve_with(result, dict(group), spans.mask(tops))
+        except Exception:  # one change that cannot be solved: try each of the group alone
+            for key, top in zip(group, tops):
+                trials[key] = _trial(result, *key, only=spans.mask([top]))
+            continue
+        for key in group:
+            trials[key] = Trial(key[0], key[1], shared)
+    return trials
+
+
+def _within_budget(result: Audit, wanted: dict[tuple[str, str], int]) -> list[tuple[str, str]]:
+    """The trials to run: those that address the most failing loads first (on a
+    small plan the first FIRST_TRIALS always), while the mirrors they re-solve
+    (each trial costs the subtree it can move) stay within HINT_WORK times the
+    tree's mirrors — about the work of the audit itself.  The first trial always runs."""
+    tree = result.tree
+    index = {name: i for i, name in enumerate(tree.mirrors)}
+    spans = _Spans(tree)
+    ranked = sorted(wanted, key=lambda k: (-wanted[k], k))
+    budget = HINT_WORK * len(tree.mirrors)
+    chosen, spent = [], 0
+    for key in ranked:
+        cost = spans.size[_reach(tree, index[key[0]])]
+        small = len(chosen) < FIRST_TRIALS and len(tree.mirrors) <= SMALL_PLAN
+        if not small and chosen and spent + cost > budget:
+            continue
+        chosen.append(key)
+        spent += cost
+    return chosen
+
+
+def hints(result: Audit, batched: bool = True) -> dict[int, list[str]]:
+    """Hints per failing load index (empty when nothing tried helps).
+
+    Every candidate change is tried.  ``batched`` (the default) answers many
+    trials with one re-solve (see ``waves``); ``batched=False`` re-solves the
+    tree once per trial, the slow path the tests compare against."""
     failing = [int(i) for i in np.flatnonzero(~result.passed)]
     wanted: dict[tuple[str, str], int] = {}
     motives: dict[int, list[tuple[str, str, str]]] = {}
@@ -98,12 +258,12 @@ def hints(result: Audit) -> dict[int, list[str]]:
         motives[i] = _candidates(result, i)
         for mirror, topo, _ in motives[i]:
             wanted[(mirror, topo)] = wanted.get((mirror, topo), 0) + 1
-    chosen = sorted(wanted, key=lambda k: -wanted[k])[:MAX_TRIALS]
-    trials = {key: _trial(result, *key) for key in chosen}
+    keys = _within_budget(result, wanted)
+    trials = _run_waves(result, keys) if batched else {key: _trial(result, *key) for key in keys}
     out: dict[int, list[str]] = {}
     for i in failing:
         lines = []
-        by_trial: dict[tuple[str, str], list[str]] = {}
+        by_trial: dict[tuple[str, str], list[Callable[[], str]]] = {}
         for mirror, topo, motive in motives[i]:
             by_trial.setdefault((mirror, topo), []).append(motive)
         for (mirror, topo), why in by_trial.items():
@@ -120,7 +280,7 @@ def hints(result: Audit) -> dict[int, list[str]]:
                 status = f"would still fail ({', '.join(left)})"
             detail = (f"error {format_percent(err)} (budget ±{new.tolerance[i] * 100:.3g} %), "
                       f"compliance margin {format_si(float(new.compliance[i]), 'V')}")
-            lines.append(f"{'; '.join(why)}: {topo} at {mirror} {status}: {detail}")
+            lines.append(f"{'; '.join(m() for m in why)}: {topo} at {mirror} {status}: {detail}")
         if lines:
             out[i] = lines
     return out

@@ -62,41 +62,69 @@ class Audit:
     def stages(self, load: int, case: int = 1, op: OperatingPoint | None = None) -> list[dict[str, Any]]:
         """Stage-by-stage terms along the load's path, at one case (column) of ``op``
         (default: the audit's own operating point; empty terms when it was solved
-        without them)."""
+        without them).
+
+        Each stage's dict is built once per branch and case and shared by every
+        load below that branch: treat the dicts as read-only."""
+        rows = self._stage_rows(case, op)
         tree = self.tree
-        op = self.op if op is None else op
+        return [rows[b] for b in tree.mirror_branch_paths[int(tree.b_parent[tree.l_branch[load]])]] + \
+            [rows[int(tree.l_branch[load])]]
+
+    @cached_property
+    def _stage_cache(self) -> dict[int, list[dict[str, Any]]]:
+        return {}
+
+    def _stage_rows(self, case: int, op: OperatingPoint | None = None) -> list[dict[str, Any]]:
+        """One stage dict per branch (the stage a load passes through when its
+        path takes that branch), built in one pass from the arrays; cached for
+        the audit's own operating point."""
+        own = op is None or op is self.op
+        cached = self._stage_cache.get(case) if own else None
+        if cached is not None:
+            return cached
+        tree, op = self.tree, (self.op if op is None else op)
         plan = tree.plan
-        path = tree.path(load)
-        out = []
-        for k, m in enumerate(path):
-            branch = int(tree.m_in_branch[path[k + 1]]) if k + 1 < len(path) else int(tree.l_branch[load])
-            name = tree.mirrors[m]
+        per_mirror = []
+        for m, name in enumerate(tree.mirrors):
             mirror = plan.mirrors[name]
             family = "bjt" if tree.m_bipolar[m] else "mos"
+            keys = [k for k in TOPOLOGIES[mirror.topology].terms[family] if k in op.b_factors]
+            per_mirror.append((name, mirror.device, mirror.topology, [(k, TERM_LABELS[k]) for k in keys]))
+        factors = {k: v[:, case].tolist() for k, v in op.b_factors.items()}
+        i_in = op.m_i_in[:, case].tolist()
+        current = op.b_current[:, case].tolist()
+        fanout = tree.m_fanout.tolist()
+        ratio = tree.b_ratio.tolist()
+        index = tree.b_index.tolist()
+        rows = []
+        for b, m in enumerate(tree.b_parent.tolist()):
+            name, device, topology, keys = per_mirror[m]
             terms = []
-            for key in TOPOLOGIES[mirror.topology].terms[family]:
-                if key not in op.b_factors:
-                    continue
-                value = op.b_factors[key][branch, case]
+            gain = 1.0
+            for key, label in keys:
+                value = factors[key][b]
                 if key == "gradient" and value == 1.0:
                     continue  # only remote output devices have a gradient term
-                terms.append({"term": key, "label": TERM_LABELS[key], "value": float(value - 1.0)})
-            gain = float(np.prod([1.0 + t["value"] for t in terms])) - 1.0
-            out.append(
+                terms.append({"term": key, "label": label, "value": value - 1.0})
+                gain *= 1.0 + (value - 1.0)
+            rows.append(
                 {
                     "mirror": name,
-                    "device": mirror.device,
-                    "topology": mirror.topology,
-                    "branch": int(tree.b_index[branch]),
-                    "ratio": float(tree.b_ratio[branch]),
-                    "input_current": float(op.m_i_in[m, case]),
-                    "output_current": float(op.b_current[branch, case]),
-                    "fanout": float(tree.m_fanout[m]),
-                    "error": gain,
+                    "device": device,
+                    "topology": topology,
+                    "branch": index[b],
+                    "ratio": ratio[b],
+                    "input_current": i_in[m],
+                    "output_current": current[b],
+                    "fanout": fanout[m],
+                    "error": gain - 1.0,
                     "terms": terms,
                 }
             )
-        return out
+        if own:
+            self._stage_cache[case] = rows
+        return rows
 
     def plan_term(self, load: int) -> float:
         """Error that the ratios alone give: ideal current / target − 1."""
@@ -316,7 +344,7 @@ class Audit:
             per_volt = np.where(span > 0, delta / np.where(span > 0, span, 1.0), 0.0)
         return delta, delta / self.delivered[:, 1], per_volt
 
-    @property
+    @cached_property
     def rout(self) -> Array:
         """Output resistance seen by each load at its nominal voltage, Ω."""
         return self.op.b_rout[self.tree.l_branch, 1]

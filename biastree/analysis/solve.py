@@ -28,6 +28,7 @@ from biastree.tree.arrays import Tree
 
 VOLTAGE_TOL = 1e-12  # V: sweeps stop when no input voltage moves more than this
 MAX_SWEEPS = 200
+DEEP_TREE = 24  # generations: deeper trees are solved with a local fixed point per generation
 
 
 @dataclass(frozen=True)
@@ -53,6 +54,7 @@ class OperatingPoint:
     sweeps: int
     cases: tuple[str, ...] = field(default=CASES)
     columns: Columns | None = None
+    devices: DeviceArrays | None = None  # device parameters per mirror and column (they do not depend on topology)
 
     @property
     def b_compliance(self) -> Array:
@@ -92,6 +94,21 @@ class _Group:
     position: np.ndarray  # index of each branch within its mirror
 
 
+def _branches_of(tree: Tree, sel: np.ndarray) -> np.ndarray:
+    """Branches of the mirrors ``sel`` (sorted), in order.  The build lists
+    branches mirror by mirror, so each mirror's branches are one run."""
+    start = np.searchsorted(tree.b_parent, sel, "left")
+    count = np.searchsorted(tree.b_parent, sel, "right") - start
+    offsets = np.cumsum(count) - count
+    return np.repeat(start - offsets, count) + np.arange(int(count.sum()))
+
+
+def _group(tree: Tree, family: str, name: str, sel: np.ndarray) -> _Group:
+    branches = _branches_of(tree, sel)
+    row = np.searchsorted(sel, tree.b_parent[branches])
+    return _Group(family, name, sel, branches, row, tree.b_index[branches])
+
+
 def _groups(tree: Tree) -> list[list[_Group]]:
     """Per generation: mirrors and their branches grouped by (family, topology)."""
     plan = tree.plan
@@ -103,10 +120,24 @@ def _groups(tree: Tree) -> list[list[_Group]]:
             for name in TOPOLOGIES:
                 sel = gen[(tree.m_bipolar[gen] == bip) & (topo[gen] == name)]
                 if sel.size:
-                    branches = np.flatnonzero(np.isin(tree.b_parent, sel))
-                    row = np.searchsorted(sel, tree.b_parent[branches])
-                    groups.append(_Group(family, name, sel, branches, row, tree.b_index[branches]))
+                    groups.append(_group(tree, family, name, sel))
         out.append(groups)
+    return out
+
+
+def _restrict(tree: Tree, groups: list[list[_Group]], only: np.ndarray) -> list[list[_Group]]:
+    """The groups cut down to the mirrors of ``only``; empty generations dropped."""
+    out = []
+    for generation in groups:
+        kept = []
+        for g in generation:
+            sel = g.mirrors[only[g.mirrors]]
+            if sel.size == g.mirrors.size:
+                kept.append(g)
+            elif sel.size:
+                kept.append(_group(tree, g.family, g.topology, sel))
+        if kept:
+            out.append(kept)
     return out
 
 
@@ -116,22 +147,35 @@ class _Context:
     dev: DeviceArrays
     params: dict[str, Array]
     cols: Columns
+    cache: dict = field(default_factory=dict)  # type: ignore[type-arg]
+
+    def _static(self, g: _Group, dev: DeviceArrays | None) -> tuple:  # type: ignore[type-arg]
+        """What does not change from sweep to sweep: taken once per group."""
+        key = (id(g), id(dev))
+        got = self.cache.get(key)
+        if got is None:
+            b = g.branches
+            c = self.cols
+            pick = lambda a: None if a is None else a[b]  # noqa: E731
+            got = ((dev or self.dev).take(g.mirrors, g.family), {k: v[g.mirrors] for k, v in self.params.items()},
+                   self.tree.b_ratio[b][:, None], self.tree.b_count[b][:, None],
+                   pick(c.is_scale), pick(c.vt_shift), pick(c.k_scale), g, dev)  # g, dev: keep the ids alive
+            self.cache[key] = got
+        return got
 
     def group_input(self, g: _Group, i_in: Array, distance: Array, dev: DeviceArrays | None = None,
                     b_current: Array | None = None) -> GroupInput:
-        b = g.branches
         c = self.cols
-        pick = lambda a: None if a is None else a[b]  # noqa: E731
-        is_scale, vt_shift, k_scale = pick(c.is_scale), pick(c.vt_shift), pick(c.k_scale)
+        taken, params, ratio, count, is_scale, vt_shift, k_scale, _, _ = self._static(g, dev)
         if c.remote is not None and b_current is not None:
             is_scale, vt_shift, k_scale = self._remote(g, b_current, distance, is_scale, vt_shift, k_scale)
         return GroupInput(
-            dev=(dev or self.dev).take(g.mirrors, g.family),
-            params={k: v[g.mirrors] for k, v in self.params.items()},
+            dev=taken,
+            params=params,
             i_in=i_in[g.mirrors],
             row=g.row,
-            ratio=self.tree.b_ratio[b][:, None],
-            count=self.tree.b_count[b][:, None],
+            ratio=ratio,
+            count=count,
             distance=distance,
             supply=c.supply[None, :],
             is_scale=is_scale,
@@ -178,12 +222,16 @@ class _Context:
 
 
 def solve(tree: Tree, columns: Columns | None = None, output_resistance: bool = True,
-          is_scale: Array | None = None) -> OperatingPoint:
+          is_scale: Array | None = None, base: OperatingPoint | None = None,
+          only: Array | None = None) -> OperatingPoint:
     """Solve the operating point of every mirror and branch, in every column
     of ``columns`` (default: the three ends of the load voltages at the plan's
     conditions).  ``is_scale`` (n_branches, 1) multiplies each output device's
     IS relative to its input device (a quick mismatch study);
     ``output_resistance=False`` skips the term split and the small-signal pass.
+    ``base`` and ``only`` (bool per mirror) re-solve only the mirrors of
+    ``only``, everything else taken from ``base`` (same tree structure and
+    columns): the caller promises that nothing outside ``only`` can move.
 
     >>> import biastree
     >>> op = biastree.solve(biastree.load("samples/bipolar_small.yaml"))
@@ -193,7 +241,7 @@ def solve(tree: Tree, columns: Columns | None = None, output_resistance: bool = 
     # Outside a device's valid region the equations can produce NaN on the way;
     # they are caught as a SolveError with the mirror named, not as numpy warnings.
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        return _solve(tree, columns, output_resistance, is_scale)
+        return _solve(tree, columns, output_resistance, is_scale, base, only)
 
 
 def _solve(
@@ -201,12 +249,14 @@ def _solve(
     columns: Columns | None = None,
     output_resistance: bool = True,
     is_scale: Array | None = None,
+    base: OperatingPoint | None = None,
+    only: Array | None = None,
 ) -> OperatingPoint:
     plan = tree.plan
     cols = default_columns(tree) if columns is None else columns
     if is_scale is not None:
         cols = replace(cols, is_scale=np.broadcast_to(is_scale, (len(tree.b_parent), cols.size)))
-    dev = device_arrays(tree, cols)
+    dev = base.devices if base is not None and base.devices is not None and is_scale is None else device_arrays(tree, cols)
     ctx = _Context(tree, dev, topology_params(tree), cols)
     supply = cols.supply[None, :]
     n_m, n_b = len(tree.mirrors), len(tree.b_parent)
@@ -226,27 +276,67 @@ def _solve(
     b_min = np.zeros((n_b, n_c))
     b_internal = np.full((n_b, n_c), np.inf)
     groups = _groups(tree)
+    if base is not None and only is not None:
+        # start from the base solution; solve only the chosen mirrors
+        m_i_in, m_v_in, m_extra = base.m_i_in.copy(), base.m_v_in.copy(), base.m_extra.copy()
+        b_current, distance, b_internal = base.b_current.copy(), base.b_distance.copy(), base.b_internal_margin.copy()
+        b_min = base.b_min_distance.copy()
+        if plan.compliance.bjt_forward_bias:  # added back below
+            b_min = b_min + np.where(tree.m_bipolar[tree.b_parent], plan.compliance.bjt_forward_bias, 0.0)[:, None]
+        groups = _restrict(tree, groups, np.asarray(only, dtype=bool))
     root = tree.generations[0]
     i_ref = cols.i_ref[None, :]
 
+    def branch_distances(g: _Group) -> tuple[Array, Array]:
+        b = g.branches
+        child_mirror = ~tree.b_to_load[b]
+        dist = distance[b]
+        dist[child_mirror] = supply - m_v_in[tree.b_child[b[child_mirror]]]
+        distance[b] = dist
+        return dist, child_mirror
+
+    def solve_generation(generation: list[_Group]) -> None:
+        for g in generation:
+            b = g.branches
+            dist, child_mirror = branch_distances(g)
+            out = TOPOLOGIES[g.topology].solve(ctx.group_input(g, m_i_in, dist, b_current=b_current))
+            m_v_in[g.mirrors] = out.v_in
+            m_extra[g.mirrors] = out.extra
+            b_current[b] = out.current
+            b_min[b] = out.min_distance
+            if out.internal_margin is not None:
+                b_internal[b] = out.internal_margin
+            m_i_in[tree.b_child[b[child_mirror]]] = out.current[child_mirror]
+
+    def child_voltages(generation: list[_Group]) -> float:
+        """Input voltages of a generation from its (new) input currents; the
+        largest change.  Only the input voltages are kept."""
+        moved = 0.0
+        for g in generation:
+            dist, _ = branch_distances(g)
+            v_in = TOPOLOGIES[g.topology].solve(ctx.group_input(g, m_i_in, dist, b_current=b_current)).v_in
+            old = m_v_in[g.mirrors]
+            v_in = np.where(np.isfinite(v_in), v_in, old)
+            moved = max(moved, float(np.max(np.abs(v_in - old), initial=0.0)))
+            m_v_in[g.mirrors] = v_in
+        return moved
+
+    # A deep tree converges slowly when swept as a whole (each sweep carries an
+    # input-voltage error one more generation down, so chains of thousands of
+    # mirrors needed dozens of sweeps): there each generation is first brought
+    # to a local fixed point with its children's input voltages.
+    local = len(groups) > DEEP_TREE
     for sweep in range(1, MAX_SWEEPS + 1):
         previous = m_v_in.copy()
-        m_i_in[root] = i_ref
-        for generation in groups:
-            for g in generation:
-                b = g.branches
-                child_mirror = ~tree.b_to_load[b]
-                dist = distance[b]
-                dist[child_mirror] = supply - m_v_in[tree.b_child[b[child_mirror]]]
-                distance[b] = dist
-                out = TOPOLOGIES[g.topology].solve(ctx.group_input(g, m_i_in, dist, b_current=b_current))
-                m_v_in[g.mirrors] = out.v_in
-                m_extra[g.mirrors] = out.extra
-                b_current[b] = out.current
-                b_min[b] = out.min_distance
-                if out.internal_margin is not None:
-                    b_internal[b] = out.internal_margin
-                m_i_in[tree.b_child[b[child_mirror]]] = out.current[child_mirror]
+        if only is None or only[root[0]]:
+            m_i_in[root] = i_ref
+        for k, generation in enumerate(groups):
+            solve_generation(generation)
+            if local and sweep == 1 and k + 1 < len(groups):
+                for _ in range(MAX_SWEEPS):
+                    if not child_voltages(groups[k + 1]) >= VOLTAGE_TOL:  # (NaN stops too)
+                        break
+                    solve_generation(generation)
         if not np.all(np.isfinite(m_v_in)) or not np.all(np.isfinite(b_current)):
             bad = [tree.mirrors[i] for i in np.flatnonzero(~np.all(np.isfinite(m_v_in), axis=1))][:3]
             raise SolveError(
@@ -283,6 +373,7 @@ def _solve(
         sweeps=sweep,
         cases=cols.names,
         columns=cols,
+        devices=dev,
     )
 
 

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
+from functools import cached_property
 from typing import Callable
 
 import numpy as np
@@ -100,6 +101,7 @@ class Analytic:
     s_k: Array  # ∂ln(gain)/∂ln(β_out/β_in)
     b_var: Array  # (n_branches,) variance of ln(current) from mismatch, down to this branch
     reference_sigma: float  # relative σ of the reference (tolerance/3: common practice)
+    op: object = None  # the sensitivity solve (biastree.analysis.solve.OperatingPoint), for re-solves
 
     def local_var(self, b: np.ndarray | int) -> Array:
         """Variance one stage adds to a branch (its output device and its mirror's input device)."""
@@ -109,25 +111,28 @@ class Analytic:
                 + self.s_vt[b] ** 2 * (s.out_vt[b] ** 2 + s.in_vt[p] ** 2)
                 + self.s_k[b] ** 2 * (s.out_k[b] ** 2 + s.in_k[p] ** 2))
 
-    @property
+    @cached_property
     def mismatch(self) -> Array:
         """(n_loads,) relative σ of each load's current from mismatch alone."""
         return np.sqrt(self.b_var[self.tree.l_branch])
 
-    @property
+    @cached_property
     def total(self) -> Array:
         """(n_loads,) mismatch and reference together."""
         return np.sqrt(self.mismatch**2 + self.reference_sigma**2)
 
+    @cached_property
+    def _local_sigma(self) -> list[float]:
+        return np.sqrt(self.local_var(np.arange(len(self.tree.b_parent)))).tolist()
+
     def stage_sigmas(self, load: int) -> list[tuple[str, float]]:
         """(mirror, σ this stage adds) along the load's path."""
         tree = self.tree
-        path = tree.path(load)
-        out = []
-        for k, m in enumerate(path):
-            b = int(tree.m_in_branch[path[k + 1]]) if k + 1 < len(path) else int(tree.l_branch[load])
-            out.append((tree.mirrors[m], float(np.sqrt(self.local_var(b)))))
-        return out
+        sig = self._local_sigma
+        branches = tree.mirror_branch_paths[int(tree.b_parent[tree.l_branch[load]])] + (int(tree.l_branch[load]),)
+        names = tree.mirrors
+        parent = tree.b_parent
+        return [(names[parent[b]], sig[b]) for b in branches]
 
     def ratio_sigma(self, a: int, b: int) -> float:
         """σ of ln(I_a/I_b): only the devices the two loads do not share count."""
@@ -158,10 +163,13 @@ class Analytic:
         return math.sqrt(var)
 
 
-def analytic(tree: Tree) -> Analytic:
-    """First-order mismatch σ of every load, from sensitivities on the exact solution."""
-    base = default_columns(tree)
-    nominal = base.take(np.array([1, 1, 1, 1]))
+def analytic(tree: Tree, base: Analytic | None = None, only: Array | None = None) -> Analytic:
+    """First-order mismatch σ of every load, from sensitivities on the exact solution.
+
+    ``base`` and ``only`` (bool per mirror): re-solve only those mirrors (see
+    biastree.analysis.solve.solve)."""
+    plain = default_columns(tree)
+    nominal = plain.take(np.array([1, 1, 1, 1]))
     n_b = len(tree.b_parent)
     ones, zeros = np.ones((n_b, 4)), np.zeros((n_b, 4))
     is_scale, vt_shift, k_scale = ones.copy(), zeros.copy(), ones.copy()
@@ -169,7 +177,7 @@ def analytic(tree: Tree) -> Analytic:
     vt_shift[:, 2] = _H
     k_scale[:, 3] = 1.0 + _H
     cols = replace(nominal, names=("nominal", "is", "vt", "k"), is_scale=is_scale, vt_shift=vt_shift, k_scale=k_scale)
-    op = solve(tree, cols, output_resistance=False)
+    op = solve(tree, cols, output_resistance=False, base=None if base is None else base.op, only=only)
     gain = op.b_current / op.m_i_in[tree.b_parent]
     s_is = (gain[:, 1] / gain[:, 0] - 1.0) / _H
     s_vt = (gain[:, 2] / gain[:, 0] - 1.0) / _H
@@ -181,7 +189,7 @@ def analytic(tree: Tree) -> Analytic:
     for gen in tree.generations[1:]:
         b = tree.m_in_branch[gen]
         m_var[gen] = m_var[tree.b_parent[b]] + local[b]
-    return replace(result, b_var=local + m_var[tree.b_parent])
+    return replace(result, b_var=local + m_var[tree.b_parent], op=op)
 
 
 # --- Monte Carlo -----------------------------------------------------------------
@@ -200,7 +208,7 @@ class MonteCarlo:
     def samples(self) -> int:
         return self.currents.shape[1]
 
-    @property
+    @cached_property  # read once per load by the writers: build it once
     def target(self) -> Array:
         return np.array([self.tree.plan.loads[n].current for n in self.tree.loads])
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import sys
 from enum import Enum
 from pathlib import Path
 from typing import Annotated, Optional
@@ -12,6 +13,12 @@ import biastree
 from biastree.cli.app import PlanArg, app, emit, guarded, load_tree
 from biastree.output.columns import COLUMNS
 from biastree.errors import BiasTreeError
+
+
+class JsonDetail(str, Enum):
+    stages = "stages"
+    loads = "loads"
+    summary = "summary"
 
 
 @app.command()
@@ -34,6 +41,9 @@ def check(
         Optional[Path], typer.Option("--annotate", help="a SPICE netlist given: its load budgets (see `extract`)")
     ] = None,
     top: Annotated[Optional[str], typer.Option("--top", help="a SPICE netlist given: the subcircuit to audit")] = None,
+    json_detail: Annotated[Optional[JsonDetail], typer.Option(
+        help="with --json: stages (every stage's terms), loads (no stage terms) or summary (no loads); "
+             "default stages, or loads when the stages would exceed a million rows")] = None,
 ) -> None:
     """Solve the plan and audit every load against its budget (exit 1 if any fails)."""
     if k_sigma is not None and k_sigma <= 0:
@@ -47,17 +57,28 @@ def check(
             raise BiasTreeError(f"--sort: {exc}") from None
     from biastree.cli.extract import is_netlist, netlist_tree
 
-    netlist = is_netlist(plan) or annotate is not None or top is not None
-    tree = netlist_tree(plan, annotate, top, forward_bias) if netlist else load_tree(plan, forward_bias)
-    result = biastree.check(tree, conditions=conditions, mismatch=mismatch, k_sigma=k_sigma)
-    if json:
-        from biastree.output.json import to_json
+    with biastree._gc_paused():  # millions of small acyclic objects: nothing for the collector to find
+        netlist = is_netlist(plan) or annotate is not None or top is not None
+        tree = netlist_tree(plan, annotate, top, forward_bias) if netlist else load_tree(plan, forward_bias)
+        result = biastree.check(tree, conditions=conditions, mismatch=mismatch, k_sigma=k_sigma)
+        if json:
+            from biastree.output.json import default_detail, iter_json
 
-        emit(to_json(result), output)
-    else:
-        from biastree.output.table import to_table
+            detail = json_detail.value if json_detail is not None else default_detail(result)
+            if json_detail is None and detail != "stages":
+                typer.echo(f"note: {detail} detail (the stage terms would be too many rows); "
+                           "--json-detail stages includes them", err=True)
+            pieces = iter_json(result, detail)
+            if output is None or str(output) == "-":
+                for piece in pieces:  # streamed: the whole text never sits in memory
+                    sys.stdout.buffer.write(piece)
+                sys.stdout.flush()
+            else:
+                emit(b"".join(pieces), output)  # type: ignore[arg-type]  (written whole or not at all)
+        else:
+            from biastree.output.table import to_table
 
-        emit(to_table(result, failing_only=failing, sort=sort, descending=descending), output)
+            emit(to_table(result, failing_only=failing, sort=sort, descending=descending), output)
     matched_ok = all(m["verdict"] == "pass" for m in result.matched())
     raise typer.Exit(0 if bool(result.passed.all()) and matched_ok else 1)
 

@@ -12,10 +12,12 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Callable, Union
+from typing import TYPE_CHECKING, Callable, Union
 
-from biastree.analysis.audit import Audit
 from biastree.units import format_si, signed_percent
+
+if TYPE_CHECKING:  # the column list is read by `--help`, which must not load numpy
+    from biastree.analysis.audit import Audit
 
 Value = Union[float, str, tuple[float, float], None]
 

@@ -132,7 +132,9 @@ class LoadResult(_Out):
     conditions: Optional[ConditionsTerm] = Field(description="worst case over temperatures, supplies, corners")
     mismatch: Optional[MismatchTerm] = Field(description="mismatch σ (when devices carry matching coefficients)")
     deciding: Deciding = Field(description="the case that decides the budget verdict, broken into its terms")
-    stages: list[Stage] = Field(description="nominal: terms of each stage along the path, at the nominal voltage")
+    stages: list[Stage] = Field(default_factory=list,
+                                description="nominal: terms of each stage along the path, at the nominal voltage "
+                                            "(left out when the result's detail is loads or summary)")
 
 
 class Summary(_Out):
@@ -160,6 +162,9 @@ class CheckResult(_Out):
     title: str
     supply: float
     temperature: float = Field(description="K")
+    detail: Literal["stages", "loads", "summary"] = Field(
+        "stages", description="what the result holds: stages (everything), loads (no stage terms), summary (no loads); "
+                              "absent means stages")
     summary: Summary
     loads: list[LoadResult]
     matched: list[MatchedResult]

@@ -325,23 +325,47 @@ def _cascode(g: GroupInput) -> GroupOutput:
 def _mos_cascode_node(k2: Array, k4: Array, vg2: Array, vg4: Array, d: Array, vth: Array, lam: Array) -> Array:
     """Middle node V_x of an output stack: bottom device (gate vg2, drain V_x) and
     cascode device (gate vg4, source V_x, drain d) carry the same current.
-    Solved by bisection-safeguarded Newton; f(V_x) is increasing in V_x."""
-    def f(vx: Array) -> Array:
-        bottom = 0.5 * k2 * (vg2 - vth) ** 2 * (1.0 + lam * vx)
-        vov4 = np.maximum(vg4 - vx - vth, 0.0)
-        top = 0.5 * k4 * vov4**2 * (1.0 + lam * (d - vx))
-        return bottom - top
 
-    lo = np.zeros(np.broadcast(d, vg4).shape)
-    hi = np.broadcast_to(vg4 - vth, lo.shape).copy()
-    for _ in range(200):  # bisection to machine precision (robust and vectorised)
-        mid = 0.5 * (lo + hi)
-        positive = f(mid) > 0
-        hi = np.where(positive, mid, hi)
-        lo = np.where(positive, lo, mid)
-        if np.all(hi - lo <= 1e-16 * np.maximum(np.abs(hi), 1.0)):
+    f(V_x) = I_bottom − I_cascode is increasing and concave on [0, vg4 − V_T],
+    so Newton's method from a point left of the root climbs to it without
+    overshooting; the iterate is kept inside a shrinking bracket (Newton from
+    its left end, else a bisection) down to machine precision — a handful of
+    steps where a plain bisection took about 55."""
+    shape = np.broadcast(k2, k4, vg2, vg4, d, vth, lam).shape
+    a = 0.5 * k2 * (vg2 - vth) ** 2  # bottom current at λ = 0
+
+    def f_and_slope(x: Array) -> tuple[Array, Array]:
+        vov4 = np.maximum(vg4 - x - vth, 0.0)
+        f = a * (1.0 + lam * x) - 0.5 * k4 * vov4**2 * (1.0 + lam * (d - x))
+        return f, a * lam + 0.5 * k4 * (2.0 * vov4 * (1.0 + lam * (d - x)) + lam * vov4**2)
+
+    lo = np.zeros(shape)
+    hi = np.broadcast_to(vg4 - vth, shape).copy()
+    f_lo, s_lo = f_and_slope(lo)
+    end = f_lo >= 0  # the bottom device carries more even at V_x = 0: the answer is 0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        x = np.clip(vg4 - vth - np.sqrt(a / (0.5 * k4)), lo, hi)  # the λ = 0 root
+    x = np.where(np.isfinite(x) & ~end, x, np.where(end, lo, 0.5 * (lo + hi)))
+    for _ in range(100):
+        f, slope = f_and_slope(x)
+        positive = f > 0
+        hi = np.where(positive, x, hi)
+        lo = np.where(positive, lo, x)
+        f_lo = np.where(positive, f_lo, f)
+        s_lo = np.where(positive, s_lo, slope)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            step, step_lo = f / slope, f_lo / s_lo
+        at_x = np.abs(step) <= 4e-16 * np.maximum(np.abs(x), 1.0)  # x is the root to the last bits
+        at_lo = np.abs(step_lo) <= 4e-16 * np.maximum(np.abs(lo), 1.0)  # so is the bracket's left end
+        new, from_lo = x - step, lo - step_lo
+        new = np.where((new > lo) & (new < hi), new,
+                       np.where((from_lo > lo) & (from_lo < hi), from_lo, 0.5 * (lo + hi)))
+        new = np.where(end | at_x, x, np.where(at_lo, lo, new))
+        done = end | at_x | at_lo | (hi - lo <= 1e-16 * np.maximum(np.abs(hi), 1.0))
+        x = new
+        if np.all(done):
             break
-    return 0.5 * (lo + hi)
+    return x
 
 
 # --- wide-swing cascode (MOS) -----------------------------------------------------

@@ -62,10 +62,23 @@ class Tree:
     def mirror_paths(self) -> list[tuple[int, ...]]:
         """For each mirror, the mirror indices from the root down to it."""
         paths: list[tuple[int, ...]] = [()] * len(self.mirrors)
+        parent = self.b_parent.tolist()
+        in_branch = self.m_in_branch.tolist()
         for gen in self.generations:
             for m in gen.tolist():
-                b = int(self.m_in_branch[m])
-                paths[m] = (paths[int(self.b_parent[b])] if b >= 0 else ()) + (m,)
+                b = in_branch[m]
+                paths[m] = (paths[parent[b]] if b >= 0 else ()) + (m,)
+        return paths
+
+    @cached_property
+    def mirror_branch_paths(self) -> list[tuple[int, ...]]:
+        """For each mirror, the branches taken from the root down to it (its
+        path's stages: branch k leaves mirror k of ``mirror_paths``)."""
+        paths: list[tuple[int, ...]] = [()] * len(self.mirrors)
+        parent = self.b_parent.tolist()
+        for gen in self.generations[1:]:
+            for m, b in zip(gen.tolist(), self.m_in_branch[gen].tolist()):
+                paths[m] = paths[parent[b]] + (b,)
         return paths
 
     @cached_property
