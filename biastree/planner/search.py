@@ -1,0 +1,420 @@
+"""The search that both the planner and the repair run: change the plan, check it, repeat.
+
+Every step evaluates the whole plan with ``biastree.analysis.pipeline.check_tree``
+(the solver and audit of ``biastree check``), reads which loads fail and why,
+and applies one combined set of changes:
+
+* **rebalance** — the ratio of each branch into a block is set so that the
+  middle of its error range (over the voltage ends) is zero, realised with
+  whole unit devices (a larger input device when the rounding would eat the
+  budget).  This cancels β loading and the systematic Early / λ error;
+* **topology** — what is left is attacked where it comes from: the spread of
+  the error over the voltage range by the block's own mirror (Early →
+  cascode / wilson4, λ → cascode / wide_swing), the spread over the plan's
+  conditions by the stage with the largest β loading (beta_helper /
+  wilson4), compliance and headroom by a topology that needs less voltage;
+* **split** — a block whose mirror cannot be given a better output moves to
+  a mirror of its own (a single-output improved Wilson) fed by the same parent;
+* **size** — k·σ of mismatch is cut by larger devices on the stage with the
+  largest σ (Pelgrom's area law: σ ∝ 1/√area, so σ/2 costs 4× the area);
+* **local** — a remote block whose base/gate line costs budget gets its
+  current routed from beside the mirror instead.
+
+A topology once tried on a mirror is not tried again, so the search ends.
+What still fails at the end is reported as infeasible, with the block, the
+constraint and the amount.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from biastree.analysis.audit import Audit
+from biastree.analysis.pipeline import check_tree
+from biastree.input.model import Plan
+from biastree.physics.topologies import TOPOLOGIES
+from biastree.planner.ratios import realise
+from biastree.tree.arrays import Tree, build
+from biastree.units import format_si
+
+# Topologies in order of cost (device units, then extra current).
+COST_ORDER = ("simple", "beta_helper", "wilson", "wilson4", "cascode", "wide_swing")
+
+
+@dataclass
+class Rules:
+    """What the search may change."""
+
+    max_units: int = 64
+    max_ratio: float = 16.0
+    topologies: set[str] | None = None  # allowed topologies (None: all)
+    block_topologies: dict[str, set[str]] = field(default_factory=dict)  # per load
+    rebalance: bool = True
+    whole: bool = True  # realise rebalanced ratios with whole unit devices
+    split: bool = True
+    rounds: int = 12
+
+
+@dataclass
+class Change:
+    """One change the search made, in a designer's words."""
+
+    kind: str  # rebalance, topology, split, size, local
+    target: str  # mirror or load name
+    before: str
+    after: str
+    why: str
+    power: float = 0.0  # W added (filled by the repair)
+    area: float = 0.0  # unit devices added
+
+
+@dataclass(frozen=True)
+class Infeasible:
+    """A request that cannot be met: which block, which constraint, by how much."""
+
+    block: str
+    constraint: str
+    amount: float
+    unit: str
+    detail: str
+
+    def text(self) -> str:
+        amount = f"{self.amount * 100:.3g} %" if self.unit == "%" else format_si(self.amount, self.unit)
+        return f"{self.block}: {self.constraint}: short by {amount} — {self.detail}"
+
+
+def evaluate(data: dict[str, Any]) -> tuple[Tree, Audit]:
+    """Build and check plain plan data exactly as ``biastree check`` would."""
+    tree = build(Plan.model_validate(data))
+    return tree, check_tree(tree, detail=False)
+
+
+def _family(data: dict[str, Any], mirror: str) -> str:
+    kind = data["devices"][data["mirrors"][mirror]["device"]]["kind"]
+    return "bjt" if kind in ("npn", "pnp") else "mos"
+
+
+class Search:
+    """Mutable state of one search over plain plan data."""
+
+    def __init__(self, data: dict[str, Any], rules: Rules, touch: set[str] | None = None) -> None:
+        self.data = copy.deepcopy(data)
+        self.rules = rules
+        self.changes: list[Change] = []
+        self.tried: dict[str, set[str]] = {m: {spec.get("topology", "simple")} for m, spec in self.data["mirrors"].items()}
+        self.touch = touch  # mirrors the search may rebalance freely (None: all)
+        self.result: Audit | None = None
+        self.tree: Tree | None = None
+
+    # --- the loop -----------------------------------------------------------
+
+    def run(self) -> Audit:
+        for _ in range(self.rules.rounds):
+            self._settle()
+            assert self.result is not None and self.tree is not None
+            if bool(self.result.passed.all()):
+                break
+            if not self._round():
+                break
+        self.tree, self.result = evaluate(self.data)
+        return self.result
+
+    def _settle(self, passes: int = 4) -> None:
+        """Evaluate, and rebalance ratios until they stop moving."""
+        for _ in range(passes):
+            self.tree, self.result = evaluate(self.data)
+            if bool(self.result.passed.all()) or not self._rebalance(failing_only=False):
+                return
+        self.tree, self.result = evaluate(self.data)
+
+    def _failing_mirrors(self) -> dict[str, list[int]]:
+        r, tree = self.result, self.tree
+        assert r is not None and tree is not None
+        out: dict[str, list[int]] = {}
+        for i in np.flatnonzero(~r.passed).tolist():
+            out.setdefault(tree.mirrors[int(tree.b_parent[tree.l_branch[i]])], []).append(i)
+        return out
+
+    def _round(self) -> bool:
+        """One combined step: local routing, topology trials, then splits and sizes."""
+        r, tree = self.result, self.tree
+        assert r is not None and tree is not None
+        acted = False
+        fp = self.data.get("floorplan") or {}
+        remote = set(fp.get("remote", []))
+        failing = self._failing_mirrors()
+        for m, loads in failing.items():
+            for i in loads:
+                name = tree.loads[i]
+                if name in remote:
+                    self._apply({name: ("local", None, f"{name} fails and sits on a long base/gate line")})
+                    acted = True
+        if acted:
+            return True
+        choice, best_margin = self._trials(sorted(failing))
+        for m, t in choice.items():
+            if t != self.data["mirrors"][m].get("topology", "simple"):
+                self._set_topology(m, t, f"cheapest topology under which every block of {m} passes")
+                acted = True
+        actions: dict[str, tuple[str, Any, str]] = {}
+        for m in sorted(failing):
+            if m in choice:
+                continue
+            for i in failing[m]:
+                mm = r.k_sigma * float(r.sigma[i])
+                if mm > 0 and mm > 0.5 * (mm + float(r.margin[i]) if r.margin[i] < 0 else mm):
+                    self._size(i, actions)
+                else:
+                    self._split_for(m, tree.loads[i], actions)
+        return self._apply(actions) or acted
+
+    def _trials(self, mirrors: list[str]) -> tuple[dict[str, str], dict[str, float]]:
+        """Try every topology on every failing mirror at once (one check per topology);
+        per mirror, the cheapest topology under which all of its blocks pass."""
+        tree = self.tree
+        assert tree is not None
+        index = {n: i for i, n in enumerate(tree.loads)}
+        choice: dict[str, str] = {}
+        best: dict[str, float] = {}
+        loads_of = {m: [index[n] for n in self._loads_below(m)] for m in mirrors}
+        for t in COST_ORDER:
+            trial = dict(self.data)
+            trial["mirrors"] = dict(self.data["mirrors"])
+            changed = []
+            for m in mirrors:
+                if m in choice or not self._allowed(m, t, self._loads_below(m), fresh=True):
+                    continue
+                spec = copy.deepcopy(self.data["mirrors"][m])
+                spec["topology"] = t
+                trial["mirrors"][m] = spec
+                changed.append(m)
+            if not changed:
+                continue
+            try:
+                t_tree, t_res = evaluate(trial)
+                sub = Search.__new__(Search)
+                sub.data, sub.rules, sub.changes, sub.tree, sub.result = trial, self.rules, [], t_tree, t_res
+                sub.touch = set(changed)
+                if sub._rebalance(failing_only=False):
+                    t_tree, t_res = evaluate(trial)
+            except Exception:  # a topology that leaves no operating point is simply not chosen
+                continue
+            for m in changed:
+                idx = loads_of[m]
+                if idx and bool(t_res.passed[idx].all()):
+                    choice[m] = t
+                    self.data["mirrors"][m] = trial["mirrors"][m]  # keep its rebalanced ratios too
+                elif idx:
+                    best[m] = max(best.get(m, -np.inf), float(t_res.margin[idx].min()))
+        return choice, best
+
+    def _split_for(self, mirror: str, load: str, actions: dict[str, tuple[str, Any, str]]) -> None:
+        spec = self.data["mirrors"][mirror]
+        tree = self.tree
+        assert tree is not None
+        if (self.rules.split and len(spec["branches"]) > 1 and load not in actions
+                and tree.m_in_branch[tree.mirrors.index(mirror)] >= 0):
+            actions[load] = ("split", mirror, f"no topology passes every block of {mirror}: {load} gets a mirror of its own")
+
+    # --- helpers on the current result --------------------------------------
+
+    def _allowed(self, mirror: str, topology: str, loads: list[str], fresh: bool = False) -> bool:
+        topo = TOPOLOGIES[topology]
+        family = _family(self.data, mirror)
+        if family not in topo.kinds:
+            return False
+        if self.rules.topologies is not None and topology not in self.rules.topologies:
+            return False
+        for name in loads:
+            allowed = self.rules.block_topologies.get(name)
+            if allowed is not None and topology not in allowed:
+                return False
+        branches = self.data["mirrors"][mirror]["branches"]
+        if topo.single_output and (len(branches) != 1 or branches[0].get("count", 1) != 1):
+            return False
+        return fresh or topology not in self.tried.setdefault(mirror, set())
+
+    def _loads_below(self, mirror: str) -> list[str]:
+        loads = self.data["loads"]
+        return [b["to"] for b in self.data["mirrors"][mirror]["branches"] if b["to"] in loads]
+
+    def _set_topology(self, mirror: str, topology: str, why: str) -> None:
+        spec = self.data["mirrors"][mirror]
+        before = spec.get("topology", "simple")
+        spec["topology"] = topology
+        self.tried.setdefault(mirror, set()).add(topology)
+        self.changes.append(Change("topology", mirror, before, topology, why))
+
+    def _slack(self, load: int) -> float:
+        r = self.result
+        assert r is not None
+        return float(r.tolerance[load] - r.reference_tolerance - r.k_sigma * r.sigma[load])
+
+    # --- rebalance ----------------------------------------------------------
+
+    def _rebalance(self, failing_only: bool) -> bool:
+        """Cancel each block's systematic error with its branch ratio (whole units)."""
+        if not self.rules.rebalance:
+            return False
+        r, tree = self.result, self.tree
+        assert r is not None and tree is not None
+        err = r.error
+        mid = 0.5 * (err.max(axis=1) + err.min(axis=1))
+        acted = False
+        by_mirror: dict[int, list[int]] = {}
+        for i in range(len(tree.loads)):
+            if failing_only and r.passed[i]:
+                continue
+            slack = max(self._slack(i), 1e-4)
+            if abs(mid[i]) > 0.05 * slack and abs(mid[i]) < 0.9:
+                by_mirror.setdefault(int(tree.b_parent[tree.l_branch[i]]), []).append(i)
+        for m, loads in by_mirror.items():
+            name = tree.mirrors[m]
+            if self.touch is not None and name not in self.touch:
+                continue
+            spec = self.data["mirrors"][name]
+            branches = spec["branches"]
+            idx = {tree.b_index[tree.l_branch[i]]: i for i in loads}
+            ratios, allowed = [], []
+            for k, b in enumerate(branches):
+                if k in idx:
+                    i = idx[k]
+                    ratios.append(b.get("ratio", 1.0) / (1.0 + mid[i]))
+                    allowed.append(max(0.3 * max(self._slack(i), 0.0), 5e-4))
+                else:
+                    ratios.append(b.get("ratio", 1.0))
+                    allowed.append(1e-9 if b["to"] in self.data["loads"] else 0.01)
+            size = spec.get("input_size", 1.0)
+            if self.rules.whole:
+                got = realise(ratios, allowed, self.rules.max_units, start=int(size) if float(size).is_integer() else 1)
+                if got is None:
+                    continue
+                n_in, units = got
+                new = [u / n_in for u in units]
+            else:
+                n_in, new = size, ratios
+            before = [b.get("ratio", 1.0) for b in branches]
+            if all(abs(a - b) < 1e-15 for a, b in zip(before, new)) and n_in == size:
+                continue
+            old_text = self._ratio_text(branches, size)
+            spec["input_size"] = float(n_in)
+            for b, value in zip(branches, new):
+                b["ratio"] = value
+            self.changes.append(Change("rebalance", name, old_text, self._ratio_text(branches, n_in),
+                                       "ratios set to cancel the systematic error of " + ", ".join(tree.loads[i] for i in loads[:4])
+                                       + (" …" if len(loads) > 4 else "")))
+            acted = True
+        return acted
+
+    @staticmethod
+    def _ratio_text(branches: list[dict[str, Any]], size: float) -> str:
+        shown = ", ".join(f"{b['to']} {b.get('ratio', 1.0) * size:.4g}" for b in branches[:4])
+        return f"input {size:g} u; {shown}{' …' if len(branches) > 4 else ''}"
+
+    # --- topology, split, size, local ----------------------------------------
+
+    def _size(self, load: int, actions: dict[str, tuple[str, Any, str]]) -> bool:
+        """Larger devices on the stage with the largest mismatch σ (area law)."""
+        r, tree = self.result, self.tree
+        assert r is not None and tree is not None
+        if r.spread is None:
+            return False
+        stages = sorted(r.spread.stage_sigmas(load), key=lambda s: -s[1])
+        mm = r.k_sigma * float(r.sigma[load])
+        want = mm + float(r.margin[load])  # k·σ that would just pass
+        factor = (mm / want) ** 2 if want > 0 else 16.0
+        for name, _ in stages:
+            spec = self.data["mirrors"][name]
+            size = spec.get("input_size", 1.0)
+            biggest = size * max([1.0] + [b.get("ratio", 1.0) for b in spec["branches"]])
+            room = self.rules.max_units / biggest
+            if room < 2 - 1e-9:
+                continue
+            scale = max(2, min(int(room), math.ceil(factor * 1.1)))
+            actions.setdefault(name, ("size", scale, f"{format_si(mm, '')}·k-σ mismatch of {tree.loads[load]}"))
+            return True
+        return False
+
+    def _apply(self, actions: dict[str, tuple[str, Any, str]]) -> bool:
+        acted = False
+        for target, (kind, value, why) in actions.items():
+            if kind == "topology":
+                self._set_topology(target, value, why)
+            elif kind == "size":
+                spec = self.data["mirrors"][target]
+                before = spec.get("input_size", 1.0)
+                spec["input_size"] = before * value
+                self.changes.append(Change("size", target, f"input {before:g} u", f"input {before * value:g} u", why))
+            elif kind == "local":
+                fp = self.data["floorplan"]
+                fp["remote"] = [n for n in fp["remote"] if n != target]
+                self.changes.append(Change("local", target, "output device at the block (base/gate line routed)",
+                                           "current routed from an output beside the mirror", why))
+            elif kind == "split":
+                if not self._split(value, target, why):
+                    continue
+            acted = True
+        return acted
+
+    def _split(self, mirror: str, load: str, why: str) -> bool:
+        tree, r = self.tree, self.result
+        assert tree is not None and r is not None
+        mi = tree.mirrors.index(mirror)
+        pb = int(tree.m_in_branch[mi])
+        parent = tree.mirrors[int(tree.b_parent[pb])]
+        spec = self.data["mirrors"][mirror]
+        if len(spec["branches"]) < 2:
+            return False
+        k = next(j for j, b in enumerate(spec["branches"]) if b["to"] == load)
+        branch = spec["branches"].pop(k)
+        current = self.data["loads"][load]["current"]
+        pspec = self.data["mirrors"][parent]
+        p_in = float(r.op.m_i_in[tree.mirrors.index(parent), 1])
+        size = pspec.get("input_size", 1.0)
+        units = max(1, round(current / p_in * size))
+        new = f"{mirror}_{load}"
+        while new in self.data["mirrors"] or new in self.data["loads"]:
+            new += "_"
+        pspec["branches"].append({"to": new, "ratio": units / size, "count": branch.get("count", 1)})
+        self.data["mirrors"][new] = {"device": spec["device"], "input_size": 1.0, "topology": "simple",
+                                     "branches": [{"to": load, "ratio": 1.0}]}
+        fp = self.data.get("floorplan")
+        if fp and fp.get("positions") and load in fp["positions"]:
+            fp["positions"][new] = fp["positions"][load]
+        self.changes.append(Change("split", load, f"on {mirror}", f"on its own mirror {new} fed by {parent}", why))
+        return True
+
+
+def infeasible(tree: Tree, result: Audit) -> list[Infeasible]:
+    """Every failing load, with the constraint it misses and by how much."""
+    out = []
+    op = result.op
+    for i in np.flatnonzero(~result.passed).tolist():
+        name = tree.loads[i]
+        b = int(tree.l_branch[i])
+        mirror = tree.mirrors[int(tree.b_parent[b])]
+        if result.compliance[i] < 0:
+            case = int(result.compliance_case[i])
+            need = float(op.b_min_distance[b, case])
+            have = float(op.b_distance[b, case])
+            topo = tree.plan.mirrors[mirror].topology
+            out.append(Infeasible(name, "compliance", need - have, "V",
+                                  f"its voltage range leaves {format_si(have, 'V')} from the rail; the least-demanding allowed "
+                                  f"topology ({topo}) needs {format_si(need, 'V')}"))
+        elif result.conditions is not None and result.conditions.compliance[i] < 0:
+            out.append(Infeasible(name, "compliance", -float(result.conditions.compliance[i]), "V",
+                                  "the output leaves its active region under the plan's conditions"))
+        elif result.upstream[i] >= 0:
+            out.append(Infeasible(name, "headroom", -float(op.b_compliance[int(result.upstream[i])].min()), "V",
+                                  "a mirror above it has too little voltage for its input"))
+        else:
+            mm = result.k_sigma * float(result.sigma[i])
+            what = "mismatch budget (needs more area than the unit limit allows)" if mm > -result.margin[i] else "budget"
+            out.append(Infeasible(name, what, -float(result.margin[i]), "%",
+                                  "; ".join(result.reasons(i)) or "error exceeds the budget"))
+    return out
