@@ -39,7 +39,12 @@ def oracle(blocks: BlockList) -> float | None:
     from biastree.input.blocks import devices_for
     for d in dev:
         dev[d] = devices_for(blocks, d)[0] if by_dir.get(d) else None
-    parts = {d: list(partitions(v)) for d, v in by_dir.items()}
+    def fits(group: list[str]) -> bool:  # the planner's own hard limit: blocks within group_radius
+        import math
+        pts = [blocks.blocks[n].position for n in group]
+        return all(math.dist(a, b) <= blocks.limits.group_radius for a in pts for b in pts)
+
+    parts = {d: [p for p in partitions(v) if all(fits(g) for g in p)] for d, v in by_dir.items()}
     for combo in itertools.product(*parts.values()):
         leaves = []
         for d, p in zip(parts, combo):

@@ -36,7 +36,8 @@ import numpy as np
 
 from biastree.analysis.audit import Audit
 from biastree.analysis.pipeline import check_tree
-from biastree.input.model import Plan
+from biastree.errors import SolveError
+from biastree.input.model import Mirror, Plan
 from biastree.physics.topologies import TOPOLOGIES
 from biastree.planner.ratios import realise
 from biastree.tree.arrays import Tree, build
@@ -58,6 +59,8 @@ class Rules:
     whole: bool = True  # realise rebalanced ratios with whole unit devices
     split: bool = True
     rounds: int = 12
+    economise: bool = True  # after every block passes, cheaper topologies where they still pass
+    objective: str = "power"  # how trials rank passing topologies: power (extra current) or area
 
 
 @dataclass
@@ -94,6 +97,38 @@ def evaluate(data: dict[str, Any]) -> tuple[Tree, Audit]:
     return tree, check_tree(tree, detail=False)
 
 
+class Evaluator:
+    """``evaluate`` that re-validates only the mirrors that changed since the last call
+    (the loads, devices and conditions of a large plan are validated once)."""
+
+    def __init__(self) -> None:
+        self._base: Plan | None = None
+        self._key: str | None = None
+        self._mirrors: dict[str, tuple[str, Mirror]] = {}
+        self.calls = 0
+
+    def __call__(self, data: dict[str, Any]) -> tuple[Tree, Audit]:
+        self.calls += 1
+        key = repr((data.get("floorplan"), data.get("compliance"), data["reference"]))
+        if self._base is None or key != self._key:
+            self._base = Plan.model_validate(data)
+            self._key = key
+            self._mirrors = {n: (repr(spec), self._base.mirrors[n]) for n, spec in data["mirrors"].items()}
+            plan = self._base
+        else:
+            mirrors = {}
+            for n, spec in data["mirrors"].items():
+                text = repr(spec)
+                hit = self._mirrors.get(n)
+                if hit is None or hit[0] != text:
+                    hit = (text, Mirror.model_validate(spec))
+                    self._mirrors[n] = hit
+                mirrors[n] = hit[1]
+            plan = self._base.model_copy(update={"mirrors": mirrors})
+        tree = build(plan)
+        return tree, check_tree(tree, detail=False)
+
+
 def _family(data: dict[str, Any], mirror: str) -> str:
     kind = data["devices"][data["mirrors"][mirror]["device"]]["kind"]
     return "bjt" if kind in ("npn", "pnp") else "mos"
@@ -110,27 +145,71 @@ class Search:
         self.touch = touch  # mirrors the search may rebalance freely (None: all)
         self.result: Audit | None = None
         self.tree: Tree | None = None
+        self.evaluate = Evaluator()
+        self.escalated: set[str] = set()
+        self.stuck: dict[str, int] = {}
+        self.fallback: dict[str, dict[str, Any]] = {}
 
     # --- the loop -----------------------------------------------------------
 
     def run(self) -> Audit:
+        best: tuple[int, dict[str, Any], list[Change]] | None = None
         for _ in range(self.rules.rounds):
-            self._settle()
-            assert self.result is not None and self.tree is not None
-            if bool(self.result.passed.all()):
+            self.tree, self.result = self.evaluate(self.data)
+            failed = int((~self.result.passed).sum())
+            if best is None or failed < best[0]:
+                best = (failed, copy.deepcopy(self.data), list(self.changes))
+            if failed == 0 or not self._round():
                 break
-            if not self._round():
-                break
-        self.tree, self.result = evaluate(self.data)
+        else:
+            self.tree, self.result = self.evaluate(self.data)
+            failed = int((~self.result.passed).sum())
+        if best is not None and best[0] < failed:  # a later round made things worse: go back
+            self.data, self.changes = best[1], best[2]
+            self.tree, self.result = self.evaluate(self.data)
+        if self.rules.economise and bool(self.result.passed.all()):
+            self._economise()
+        self._merge_changes()
         return self.result
 
-    def _settle(self, passes: int = 4) -> None:
-        """Evaluate, and rebalance ratios until they stop moving."""
-        for _ in range(passes):
-            self.tree, self.result = evaluate(self.data)
-            if bool(self.result.passed.all()) or not self._rebalance(failing_only=False):
-                return
-        self.tree, self.result = evaluate(self.data)
+    def _economise(self) -> None:
+        """Once every block passes: the mirrors that feed only blocks get the cheapest
+        topology under which their blocks still pass (one check per topology)."""
+        tree, r = self.tree, self.result
+        assert tree is not None and r is not None
+        leaves = [m for m, spec in self.data["mirrors"].items()
+                  if all(b["to"] in self.data["loads"] for b in spec["branches"])
+                  and spec.get("topology", "simple") != "simple"]
+        if not leaves:
+            return
+        saved = (copy.deepcopy(self.data), list(self.changes))
+        index = {n: i for i, n in enumerate(tree.loads)}
+        judged = {m: [index[n] for n in self._loads_below(m)] for m in leaves}
+        self.tried = {}
+        choice = self._trials(leaves, judged, {m: {m} for m in leaves})
+        for m, (t, spec) in choice.items():
+            old = self.data["mirrors"][m]
+            if t == old.get("topology", "simple"):
+                continue
+            self._set_topology(m, t, "cheaper, and every block of the mirror still passes")
+            self.data["mirrors"][m] = spec
+        self.tree, self.result = self.evaluate(self.data)
+        if not bool(self.result.passed.all()):  # the changes interfered: keep the plan that passed
+            self.data, self.changes = saved
+            self.tree, self.result = self.evaluate(self.data)
+
+    def _merge_changes(self) -> None:
+        """Successive changes of one kind to one mirror are one change (first before → last after)."""
+        out: list[Change] = []
+        for c in self.changes:
+            prev = next((o for o in reversed(out) if o.target == c.target and o.kind == c.kind), None)
+            if prev is not None and c.kind in ("rebalance", "topology", "size"):
+                prev.after = c.after
+                if prev.before == prev.after:
+                    out.remove(prev)
+                continue
+            out.append(c)
+        self.changes = out
 
     def _failing_mirrors(self) -> dict[str, list[int]]:
         r, tree = self.result, self.tree
@@ -141,7 +220,7 @@ class Search:
         return out
 
     def _round(self) -> bool:
-        """One combined step: local routing, topology trials, then splits and sizes."""
+        """One combined step: local routing, topology trials, then escalation, splits and sizes."""
         r, tree = self.result, self.tree
         assert r is not None and tree is not None
         acted = False
@@ -156,39 +235,103 @@ class Search:
                     acted = True
         if acted:
             return True
-        choice, best_margin = self._trials(sorted(failing))
-        for m, t in choice.items():
-            if t != self.data["mirrors"][m].get("topology", "simple"):
-                self._set_topology(m, t, f"cheapest topology under which every block of {m} passes")
-                acted = True
+        # mirrors tried: the failing ones, and the parents of those that no topology could fix last round
+        targets = sorted(set(failing) | {p for p in self.escalated if p in self.data["mirrors"]})
+        below_loads, below_mirrors = self._below()
+        judged = {m: failing[m] if m in failing and m not in self.escalated else below_loads.get(m, []) for m in targets}
+        touch = {m: below_mirrors.get(m, {m}) if m in self.escalated else {m} for m in targets}
+        choice = self._trials(targets, judged, touch)
+        for m, (t, spec) in choice.items():
+            old = self.data["mirrors"][m]
+            if t != old.get("topology", "simple"):
+                self._set_topology(m, t, f"least-cost topology under which every block of {m} passes")
+            if [b.get("ratio") for b in spec["branches"]] != [b.get("ratio") for b in old["branches"]] or \
+                    spec.get("input_size") != old.get("input_size"):
+                self.changes.append(Change("rebalance", m, self._ratio_text(old["branches"], old.get("input_size", 1.0)),
+                                           self._ratio_text(spec["branches"], spec.get("input_size", 1.0)),
+                                           "ratios set to cancel the systematic error of its blocks"))
+            self.data["mirrors"][m] = spec
+            acted = True
         actions: dict[str, tuple[str, Any, str]] = {}
+        new_escalated: set[str] = set()
         for m in sorted(failing):
             if m in choice:
                 continue
+            spec = self.fallback.pop(m, None)
+            if spec is not None and spec != self.data["mirrors"][m]:
+                old = self.data["mirrors"][m]
+                self.changes.append(Change("rebalance", m, self._ratio_text(old["branches"], old.get("input_size", 1.0)),
+                                           self._ratio_text(spec["branches"], spec.get("input_size", 1.0)),
+                                           "ratios set to cancel the systematic error of its blocks"))
+                self.data["mirrors"][m] = spec
+                acted = True
+                continue
+            self.stuck[m] = self.stuck.get(m, 0) + 1
+            parent = self._parent(m)
+            if self.stuck[m] == 1 and parent is not None and parent not in self.escalated:
+                new_escalated.add(parent)
+                acted = True
+                continue
             for i in failing[m]:
                 mm = r.k_sigma * float(r.sigma[i])
-                if mm > 0 and mm > 0.5 * (mm + float(r.margin[i]) if r.margin[i] < 0 else mm):
+                if mm > 0 and float(r.margin[i]) + mm > 0:
                     self._size(i, actions)
                 else:
                     self._split_for(m, tree.loads[i], actions)
+        self.escalated |= new_escalated
         return self._apply(actions) or acted
 
-    def _trials(self, mirrors: list[str]) -> tuple[dict[str, str], dict[str, float]]:
-        """Try every topology on every failing mirror at once (one check per topology);
-        per mirror, the cheapest topology under which all of its blocks pass."""
+    def _parent(self, mirror: str) -> str | None:
         tree = self.tree
         assert tree is not None
-        index = {n: i for i, n in enumerate(tree.loads)}
-        choice: dict[str, str] = {}
-        best: dict[str, float] = {}
-        loads_of = {m: [index[n] for n in self._loads_below(m)] for m in mirrors}
+        if mirror not in tree.mirrors:
+            return None
+        b = int(tree.m_in_branch[tree.mirrors.index(mirror)])
+        return tree.mirrors[int(tree.b_parent[b])] if b >= 0 else None
+
+    def _below(self) -> tuple[dict[str, list[int]], dict[str, set[str]]]:
+        """Per mirror, the loads below it and the mirrors below it (itself included)."""
+        tree = self.tree
+        assert tree is not None
+        loads: dict[str, list[int]] = {}
+        mirrors: dict[str, set[str]] = {}
+        for i in range(len(tree.loads)):
+            for m in tree.mirror_paths[int(tree.b_parent[tree.l_branch[i]])]:
+                loads.setdefault(tree.mirrors[m], []).append(i)
+        for path in tree.mirror_paths:
+            for m in path:
+                mirrors.setdefault(tree.mirrors[m], set()).add(tree.mirrors[path[-1]])
+        return loads, mirrors
+
+    def _cost(self, result: Audit, mirror: str, topology: str, spec: dict[str, Any]) -> tuple[float, float]:
+        tree = result.tree
+        m = tree.mirrors.index(mirror)
+        fan = sum(b.get("ratio", 1.0) * b.get("count", 1) for b in spec["branches"])
+        units = TOPOLOGIES[topology].units(spec.get("input_size", 1.0), fan,
+                                           {"helper_size": spec.get("helper_size", 1.0), "swing_n": spec.get("swing_n", 1.25)})
+        units *= float(tree.m_mult[m])
+        extra = float(result.op.m_extra[m, 1] * tree.m_mult[m]) * tree.plan.supply
+        return (extra, units) if self.rules.objective == "power" else (units, extra)
+
+    def _trials(self, mirrors: list[str], judged: dict[str, list[int]],
+                touch: dict[str, set[str]]) -> dict[str, tuple[str, dict[str, Any]]]:
+        self.fallback = {}
+        """Try every topology on every target mirror at once (one check, one rebalance and one
+        more check per topology); per mirror, the least-cost topology under which its loads pass."""
+        options: dict[str, list[tuple[tuple[float, float], str, dict[str, Any]]]] = {}
         for t in COST_ORDER:
             trial = dict(self.data)
             trial["mirrors"] = dict(self.data["mirrors"])
             changed = []
+            touched: set[str] = set()
             for m in mirrors:
-                if m in choice or not self._allowed(m, t, self._loads_below(m), fresh=True):
+                if m in options and t != "beta_helper":
+                    continue  # passes already with a cheaper topology (beta_helper still compared: rebalancing costs area)
+                if not self._allowed(m, t, self._loads_below(m), fresh=True):
                     continue
+                if touch[m] & touched:
+                    continue  # nested targets are tried in separate rounds
+                touched |= touch[m]
                 spec = copy.deepcopy(self.data["mirrors"][m])
                 spec["topology"] = t
                 trial["mirrors"][m] = spec
@@ -196,22 +339,61 @@ class Search:
             if not changed:
                 continue
             try:
-                t_tree, t_res = evaluate(trial)
+                t_tree, t_res = self.evaluate(trial)
                 sub = Search.__new__(Search)
                 sub.data, sub.rules, sub.changes, sub.tree, sub.result = trial, self.rules, [], t_tree, t_res
-                sub.touch = set(changed)
-                if sub._rebalance(failing_only=False):
-                    t_tree, t_res = evaluate(trial)
-            except Exception:  # a topology that leaves no operating point is simply not chosen
+                sub.touch = touched if self.touch is None else touched & (self.touch | set(changed))
+                for n in sub.touch:
+                    trial["mirrors"][n] = copy.deepcopy(trial["mirrors"][n])
+                for _ in range(1):
+                    if not sub._rebalance(failing_only=False):
+                        break
+                    t_tree, t_res = self.evaluate(trial)
+                    sub.tree, sub.result = t_tree, t_res
+                # an output just short of compliance: larger devices run at a lower current
+                # density (V_BE falls by V_T·ln k, V_ov by √k), so size the mirror up and look again
+                grown = self._grow_for_compliance(trial, t_res, changed, judged)
+                if grown:
+                    t_tree, t_res = self.evaluate(trial)
+                    sub.tree, sub.result = t_tree, t_res
+                    sub.touch = set(grown)
+                    if sub._rebalance(failing_only=False):
+                        t_tree, t_res = self.evaluate(trial)
+            except (SolveError, ValueError):  # a topology that leaves no operating point is not chosen
                 continue
             for m in changed:
-                idx = loads_of[m]
+                idx = judged[m]
+                if t == self.data["mirrors"][m].get("topology", "simple"):
+                    self.fallback[m] = trial["mirrors"][m]  # the same topology, ratios rebalanced
                 if idx and bool(t_res.passed[idx].all()):
-                    choice[m] = t
-                    self.data["mirrors"][m] = trial["mirrors"][m]  # keep its rebalanced ratios too
-                elif idx:
-                    best[m] = max(best.get(m, -np.inf), float(t_res.margin[idx].min()))
-        return choice, best
+                    below = {n: trial["mirrors"][n] for n in touch[m] if n != m}
+                    options.setdefault(m, []).append((self._cost(t_res, m, t, trial["mirrors"][m]), t, trial["mirrors"][m], below))
+        out = {}
+        for m, opts in options.items():
+            _, t, spec, below = min(opts, key=lambda o: o[0])
+            out[m] = (t, spec)
+            self.data["mirrors"].update(below)  # the mirrors below an escalated one keep their rebalanced ratios
+        return out
+
+    def _grow_for_compliance(self, trial: dict[str, Any], res: Audit, changed: list[str],
+                             judged: dict[str, list[int]]) -> list[str]:
+        grown = []
+        for m in changed:
+            idx = judged[m]
+            if not idx:
+                continue
+            short = -float(np.min(res.compliance[idx]))
+            if not 0 < short < 0.15:
+                continue
+            spec = trial["mirrors"][m]
+            size = spec.get("input_size", 1.0)
+            biggest = size * max([1.0] + [b.get("ratio", 1.0) for b in spec["branches"]])
+            k = min(int(self.rules.max_units // biggest), math.ceil(math.exp(1.3 * short / 0.0259)))
+            if k < 2:
+                continue
+            trial["mirrors"][m] = dict(spec, input_size=size * k)
+            grown.append(m)
+        return grown
 
     def _split_for(self, mirror: str, load: str, actions: dict[str, tuple[str, Any, str]]) -> None:
         spec = self.data["mirrors"][mirror]
@@ -271,7 +453,9 @@ class Search:
             if failing_only and r.passed[i]:
                 continue
             slack = max(self._slack(i), 1e-4)
-            if abs(mid[i]) > 0.05 * slack and abs(mid[i]) < 0.9:
+            if r.compliance[i] < 0 or r.upstream[i] >= 0:
+                continue  # a current out of compliance says nothing about the ratio it needs
+            if abs(mid[i]) > 0.05 * slack and abs(mid[i]) < 0.5:
                 by_mirror.setdefault(int(tree.b_parent[tree.l_branch[i]]), []).append(i)
         for m, loads in by_mirror.items():
             name = tree.mirrors[m]
@@ -376,13 +560,16 @@ class Search:
         pspec = self.data["mirrors"][parent]
         p_in = float(r.op.m_i_in[tree.mirrors.index(parent), 1])
         size = pspec.get("input_size", 1.0)
-        units = max(1, round(current / p_in * size))
+        units = max(1, min(self.rules.max_units, round(current / p_in * size)))
+        # the new mirror's own ratio makes up what the parent's whole units miss
+        got = realise([current / (p_in * units / size)], [2e-3], self.rules.max_units)
+        n_new, u_new = got if got is not None else (1, [1])
         new = f"{mirror}_{load}"
         while new in self.data["mirrors"] or new in self.data["loads"]:
             new += "_"
         pspec["branches"].append({"to": new, "ratio": units / size, "count": branch.get("count", 1)})
-        self.data["mirrors"][new] = {"device": spec["device"], "input_size": 1.0, "topology": "simple",
-                                     "branches": [{"to": load, "ratio": 1.0}]}
+        self.data["mirrors"][new] = {"device": spec["device"], "input_size": float(n_new), "topology": "simple",
+                                     "branches": [{"to": load, "ratio": u_new[0] / n_new}]}
         fp = self.data.get("floorplan")
         if fp and fp.get("positions") and load in fp["positions"]:
             fp["positions"][new] = fp["positions"][load]

@@ -269,7 +269,7 @@ def finish(data: dict[str, Any], header: str, source: str = "planned plan") -> t
     doc = parse_text(text, source)
     plan = validate(doc, Plan)
     tree = build(plan, doc.line_of, source)
-    return text, tree, check_tree(tree)
+    return text, tree, check_tree(tree, detail=False)  # verdicts do not depend on the detail
 
 
 def plan_blocks(blocks: BlockList, objective: str = "power", scale: float = 1.0, search: bool = True,
