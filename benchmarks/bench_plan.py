@@ -6,56 +6,19 @@ exhaustive oracle and two baselines, and times (2 cores).
 
 from __future__ import annotations
 
-import itertools
 import sys
 import time
 
 from biastree.input.blocks import BlockList
-from biastree.planner.grouping import Leaf, _position
-from biastree.planner.random_blocks import random_blocks
-from biastree.planner.search import Rules, Search
-from biastree.planner.synthesis import finish, plan_blocks, rules_for, skeleton
 from biastree.planner.costs import figures
-
-
-def partitions(items: list[str]):
-    if not items:
-        yield []
-        return
-    first, rest = items[0], items[1:]
-    for p in partitions(rest):
-        for k in range(len(p)):
-            yield p[:k] + [[first] + p[k]] + p[k + 1:]
-        yield [[first]] + p
+from biastree.planner.oracle import exhaustive
+from biastree.planner.random_blocks import random_blocks
+from biastree.planner.synthesis import finish, plan_blocks, skeleton
 
 
 def oracle(blocks: BlockList) -> float | None:
-    """Least overhead power over every grouping of the blocks (same levels, ratios and search)."""
-    best = None
-    by_dir: dict[str, list[str]] = {}
-    for n in sorted(blocks.blocks):
-        by_dir.setdefault(blocks.blocks[n].direction, []).append(n)
-    dev = {"sink": None, "source": None}
-    from biastree.input.blocks import devices_for
-    for d in dev:
-        dev[d] = devices_for(blocks, d)[0] if by_dir.get(d) else None
-    def fits(group: list[str]) -> bool:  # the planner's own hard limit: blocks within group_radius
-        import math
-        pts = [blocks.blocks[n].position for n in group]
-        return all(math.dist(a, b) <= blocks.limits.group_radius for a in pts for b in pts)
-
-    parts = {d: [p for p in partitions(v) if all(fits(g) for g in p)] for d, v in by_dir.items()}
-    for combo in itertools.product(*parts.values()):
-        leaves = []
-        for d, p in zip(parts, combo):
-            leaves += [Leaf(d, dev[d], tuple(g), _position(blocks, tuple(g))) for g in p]
-        data, _ = skeleton(blocks, leaves)
-        s = Search(data, rules_for(blocks))
-        res = s.run()
-        if bool(res.passed.all()):
-            p = figures(res).overhead_power
-            best = p if best is None else min(best, p)
-    return best
+    best = exhaustive(blocks)
+    return None if best is None else best.overhead_power
 
 
 def flat(blocks: BlockList) -> tuple[int, float]:

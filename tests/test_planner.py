@@ -152,3 +152,45 @@ def test_block_schema_is_committed_and_validates_the_sample():
     committed = json.loads((ROOT / "schemas" / "blocks.schema.json").read_text())
     assert committed == json.loads(json.dumps(schema()))
     jsonschema.validate(yaml.safe_load(SAMPLE.read_text()), committed)
+
+
+def test_oracle_on_small_lists():
+    """The exhaustive search over every grouping is a lower bound the planner should meet or
+    nearly meet (the grouping is a heuristic; the benchmark reports the figures over more lists)."""
+    from biastree.planner.oracle import exhaustive
+
+    ratios = []
+    for seed in (21, 22, 23):
+        blocks = BlockList.model_validate(random_blocks(5, seed))
+        best = exhaustive(blocks)
+        mine = plan_blocks(blocks)
+        assert best is not None and mine.ok
+        assert best.overhead_power <= mine.figures.overhead_power * (1 + 1e-12)  # it is the optimum
+        ratios.append(mine.figures.overhead_power / best.overhead_power)
+    assert max(ratios) < 1.5
+
+
+def test_pareto_alternatives_pass_and_none_dominates():
+    out = plan_blocks(BlockList.model_validate(random_blocks(5, 21)), alternatives=True)
+    alts = [f for f, _ in out.alternatives]
+    assert 1 <= len(alts) <= 5 and all(f.failed == 0 for f in alts)
+    for a in alts:
+        assert not any(b.dominates(a) for b in alts)
+    for _, alt in out.alternatives:
+        assert bool(biastree.check(biastree.loads(alt.text)).passed.all())
+
+
+def test_mos_only_block_list():
+    out = plan_blocks(BlockList.model_validate(random_blocks(30, 1, bipolar=False)))
+    assert out.ok
+    kinds = {d["kind"] for d in out.data["devices"].values()}
+    assert kinds == {"nmos", "pmos"}
+
+
+def test_repair_keeps_a_passing_plan_unchanged():
+    tree = biastree.load(ROOT / "samples" / "bipolar_small.yaml")
+    from biastree.analysis.pipeline import check_tree
+    from biastree.planner.repair import repair
+
+    fixed = repair(tree, check_tree(tree, detail=False))
+    assert fixed.ok and fixed.changes == []

@@ -18,6 +18,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from biastree.analysis.audit import Audit
+from biastree.errors import SolveError
 from biastree.input.model import Plan
 from biastree.planner.costs import Figures, figures
 from biastree.planner.search import Change, Infeasible, Rules, Search, evaluate, infeasible
@@ -100,7 +101,7 @@ def _price(changes: list[Change], original: dict[str, Any], final: dict[str, Any
         trial["mirrors"][c.target] = spec
         try:
             _, res = evaluate(trial)
-        except Exception:  # the plan without this change has no operating point: no price
+        except (SolveError, ValueError):  # the plan without this change has no operating point: no price
             continue
         f = figures(res)
         c.power = after.overhead_power - f.overhead_power
