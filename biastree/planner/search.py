@@ -455,7 +455,7 @@ class Search:
             slack = max(self._slack(i), 1e-4)
             if r.compliance[i] < 0 or r.upstream[i] >= 0:
                 continue  # a current out of compliance says nothing about the ratio it needs
-            if abs(mid[i]) > 0.05 * slack and abs(mid[i]) < 0.5:
+            if abs(mid[i]) > 0.05 * slack and abs(mid[i]) < 0.9:
                 by_mirror.setdefault(int(tree.b_parent[tree.l_branch[i]]), []).append(i)
         for m, loads in by_mirror.items():
             name = tree.mirrors[m]
