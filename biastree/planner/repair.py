@@ -8,20 +8,19 @@ every failing mirror at once, one check each), a block no topology can serve
 on a shared mirror moves to a mirror of its own, devices grow where mismatch
 dominates, and failing remote blocks get their current routed locally.  All
 changes are found together and checked together; each is then priced by
-taking it back alone (its marginal power and area).
+reading both checked plans (its unit devices and the current it draws besides its outputs).
 """
 
 from __future__ import annotations
 
-import copy
 from dataclasses import dataclass
 from typing import Any
 
 from biastree.analysis.audit import Audit
-from biastree.errors import SolveError
 from biastree.input.model import Plan
+from biastree.physics.topologies import TOPOLOGIES
 from biastree.planner.costs import Figures, figures
-from biastree.planner.search import Change, Infeasible, Rules, Search, evaluate, infeasible
+from biastree.planner.search import Change, Infeasible, Rules, Search, infeasible
 from biastree.planner.synthesis import finish
 from biastree.tree.arrays import Tree
 
@@ -59,7 +58,7 @@ def plan_data(plan: Plan) -> dict[str, Any]:
     return data
 
 
-def repair(tree: Tree, result: Audit, forward_bias: float | None = None, max_units: int = 64, price: int = 40) -> Repair:
+def repair(tree: Tree, result: Audit, forward_bias: float | None = None, max_units: int = 64) -> Repair:
     """Find a small combined set of changes that makes every load of ``tree`` pass."""
     data = plan_data(tree.plan)
     if forward_bias is not None:
@@ -76,33 +75,31 @@ def repair(tree: Tree, result: Audit, forward_bias: float | None = None, max_uni
     header = "Repaired by biastree plan --repair; every change is listed in its output.\n" + (tree.plan.title or "")
     text, new_tree, new_result = finish(search.data, header, "repaired plan")
     after = figures(new_result)
-    _price(changes[:price], data, search.data, after)
+    _price(changes, tree, result, new_tree, new_result)
     bad = infeasible(new_tree, new_result) if not bool(new_result.passed.all()) else []
     return Repair(before, after, changes, bad, text, new_tree, new_result)
 
 
-def _price(changes: list[Change], original: dict[str, Any], final: dict[str, Any], after: Figures) -> None:
-    """Marginal cost of each mirror change: the final plan with that mirror put back."""
+def _units(plan: Plan, tree: Tree, name: str) -> float:
+    spec = plan.mirrors[name]
+    m = tree.mirrors.index(name)
+    return float(tree.m_mult[m]) * TOPOLOGIES[spec.topology].units(
+        spec.input_size, float(tree.m_fanout[m]), {"helper_size": spec.helper_size, "swing_n": spec.swing_n})
+
+
+def _price(changes: list[Change], tree: Tree, result: Audit, new_tree: Tree, new_result: Audit) -> None:
+    """Cost of each mirror change, read from the two checked plans (no extra solve):
+    unit devices as the audit counts them, and the current the mirror draws besides its
+    outputs (helpers, bias devices) times the supply.  A mirror changed twice carries its whole change."""
+    supply = tree.plan.supply
     for c in changes:
-        if c.kind not in ("topology", "size", "rebalance") or c.target not in original["mirrors"]:
+        if c.kind not in ("topology", "size", "rebalance") or c.target not in tree.mirrors or c.target not in new_tree.mirrors:
             continue
-        trial = dict(final)
-        trial["mirrors"] = dict(final["mirrors"])
-        spec = copy.deepcopy(final["mirrors"][c.target])
-        old = original["mirrors"][c.target]
-        if c.kind == "topology":
-            spec["topology"] = c.before
-        elif c.kind == "size":
-            spec["input_size"] = old.get("input_size", 1.0)
-        else:
-            spec = copy.deepcopy(old) | {"topology": spec.get("topology", "simple")}
-            if len(spec["branches"]) != len(final["mirrors"][c.target]["branches"]):
-                continue
-        trial["mirrors"][c.target] = spec
-        try:
-            _, res = evaluate(trial)
-        except (SolveError, ValueError):  # the plan without this change has no operating point: no price
-            continue
-        f = figures(res)
-        c.power = after.overhead_power - f.overhead_power
-        c.area = after.device_units - f.device_units
+        m0, m1 = tree.mirrors.index(c.target), new_tree.mirrors.index(c.target)
+        c.area = _units(new_tree.plan, new_tree, c.target) - _units(tree.plan, tree, c.target)
+        c.power = supply * float(new_result.op.m_extra[m1, 1] * new_tree.m_mult[m1] - result.op.m_extra[m0, 1] * tree.m_mult[m0])
+    seen: set[str] = set()
+    for c in changes:  # one mirror's cost is shown once, on its first change
+        if c.target in seen:
+            c.power = c.area = 0.0
+        seen.add(c.target)

@@ -59,6 +59,7 @@ class Rules:
     whole: bool = True  # realise rebalanced ratios with whole unit devices
     split: bool = True
     rounds: int = 12
+    patience: int = 5  # rounds without fewer failing blocks before the search gives up
     economise: bool = True  # after every block passes, cheaper topologies where they still pass
     objective: str = "power"  # how trials rank passing topologies: power (extra current) or area
 
@@ -154,12 +155,16 @@ class Search:
 
     def run(self) -> Audit:
         best: tuple[int, dict[str, Any], list[Change]] | None = None
+        stale = 0
         for _ in range(self.rules.rounds):
             self.tree, self.result = self.evaluate(self.data)
             failed = int((~self.result.passed).sum())
             if best is None or failed < best[0]:
                 best = (failed, copy.deepcopy(self.data), list(self.changes))
-            if failed == 0 or not self._round():
+                stale = 0
+            else:
+                stale += 1
+            if failed == 0 or stale >= self.rules.patience or not self._round():
                 break
         else:
             self.tree, self.result = self.evaluate(self.data)
