@@ -20,7 +20,8 @@ from biastree.analysis.audit import Audit
 from biastree.input.model import Plan
 from biastree.physics.topologies import TOPOLOGIES
 from biastree.planner.costs import Figures, figures
-from biastree.planner.search import Change, Infeasible, Rules, Search, infeasible
+from biastree.planner.evaluation import Change, Infeasible, Rules, infeasible
+from biastree.planner.search import Search
 from biastree.planner.synthesis import finish
 from biastree.tree.arrays import Tree
 

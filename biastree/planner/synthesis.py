@@ -33,9 +33,10 @@ from biastree.analysis.pipeline import check_tree
 from biastree.input.blocks import BlockList
 from biastree.input.loader import parse_text, validate
 from biastree.planner.costs import Figures, figures, pareto
+from biastree.planner.evaluation import Change, Infeasible, Rules, infeasible
 from biastree.planner.grouping import Leaf, chunks, group
 from biastree.planner.ratios import realise
-from biastree.planner.search import Change, Infeasible, Rules, Search, infeasible
+from biastree.planner.search import Search
 from biastree.planner.writer import to_yaml
 from biastree.tree.arrays import Tree, build
 
