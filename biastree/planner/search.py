@@ -87,10 +87,78 @@ class Search:
         if best is not None and best[0] < failed:  # a later round made things worse: go back
             self.data, self.changes = best[1], best[2]
             self.tree, self.result = self.evaluate(self.data)
+        if not bool(self.result.passed.all()):
+            self._feeder_knob()
         if self.rules.economise and bool(self.result.passed.all()):
             self._economise()
         self._merge_changes()
         return self.result
+
+    def _feeder_knob(self) -> None:
+        """Blocks whose own whole-unit ratios cannot be rounded finely enough: move the
+        feeding branch of their mirror by a few units too (the product of two whole-unit
+        ratios is much finer), one check per offset; kept only where it makes them pass."""
+        tree, r = self.tree, self.result
+        assert tree is not None and r is not None
+        failing = {m: idx for m, idx in self._failing_mirrors().items()
+                   if all(r.compliance[i] >= 0 and r.upstream[i] < 0 for i in idx)}
+        feeds = {}
+        for m in failing:
+            b = int(tree.m_in_branch[tree.mirrors.index(m)])
+            if b >= 0 and (self.touch is None or m in self.touch):
+                feeds[m] = (tree.mirrors[int(tree.b_parent[b])], int(tree.b_index[b]))
+        if not feeds:
+            return
+        before = int((~r.passed).sum())
+        chosen: dict[str, tuple[float, dict[str, Any]]] = {}
+        for offset in (1, -1, 2, -2, 3, -3):
+            trial = dict(self.data)
+            trial["mirrors"] = dict(self.data["mirrors"])
+            todo = [m for m in feeds if m not in chosen]
+            if not todo:
+                break
+            for m in todo:
+                parent, k = feeds[m]
+                pspec = copy.deepcopy(trial["mirrors"][parent]) if trial["mirrors"][parent] is self.data["mirrors"][parent] \
+                    else trial["mirrors"][parent]
+                size = pspec.get("input_size", 1.0)
+                units = round(pspec["branches"][k].get("ratio", 1.0) * size) + offset
+                if units < 1 or units > self.rules.max_units:
+                    continue
+                pspec["branches"][k]["ratio"] = units / size
+                trial["mirrors"][parent] = pspec
+                trial["mirrors"][m] = copy.deepcopy(self.data["mirrors"][m])
+            try:
+                t_tree, t_res = self.evaluate(trial)
+                sub = Search.__new__(Search)
+                sub.data, sub.rules, sub.changes, sub.tree, sub.result = trial, self.rules, [], t_tree, t_res
+                sub.touch = set(todo)
+                if sub._rebalance(failing_only=False):
+                    t_tree, t_res = self.evaluate(trial)
+            except (SolveError, ValueError):
+                continue
+            for m in todo:
+                idx = failing[m]
+                parent, k = feeds[m]
+                if bool(t_res.passed[idx].all()):
+                    chosen[m] = (trial["mirrors"][parent]["branches"][k]["ratio"], trial["mirrors"][m])
+        if not chosen:
+            return
+        saved = (copy.deepcopy(self.data), list(self.changes))
+        for m, (ratio, spec) in chosen.items():
+            parent, k = feeds[m]
+            pspec = copy.deepcopy(self.data["mirrors"][parent])
+            old = pspec["branches"][k].get("ratio", 1.0)
+            pspec["branches"][k]["ratio"] = ratio
+            self.data["mirrors"][parent] = pspec
+            self.data["mirrors"][m] = spec
+            self.changes.append(Change("rebalance", parent, f"{m} {old * pspec.get('input_size', 1.0):g} u",
+                                       f"{m} {ratio * pspec.get('input_size', 1.0):g} u",
+                                       f"the feeding branch of {m} moved so that its whole-unit ratios fit its blocks"))
+        self.tree, self.result = self.evaluate(self.data)
+        if int((~self.result.passed).sum()) >= before:  # the edits interfered: keep what was there
+            self.data, self.changes = saved
+            self.tree, self.result = self.evaluate(self.data)
 
     def _economise(self) -> None:
         """Once every block passes: the mirrors that feed only blocks get the cheapest
