@@ -276,7 +276,7 @@ def _value_at(data: Any, path: tuple[Any, ...]) -> Any:
     return data
 
 
-def _describe(err: dict[str, Any], data: Any) -> tuple[tuple[Any, ...], str]:
+def _describe(err: dict[str, Any], data: Any, model: Any = Plan) -> tuple[tuple[Any, ...], str]:
     """Turn one pydantic error into (path, message) in our words."""
     loc = tuple(err["loc"])
     kind = err["type"]
@@ -299,7 +299,7 @@ def _describe(err: dict[str, Any], data: Any) -> tuple[tuple[Any, ...], str]:
     if kind == "extra_forbidden":
         key = loc[-1]
         parent = loc[:-1]
-        allowed = _fields_at(parent)
+        allowed = _fields_at(parent, model)
         if allowed is None and len(parent) == 2 and parent[0] == "devices":
             dev = data.get("devices", {}).get(parent[1], {})
             kind_name = dev.get("kind") if isinstance(dev, dict) else None
@@ -329,17 +329,18 @@ def _describe(err: dict[str, Any], data: Any) -> tuple[tuple[Any, ...], str]:
     return loc, err["msg"]
 
 
-def validate(doc: Document) -> Plan:
-    """Validate plain data against the plan models; all problems at once."""
+def validate(doc: Document, model: Any = Plan) -> Any:
+    """Validate plain data against the plan models (or another strict model of
+    the same family, e.g. the planner's block list); all problems at once."""
     try:
-        return Plan.model_validate(doc.data)
+        return model.model_validate(doc.data)
     except ValidationError as exc:
         from biastree.input.checks import raw_name_problems
 
         problems = []
         seen = set()
         for err in exc.errors(include_url=False):
-            loc, message = _describe(err, doc.data)
+            loc, message = _describe(err, doc.data, model)
             if not message:
                 continue
             key = (loc, message)
@@ -349,7 +350,7 @@ def validate(doc: Document) -> Plan:
             problems.append(Problem(format_path(loc), message, doc.line_of(loc)))
         # names that resolve to nothing are worth reporting in the same run
         flagged = {p.path for p in problems}
-        for loc, message in raw_name_problems(doc.data):
+        for loc, message in (raw_name_problems(doc.data) if model is Plan else ()):
             if format_path(loc) not in flagged:
                 problems.append(Problem(format_path(loc), message, doc.line_of(loc)))
         problems.sort(key=lambda p: (p.line is None, p.line or 0))

@@ -1,0 +1,52 @@
+"""The planner's and the repair's terminal summaries (plain text)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from biastree.planner.costs import Figures
+from biastree.units import format_si
+
+
+def _figures_line(f: Figures) -> str:
+    return (f"{f.passed} of {f.passed + f.failed} blocks pass; overhead {format_si(f.overhead_current, 'A')} "
+            f"({format_si(f.overhead_power, 'W')}); {f.device_units:g} unit devices"
+            + (f", MOS gate area {f.mos_gate_area * 1e12:.4g} µm²" if f.mos_gate_area else "")
+            + f"; worst margin {f.worst_margin * 100:+.3g} %")
+
+
+def summary_text(out: Any) -> str:
+    """What the planner decided and why, the figures, and any infeasible request."""
+    lines = []
+    if out.infeasible:
+        lines.append("cannot plan every block as asked:")
+        lines += [f"  {i.text()}" for i in out.infeasible]
+    for d in out.decisions:
+        lines.append(d)
+    if out.figures is not None:
+        lines.append(_figures_line(out.figures))
+    if out.alternatives:
+        lines.append("alternatives (passing, none beaten on power, area and margin at once):")
+        lines.append(f"  {'#':>2}  {'overhead':>10}  {'power':>10}  {'units':>7}  {'worst margin':>12}  mirrors")
+        for k, (f, _) in enumerate(out.alternatives, 1):
+            lines.append(f"  {k:>2}  {format_si(f.overhead_current, 'A'):>10}  {format_si(f.overhead_power, 'W'):>10}  "
+                         f"{f.device_units:>7g}  {f.worst_margin * 100:>+11.3g}%  {f.mirrors}")
+    if out.result is not None and not out.infeasible:
+        lines.append("every verdict above is what `biastree check` gives on the written plan")
+    return "\n".join(lines) + "\n"
+
+
+def repair_text(fixed: Any) -> str:
+    lines = [f"before: {_figures_line(fixed.before)}"]
+    if fixed.changes:
+        lines.append(f"changes ({len(fixed.changes)}, found and checked together):")
+        for c in fixed.changes:
+            cost = f"  [{format_si(c.power, 'W')}, {c.area:+g} units]" if (c.power or c.area) else ""
+            lines.append(f"  {c.kind} {c.target}: {c.before} → {c.after}{cost} — {c.why}")
+    else:
+        lines.append("no change found")
+    lines.append(f"after:  {_figures_line(fixed.after)}")
+    if fixed.infeasible:
+        lines.append("still failing (cannot be repaired within the limits):")
+        lines += [f"  {i.text()}" for i in fixed.infeasible]
+    return "\n".join(lines) + "\n"

@@ -1,0 +1,565 @@
+"""The search that both the planner and the repair run: change the plan, check it, repeat.
+
+Every step evaluates the whole plan with ``biastree.analysis.pipeline.check_tree``
+(the solver and audit of ``biastree check``), reads which loads fail and why,
+and applies one combined set of changes:
+
+* **rebalance** — the ratio of each branch into a block is set so that the
+  middle of its error range (over the voltage ends) is zero, realised with
+  whole unit devices (a larger input device when the rounding would eat the
+  budget).  This cancels β loading and the systematic Early / λ error;
+* **topology** — what is left is attacked where it comes from: the spread of
+  the error over the voltage range by the block's own mirror (Early →
+  cascode / wilson4, λ → cascode / wide_swing), the spread over the plan's
+  conditions by the stage with the largest β loading (beta_helper /
+  wilson4), compliance and headroom by a topology that needs less voltage;
+* **split** — a block whose mirror cannot be given a better output moves to
+  a mirror of its own (a single-output improved Wilson) fed by the same parent;
+* **size** — k·σ of mismatch is cut by larger devices on the stage with the
+  largest σ (Pelgrom's area law: σ ∝ 1/√area, so σ/2 costs 4× the area);
+* **local** — a remote block whose base/gate line costs budget gets its
+  current routed from beside the mirror instead.
+
+A topology once tried on a mirror is not tried again, so the search ends.
+What still fails at the end is reported as infeasible, with the block, the
+constraint and the amount.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+from typing import Any
+
+import numpy as np
+
+from biastree.analysis.audit import Audit
+from biastree.errors import SolveError
+from biastree.physics.topologies import TOPOLOGIES
+from biastree.planner.evaluation import Change, Evaluator, Rules
+from biastree.planner.ratios import realise
+from biastree.tree.arrays import Tree
+from biastree.units import format_si
+
+# Topologies in order of cost (device units, then extra current).
+COST_ORDER = ("simple", "beta_helper", "wilson", "wilson4", "cascode", "wide_swing")
+
+
+def _family(data: dict[str, Any], mirror: str) -> str:
+    kind = data["devices"][data["mirrors"][mirror]["device"]]["kind"]
+    return "bjt" if kind in ("npn", "pnp") else "mos"
+
+
+class Search:
+    """Mutable state of one search over plain plan data."""
+
+    def __init__(self, data: dict[str, Any], rules: Rules, touch: set[str] | None = None) -> None:
+        self.data = copy.deepcopy(data)
+        self.rules = rules
+        self.changes: list[Change] = []
+        self.tried: dict[str, set[str]] = {m: {spec.get("topology", "simple")} for m, spec in self.data["mirrors"].items()}
+        self.touch = touch  # mirrors the search may rebalance freely (None: all)
+        self.result: Audit | None = None
+        self.tree: Tree | None = None
+        self.evaluate = Evaluator()
+        self.escalated: set[str] = set()
+        self.stuck: dict[str, int] = {}
+        self.fallback: dict[str, dict[str, Any]] = {}
+
+    # --- the loop -----------------------------------------------------------
+
+    def run(self) -> Audit:
+        best: tuple[int, dict[str, Any], list[Change]] | None = None
+        stale = 0
+        for _ in range(self.rules.rounds):
+            self.tree, self.result = self.evaluate(self.data)
+            failed = int((~self.result.passed).sum())
+            if best is None or failed < best[0]:
+                best = (failed, copy.deepcopy(self.data), list(self.changes))
+                stale = 0
+            else:
+                stale += 1
+            if failed == 0 or stale >= self.rules.patience or not self._round():
+                break
+        else:
+            self.tree, self.result = self.evaluate(self.data)
+            failed = int((~self.result.passed).sum())
+        if best is not None and best[0] < failed:  # a later round made things worse: go back
+            self.data, self.changes = best[1], best[2]
+            self.tree, self.result = self.evaluate(self.data)
+        if not bool(self.result.passed.all()):
+            self._feeder_knob()
+        if self.rules.economise and bool(self.result.passed.all()):
+            self._economise()
+        self._merge_changes()
+        return self.result
+
+    def _feeder_knob(self) -> None:
+        """Blocks whose own whole-unit ratios cannot be rounded finely enough: move the
+        feeding branch of their mirror by a few units too (the product of two whole-unit
+        ratios is much finer), one check per offset; kept only where it makes them pass."""
+        tree, r = self.tree, self.result
+        assert tree is not None and r is not None
+        failing = {m: idx for m, idx in self._failing_mirrors().items()
+                   if all(r.compliance[i] >= 0 and r.upstream[i] < 0 for i in idx)}
+        feeds = {}
+        for m in failing:
+            b = int(tree.m_in_branch[tree.mirrors.index(m)])
+            if b >= 0 and (self.touch is None or m in self.touch):
+                feeds[m] = (tree.mirrors[int(tree.b_parent[b])], int(tree.b_index[b]))
+        if not feeds:
+            return
+        before = int((~r.passed).sum())
+        chosen: dict[str, tuple[float, dict[str, Any]]] = {}
+        for offset in (1, -1, 2, -2, 3, -3):
+            trial = dict(self.data)
+            trial["mirrors"] = dict(self.data["mirrors"])
+            todo = [m for m in feeds if m not in chosen]
+            if not todo:
+                break
+            for m in todo:
+                parent, k = feeds[m]
+                pspec = copy.deepcopy(trial["mirrors"][parent]) if trial["mirrors"][parent] is self.data["mirrors"][parent] \
+                    else trial["mirrors"][parent]
+                size = pspec.get("input_size", 1.0)
+                units = round(pspec["branches"][k].get("ratio", 1.0) * size) + offset
+                if units < 1 or units > self.rules.max_units:
+                    continue
+                pspec["branches"][k]["ratio"] = units / size
+                trial["mirrors"][parent] = pspec
+                trial["mirrors"][m] = copy.deepcopy(self.data["mirrors"][m])
+            try:
+                t_tree, t_res = self.evaluate(trial)
+                sub = Search.__new__(Search)
+                sub.data, sub.rules, sub.changes, sub.tree, sub.result = trial, self.rules, [], t_tree, t_res
+                sub.touch = set(todo)
+                if sub._rebalance(failing_only=False):
+                    t_tree, t_res = self.evaluate(trial)
+            except (SolveError, ValueError):
+                continue
+            for m in todo:
+                idx = failing[m]
+                parent, k = feeds[m]
+                if bool(t_res.passed[idx].all()):
+                    chosen[m] = (trial["mirrors"][parent]["branches"][k]["ratio"], trial["mirrors"][m])
+        if not chosen:
+            return
+        saved = (copy.deepcopy(self.data), list(self.changes))
+        for m, (ratio, spec) in chosen.items():
+            parent, k = feeds[m]
+            pspec = copy.deepcopy(self.data["mirrors"][parent])
+            old = pspec["branches"][k].get("ratio", 1.0)
+            pspec["branches"][k]["ratio"] = ratio
+            self.data["mirrors"][parent] = pspec
+            self.data["mirrors"][m] = spec
+            self.changes.append(Change("rebalance", parent, f"{m} {old * pspec.get('input_size', 1.0):g} u",
+                                       f"{m} {ratio * pspec.get('input_size', 1.0):g} u",
+                                       f"the feeding branch of {m} moved so that its whole-unit ratios fit its blocks"))
+        self.tree, self.result = self.evaluate(self.data)
+        if int((~self.result.passed).sum()) >= before:  # the edits interfered: keep what was there
+            self.data, self.changes = saved
+            self.tree, self.result = self.evaluate(self.data)
+
+    def _economise(self) -> None:
+        """Once every block passes: the mirrors that feed only blocks get the cheapest
+        topology under which their blocks still pass (one check per topology)."""
+        tree, r = self.tree, self.result
+        assert tree is not None and r is not None
+        leaves = [m for m, spec in self.data["mirrors"].items()
+                  if all(b["to"] in self.data["loads"] for b in spec["branches"])
+                  and spec.get("topology", "simple") != "simple"]
+        if not leaves:
+            return
+        saved = (copy.deepcopy(self.data), list(self.changes))
+        index = {n: i for i, n in enumerate(tree.loads)}
+        judged = {m: [index[n] for n in self._loads_below(m)] for m in leaves}
+        self.tried = {}
+        choice = self._trials(leaves, judged, {m: {m} for m in leaves})
+        for m, (t, spec) in choice.items():
+            old = self.data["mirrors"][m]
+            if t == old.get("topology", "simple"):
+                continue
+            self._set_topology(m, t, "cheaper, and every block of the mirror still passes")
+            self.data["mirrors"][m] = spec
+        self.tree, self.result = self.evaluate(self.data)
+        if not bool(self.result.passed.all()):  # the changes interfered: keep the plan that passed
+            self.data, self.changes = saved
+            self.tree, self.result = self.evaluate(self.data)
+
+    def _merge_changes(self) -> None:
+        """Successive changes of one kind to one mirror are one change (first before → last after)."""
+        out: list[Change] = []
+        for c in self.changes:
+            prev = next((o for o in reversed(out) if o.target == c.target and o.kind == c.kind), None)
+            if prev is not None and c.kind in ("rebalance", "topology", "size"):
+                prev.after = c.after
+                if prev.before == prev.after:
+                    out.remove(prev)
+                continue
+            out.append(c)
+        self.changes = out
+
+    def _failing_mirrors(self) -> dict[str, list[int]]:
+        r, tree = self.result, self.tree
+        assert r is not None and tree is not None
+        out: dict[str, list[int]] = {}
+        for i in np.flatnonzero(~r.passed).tolist():
+            out.setdefault(tree.mirrors[int(tree.b_parent[tree.l_branch[i]])], []).append(i)
+        return out
+
+    def _round(self) -> bool:
+        """One combined step: local routing, topology trials, then escalation, splits and sizes."""
+        r, tree = self.result, self.tree
+        assert r is not None and tree is not None
+        acted = False
+        fp = self.data.get("floorplan") or {}
+        remote = set(fp.get("remote", []))
+        failing = self._failing_mirrors()
+        for m, loads in failing.items():
+            for i in loads:
+                name = tree.loads[i]
+                if name in remote:
+                    self._apply({name: ("local", None, f"{name} fails and sits on a long base/gate line")})
+                    acted = True
+        if acted:
+            return True
+        # mirrors tried: the failing ones, and the parents of those that no topology could fix last round
+        targets = sorted(set(failing) | {p for p in self.escalated if p in self.data["mirrors"]})
+        below_loads, below_mirrors = self._below()
+        judged = {m: failing[m] if m in failing and m not in self.escalated else below_loads.get(m, []) for m in targets}
+        touch = {m: below_mirrors.get(m, {m}) if m in self.escalated else {m} for m in targets}
+        choice = self._trials(targets, judged, touch)
+        for m, (t, spec) in choice.items():
+            old = self.data["mirrors"][m]
+            if t != old.get("topology", "simple"):
+                self._set_topology(m, t, f"least-cost topology under which every block of {m} passes")
+            if [b.get("ratio") for b in spec["branches"]] != [b.get("ratio") for b in old["branches"]] or \
+                    spec.get("input_size") != old.get("input_size"):
+                self.changes.append(Change("rebalance", m, self._ratio_text(old["branches"], old.get("input_size", 1.0)),
+                                           self._ratio_text(spec["branches"], spec.get("input_size", 1.0)),
+                                           "ratios set to cancel the systematic error of its blocks"))
+            self.data["mirrors"][m] = spec
+            acted = True
+        actions: dict[str, tuple[str, Any, str]] = {}
+        new_escalated: set[str] = set()
+        for m in sorted(failing):
+            if m in choice:
+                continue
+            spec = self.fallback.pop(m, None)
+            if spec is not None and spec != self.data["mirrors"][m]:
+                old = self.data["mirrors"][m]
+                self.changes.append(Change("rebalance", m, self._ratio_text(old["branches"], old.get("input_size", 1.0)),
+                                           self._ratio_text(spec["branches"], spec.get("input_size", 1.0)),
+                                           "ratios set to cancel the systematic error of its blocks"))
+                self.data["mirrors"][m] = spec
+                acted = True
+                continue
+            self.stuck[m] = self.stuck.get(m, 0) + 1
+            parent = self._parent(m)
+            if self.stuck[m] == 1 and parent is not None and parent not in self.escalated:
+                new_escalated.add(parent)
+                acted = True
+                continue
+            for i in failing[m]:
+                mm = r.k_sigma * float(r.sigma[i])
+                if mm > 0 and float(r.margin[i]) + mm > 0:
+                    self._size(i, actions)
+                else:
+                    self._split_for(m, tree.loads[i], actions)
+        self.escalated |= new_escalated
+        return self._apply(actions) or acted
+
+    def _parent(self, mirror: str) -> str | None:
+        tree = self.tree
+        assert tree is not None
+        if mirror not in tree.mirrors:
+            return None
+        b = int(tree.m_in_branch[tree.mirrors.index(mirror)])
+        return tree.mirrors[int(tree.b_parent[b])] if b >= 0 else None
+
+    def _below(self) -> tuple[dict[str, list[int]], dict[str, set[str]]]:
+        """Per mirror, the loads below it and the mirrors below it (itself included)."""
+        tree = self.tree
+        assert tree is not None
+        loads: dict[str, list[int]] = {}
+        mirrors: dict[str, set[str]] = {}
+        for i in range(len(tree.loads)):
+            for m in tree.mirror_paths[int(tree.b_parent[tree.l_branch[i]])]:
+                loads.setdefault(tree.mirrors[m], []).append(i)
+        for path in tree.mirror_paths:
+            for m in path:
+                mirrors.setdefault(tree.mirrors[m], set()).add(tree.mirrors[path[-1]])
+        return loads, mirrors
+
+    def _cost(self, result: Audit, mirror: str, topology: str, spec: dict[str, Any]) -> tuple[float, float]:
+        tree = result.tree
+        m = tree.mirrors.index(mirror)
+        fan = sum(b.get("ratio", 1.0) * b.get("count", 1) for b in spec["branches"])
+        units = TOPOLOGIES[topology].units(spec.get("input_size", 1.0), fan,
+                                           {"helper_size": spec.get("helper_size", 1.0), "swing_n": spec.get("swing_n", 1.25)})
+        units *= float(tree.m_mult[m])
+        extra = float(result.op.m_extra[m, 1] * tree.m_mult[m]) * tree.plan.supply
+        return (extra, units) if self.rules.objective == "power" else (units, extra)
+
+    def _trials(self, mirrors: list[str], judged: dict[str, list[int]],
+                touch: dict[str, set[str]]) -> dict[str, tuple[str, dict[str, Any]]]:
+        self.fallback = {}
+        """Try every topology on every target mirror at once (one check, one rebalance and one
+        more check per topology); per mirror, the least-cost topology under which its loads pass."""
+        options: dict[str, list[tuple[tuple[float, float], str, dict[str, Any]]]] = {}
+        for t in COST_ORDER:
+            trial = dict(self.data)
+            trial["mirrors"] = dict(self.data["mirrors"])
+            changed = []
+            touched: set[str] = set()
+            for m in mirrors:
+                if m in options and t != "beta_helper":
+                    continue  # passes already with a cheaper topology (beta_helper still compared: rebalancing costs area)
+                if not self._allowed(m, t, self._loads_below(m), fresh=True):
+                    continue
+                if touch[m] & touched:
+                    continue  # nested targets are tried in separate rounds
+                touched |= touch[m]
+                spec = copy.deepcopy(self.data["mirrors"][m])
+                spec["topology"] = t
+                trial["mirrors"][m] = spec
+                changed.append(m)
+            if not changed:
+                continue
+            try:
+                t_tree, t_res = self.evaluate(trial)
+                sub = Search.__new__(Search)
+                sub.data, sub.rules, sub.changes, sub.tree, sub.result = trial, self.rules, [], t_tree, t_res
+                sub.touch = touched if self.touch is None else touched & (self.touch | set(changed))
+                for n in sub.touch:
+                    trial["mirrors"][n] = copy.deepcopy(trial["mirrors"][n])
+                for _ in range(1):
+                    if not sub._rebalance(failing_only=False):
+                        break
+                    t_tree, t_res = self.evaluate(trial)
+                    sub.tree, sub.result = t_tree, t_res
+                # an output just short of compliance: larger devices run at a lower current
+                # density (V_BE falls by V_T·ln k, V_ov by √k), so size the mirror up and look again
+                grown = self._grow_for_compliance(trial, t_res, changed, judged)
+                if grown:
+                    t_tree, t_res = self.evaluate(trial)
+                    sub.tree, sub.result = t_tree, t_res
+                    sub.touch = set(grown)
+                    if sub._rebalance(failing_only=False):
+                        t_tree, t_res = self.evaluate(trial)
+            except (SolveError, ValueError):  # a topology that leaves no operating point is not chosen
+                continue
+            for m in changed:
+                idx = judged[m]
+                if t == self.data["mirrors"][m].get("topology", "simple"):
+                    self.fallback[m] = trial["mirrors"][m]  # the same topology, ratios rebalanced
+                if idx and bool(t_res.passed[idx].all()):
+                    below = {n: trial["mirrors"][n] for n in touch[m] if n != m}
+                    options.setdefault(m, []).append((self._cost(t_res, m, t, trial["mirrors"][m]), t, trial["mirrors"][m], below))
+        out = {}
+        for m, opts in options.items():
+            _, t, spec, below = min(opts, key=lambda o: o[0])
+            out[m] = (t, spec)
+            self.data["mirrors"].update(below)  # the mirrors below an escalated one keep their rebalanced ratios
+        return out
+
+    def _grow_for_compliance(self, trial: dict[str, Any], res: Audit, changed: list[str],
+                             judged: dict[str, list[int]]) -> list[str]:
+        grown = []
+        for m in changed:
+            idx = judged[m]
+            if not idx:
+                continue
+            short = -float(np.min(res.compliance[idx]))
+            if not 0 < short < 0.15:
+                continue
+            spec = trial["mirrors"][m]
+            size = spec.get("input_size", 1.0)
+            biggest = size * max([1.0] + [b.get("ratio", 1.0) for b in spec["branches"]])
+            k = min(int(self.rules.max_units // biggest), math.ceil(math.exp(1.3 * short / 0.0259)))
+            if k < 2:
+                continue
+            trial["mirrors"][m] = dict(spec, input_size=size * k)
+            grown.append(m)
+        return grown
+
+    def _split_for(self, mirror: str, load: str, actions: dict[str, tuple[str, Any, str]]) -> None:
+        spec = self.data["mirrors"][mirror]
+        tree = self.tree
+        assert tree is not None
+        if (self.rules.split and len(spec["branches"]) > 1 and load not in actions
+                and tree.m_in_branch[tree.mirrors.index(mirror)] >= 0):
+            actions[load] = ("split", mirror, f"no topology passes every block of {mirror}: {load} gets a mirror of its own")
+
+    # --- helpers on the current result --------------------------------------
+
+    def _allowed(self, mirror: str, topology: str, loads: list[str], fresh: bool = False) -> bool:
+        topo = TOPOLOGIES[topology]
+        family = _family(self.data, mirror)
+        if family not in topo.kinds:
+            return False
+        if self.rules.topologies is not None and topology not in self.rules.topologies:
+            return False
+        for name in loads:
+            allowed = self.rules.block_topologies.get(name)
+            if allowed is not None and topology not in allowed:
+                return False
+        branches = self.data["mirrors"][mirror]["branches"]
+        if topo.single_output and (len(branches) != 1 or branches[0].get("count", 1) != 1):
+            return False
+        return fresh or topology not in self.tried.setdefault(mirror, set())
+
+    def _loads_below(self, mirror: str) -> list[str]:
+        loads = self.data["loads"]
+        return [b["to"] for b in self.data["mirrors"][mirror]["branches"] if b["to"] in loads]
+
+    def _set_topology(self, mirror: str, topology: str, why: str) -> None:
+        spec = self.data["mirrors"][mirror]
+        before = spec.get("topology", "simple")
+        spec["topology"] = topology
+        self.tried.setdefault(mirror, set()).add(topology)
+        self.changes.append(Change("topology", mirror, before, topology, why))
+
+    def _slack(self, load: int) -> float:
+        r = self.result
+        assert r is not None
+        return float(r.tolerance[load] - r.reference_tolerance - r.k_sigma * r.sigma[load])
+
+    # --- rebalance ----------------------------------------------------------
+
+    def _rebalance(self, failing_only: bool) -> bool:
+        """Cancel each block's systematic error with its branch ratio (whole units)."""
+        if not self.rules.rebalance:
+            return False
+        r, tree = self.result, self.tree
+        assert r is not None and tree is not None
+        err = r.error
+        mid = 0.5 * (err.max(axis=1) + err.min(axis=1))
+        acted = False
+        by_mirror: dict[int, list[int]] = {}
+        for i in range(len(tree.loads)):
+            if failing_only and r.passed[i]:
+                continue
+            slack = max(self._slack(i), 1e-4)
+            if r.compliance[i] < 0 or r.upstream[i] >= 0:
+                continue  # a current out of compliance says nothing about the ratio it needs
+            if abs(mid[i]) > 0.05 * slack and abs(mid[i]) < 0.9:
+                by_mirror.setdefault(int(tree.b_parent[tree.l_branch[i]]), []).append(i)
+        for m, loads in by_mirror.items():
+            name = tree.mirrors[m]
+            if self.touch is not None and name not in self.touch:
+                continue
+            spec = self.data["mirrors"][name]
+            branches = spec["branches"]
+            idx = {tree.b_index[tree.l_branch[i]]: i for i in loads}
+            ratios, allowed = [], []
+            for k, b in enumerate(branches):
+                if k in idx:
+                    i = idx[k]
+                    ratios.append(b.get("ratio", 1.0) / (1.0 + mid[i]))
+                    allowed.append(max(0.3 * max(self._slack(i), 0.0), 5e-4))
+                else:
+                    ratios.append(b.get("ratio", 1.0))
+                    allowed.append(1e-9 if b["to"] in self.data["loads"] else 0.01)
+            size = spec.get("input_size", 1.0)
+            if self.rules.whole:
+                got = realise(ratios, allowed, self.rules.max_units, start=int(size) if float(size).is_integer() else 1)
+                if got is None:
+                    continue
+                n_in, units = got
+                new = [u / n_in for u in units]
+            else:
+                n_in, new = size, ratios
+            before = [b.get("ratio", 1.0) for b in branches]
+            if all(abs(a - b) < 1e-15 for a, b in zip(before, new)) and n_in == size:
+                continue
+            old_text = self._ratio_text(branches, size)
+            spec["input_size"] = float(n_in)
+            for b, value in zip(branches, new):
+                b["ratio"] = value
+            self.changes.append(Change("rebalance", name, old_text, self._ratio_text(branches, n_in),
+                                       "ratios set to cancel the systematic error of " + ", ".join(tree.loads[i] for i in loads[:4])
+                                       + (" …" if len(loads) > 4 else "")))
+            acted = True
+        return acted
+
+    @staticmethod
+    def _ratio_text(branches: list[dict[str, Any]], size: float) -> str:
+        shown = ", ".join(f"{b['to']} {b.get('ratio', 1.0) * size:.4g}" for b in branches[:4])
+        return f"input {size:g} u; {shown}{' …' if len(branches) > 4 else ''}"
+
+    # --- topology, split, size, local ----------------------------------------
+
+    def _size(self, load: int, actions: dict[str, tuple[str, Any, str]]) -> bool:
+        """Larger devices on the stage with the largest mismatch σ (area law)."""
+        r, tree = self.result, self.tree
+        assert r is not None and tree is not None
+        if r.spread is None:
+            return False
+        stages = sorted(r.spread.stage_sigmas(load), key=lambda s: -s[1])
+        mm = r.k_sigma * float(r.sigma[load])
+        want = mm + float(r.margin[load])  # k·σ that would just pass
+        factor = (mm / want) ** 2 if want > 0 else 16.0
+        for name, _ in stages:
+            spec = self.data["mirrors"][name]
+            size = spec.get("input_size", 1.0)
+            biggest = size * max([1.0] + [b.get("ratio", 1.0) for b in spec["branches"]])
+            room = self.rules.max_units / biggest
+            if room < 2 - 1e-9:
+                continue
+            scale = max(2, min(int(room), math.ceil(factor * 1.1)))
+            actions.setdefault(name, ("size", scale, f"{format_si(mm, '')}·k-σ mismatch of {tree.loads[load]}"))
+            return True
+        return False
+
+    def _apply(self, actions: dict[str, tuple[str, Any, str]]) -> bool:
+        acted = False
+        for target, (kind, value, why) in actions.items():
+            if kind == "topology":
+                self._set_topology(target, value, why)
+            elif kind == "size":
+                spec = self.data["mirrors"][target]
+                before = spec.get("input_size", 1.0)
+                spec["input_size"] = before * value
+                self.changes.append(Change("size", target, f"input {before:g} u", f"input {before * value:g} u", why))
+            elif kind == "local":
+                fp = self.data["floorplan"]
+                fp["remote"] = [n for n in fp["remote"] if n != target]
+                self.changes.append(Change("local", target, "output device at the block (base/gate line routed)",
+                                           "current routed from an output beside the mirror", why))
+            elif kind == "split":
+                if not self._split(value, target, why):
+                    continue
+            acted = True
+        return acted
+
+    def _split(self, mirror: str, load: str, why: str) -> bool:
+        tree, r = self.tree, self.result
+        assert tree is not None and r is not None
+        mi = tree.mirrors.index(mirror)
+        pb = int(tree.m_in_branch[mi])
+        parent = tree.mirrors[int(tree.b_parent[pb])]
+        spec = self.data["mirrors"][mirror]
+        if len(spec["branches"]) < 2:
+            return False
+        k = next(j for j, b in enumerate(spec["branches"]) if b["to"] == load)
+        branch = spec["branches"].pop(k)
+        current = self.data["loads"][load]["current"]
+        pspec = self.data["mirrors"][parent]
+        p_in = float(r.op.m_i_in[tree.mirrors.index(parent), 1])
+        size = pspec.get("input_size", 1.0)
+        units = max(1, min(self.rules.max_units, round(current / p_in * size)))
+        # the new mirror's own ratio makes up what the parent's whole units miss
+        got = realise([current / (p_in * units / size)], [2e-3], self.rules.max_units)
+        n_new, u_new = got if got is not None else (1, [1])
+        new = f"{mirror}_{load}"
+        while new in self.data["mirrors"] or new in self.data["loads"]:
+            new += "_"
+        pspec["branches"].append({"to": new, "ratio": units / size, "count": branch.get("count", 1)})
+        self.data["mirrors"][new] = {"device": spec["device"], "input_size": float(n_new), "topology": "simple",
+                                     "branches": [{"to": load, "ratio": u_new[0] / n_new}]}
+        fp = self.data.get("floorplan")
+        if fp and fp.get("positions") and load in fp["positions"]:
+            fp["positions"][new] = fp["positions"][load]
+        self.changes.append(Change("split", load, f"on {mirror}", f"on its own mirror {new} fed by {parent}", why))
+        return True
