@@ -12,8 +12,10 @@ from __future__ import annotations
 import difflib
 from typing import TYPE_CHECKING, Any
 
+from pydantic import BaseModel
+
 from biastree.errors import format_path
-from biastree.input.model import BjtModel, Plan
+from biastree.input.model import BjtModel, Plan, Plausible
 from biastree.physics.topologies import TOPOLOGIES
 
 if TYPE_CHECKING:
@@ -210,9 +212,10 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
             in_cycle.update(cycle)  # a cycle is reported once, not as unreachable too
     for name in mirrors:
         if name not in fed_by:
-            problems.append((("mirrors", name), "never fed: no branch or reference drives this mirror"))
+            why = f" (reference.feeds names '{ref.feeds}')" if ref.feeds not in mirrors else ""
+            problems.append((("mirrors", name), f"never fed: no branch or reference drives this mirror{why}"))
         elif name not in reachable and name not in in_cycle:
-            problems.append((("mirrors", name), "not reachable from the reference (it hangs below a cycle)"))
+            problems.append((("mirrors", name), _unreachable(name, fed_by, in_cycle)))
     for name in loads:
         if name not in fed_by:
             problems.append((("loads", name), "never fed: no branch drives this load"))
@@ -225,7 +228,47 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
             problems.append(
                 (("loads", name, "voltage"), f"node voltage must lie between 0 V and the supply ({plan.supply:g} V)")
             )
+    problems += _check_instances(plan)
+    problems += check_plausible(plan)
     return problems
+
+
+MAX_INSTANCES = 1e9  # copies of one load, over all counts on its path
+
+
+def _check_instances(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
+    """Counts that multiply down the tree to more copies than any chip holds."""
+    mult = {plan.reference.feeds: 1.0}
+    out = []
+    for level in levels(plan):
+        for name in level:
+            for i, branch in enumerate(plan.mirrors[name].branches):
+                copies = mult.get(name, 1.0) * branch.count
+                if copies > MAX_INSTANCES:
+                    out.append((("mirrors", name, "branches", i, "count"),
+                                f"the counts above make {copies:.3g} copies of '{branch.to}'; at most {MAX_INSTANCES:.0e}"))
+                    copies = 1.0  # reported once, at the top
+                if branch.to in plan.mirrors:
+                    mult[branch.to] = copies
+    return out
+
+
+def _unreachable(name: str, fed_by: dict[str, tuple[Any, ...]], in_cycle: set[str]) -> str:
+    """Why a fed mirror is not reachable: the first unfed ancestor or the cycle above it."""
+    seen = {name}
+    node = name
+    while True:
+        where = fed_by.get(node)
+        if where is None:
+            return f"not reachable from the reference: '{node}' above it is never fed"
+        if where[0] == "reference":
+            return "not reachable from the reference"  # not expected: reachable by definition
+        node = where[1]
+        if node in in_cycle:
+            return f"not reachable from the reference (it hangs below the cycle through '{node}')"
+        if node in seen:
+            return "not reachable from the reference (it hangs below a cycle)"
+        seen.add(node)
 
 
 def plan_graph(plan: Plan) -> "nx.DiGraph":
@@ -279,4 +322,106 @@ def check_floorplan(plan: Any) -> list[tuple[tuple[Any, ...], str]]:
     for name in fp.offsets:
         if name not in fp.remote:
             out.append((("floorplan", "offsets", name), f"'{name}' is not listed under remote"))
+    return out
+
+
+# --- plausible values -------------------------------------------------------
+
+
+def _ranges(model: type) -> list[tuple[str, Any, Any]]:
+    """(field name, Plausible or None, alias) of the fields of a model class
+    that carry a range or hold nested values (cached per class)."""
+    cached = _RANGES.get(model)
+    if cached is None:
+        cached = []
+        for name, field in model.model_fields.items():
+            mark = next((m for m in field.metadata if isinstance(m, Plausible)), None)
+            if mark is None:
+                mark = _inner_mark(field.annotation)
+            cached.append((name, mark, field.alias or name))
+        _RANGES[model] = cached
+    return cached
+
+
+_RANGES: dict[type, list[tuple[str, Any, Any]]] = {}
+
+
+def _inner_mark(annotation: Any) -> Any:
+    """The Plausible mark of Annotated[...] inside Optional/list/tuple/Union annotations."""
+    from typing import get_args
+
+    for arg in get_args(annotation):
+        meta = getattr(arg, "__metadata__", None)
+        if meta:
+            mark = next((m for m in meta if isinstance(m, Plausible)), None)
+            if mark is not None:
+                return mark
+        mark = _inner_mark(arg)
+        if mark is not None:
+            return mark
+    return None
+
+
+def _outside(value: float, mark: Plausible) -> bool:
+    x = abs(value) if mark.magnitude else value
+    return not (mark.low <= x <= mark.high)
+
+
+def _value_text(value: float, mark: Plausible) -> str:
+    from biastree.units import format_si
+
+    if mark.unit == "%":
+        return f"{value * 100:.4g}%"
+    if mark.unit == "K":
+        return f"{value - 273.15:.4g}C"
+    if mark.unit == "":
+        return f"{value:.4g}"
+    if value == 0 or 1e-18 <= abs(value) < 1e15:
+        return format_si(value, mark.unit)
+    return f"{value:.3g} {mark.unit}".strip()
+
+
+def _range_text(mark: Plausible) -> str:
+    lo, hi = _value_text(mark.low, mark), _value_text(mark.high, mark)
+    return f"magnitude at most {hi}" if mark.magnitude and mark.low == 0 else f"{lo} … {hi}"
+
+
+def check_plausible(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
+    """Values outside the plausible range of an on-chip bias network (see
+    ``Plausible`` on each field), except under the plan's ``allow_unusual`` keys.
+
+    >>> from biastree.input.model import Load
+    >>> plan = Plan.model_construct(loads={"a": Load(current=20, tolerance=0.05, voltage=1)}, allow_unusual=[])
+    >>> check_plausible(plan)[0][0]
+    ('loads', 'a', 'current')
+    """
+    allowed = [tuple(p.split(".")) for p in getattr(plan, "allow_unusual", [])]
+    out: list[tuple[tuple[Any, ...], str]] = []
+
+    def allowed_at(path: tuple[Any, ...]) -> bool:
+        parts = tuple(str(k) for k in path if not isinstance(k, int))
+        return any(parts[: len(a)] == a for a in allowed)
+
+    def report(path: tuple[Any, ...], value: float, mark: Plausible) -> None:
+        if allowed_at(path):
+            return
+        key = ".".join(str(k) for k in path if not isinstance(k, int))
+        out.append((path, f"{_value_text(value, mark)} is outside the plausible range for an on-chip bias network "
+                          f"({_range_text(mark)}); if you mean it, list '{key}' under allow_unusual"))
+
+    def visit(value: Any, mark: Any, path: tuple[Any, ...]) -> None:
+        if isinstance(value, BaseModel):
+            for name, inner, alias in _ranges(type(value)):
+                visit(getattr(value, name, None), inner, path + (alias,))
+        elif isinstance(value, dict):
+            for key, item in value.items():
+                visit(item, mark, path + (key,))
+        elif isinstance(value, (list, tuple)):
+            for k, item in enumerate(value):
+                visit(item, mark, path + (k,))
+        elif mark is not None and isinstance(value, (int, float)) and not isinstance(value, bool):
+            if _outside(float(value), mark):
+                report(path, float(value), mark)
+
+    visit(plan, None, ())
     return out
