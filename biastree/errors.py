@@ -73,7 +73,14 @@ class PlanError(BiasTreeError):
 
 
 class SolveError(BiasTreeError):
-    """The operating point could not be found (e.g. the iteration diverged)."""
+    """The operating point could not be found (e.g. the iteration diverged), or
+    the solved result is not physical.  ``path`` is the key path of the plan
+    entry it concerns (e.g. ``("mirrors", "m2")``), so the CLI can print
+    ``file:line: mirrors.m2: message``."""
+
+    def __init__(self, message: str, path: tuple[Any, ...] = ()) -> None:
+        super().__init__(message)
+        self.path = tuple(path)
 
 
 class SimulatorError(BiasTreeError):

@@ -142,7 +142,21 @@ def raw_name_problems(data: Any) -> list[tuple[tuple[Any, ...], str]]:
 
 def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
     """Every structural problem of the plan as (key path, message)."""
+    return _structure(plan)[0]
+
+
+def structure_tagged(plan: Plan) -> list[tuple[tuple[Any, ...], str, str]]:
+    """``check_structure`` with what each problem depends on beyond its own
+    place: ``reach`` (every feed), ``supply``, ``kind:m1:m2`` (those mirrors'
+    device kinds) or ``""``.  The loader uses it to keep the structural
+    problems that field errors elsewhere do not make meaningless."""
+    problems, tags = _structure(plan)
+    return [(path, message, tags.get(i, "")) for i, (path, message) in enumerate(problems)]
+
+
+def _structure(plan: Plan) -> tuple[list[tuple[tuple[Any, ...], str]], dict[int, str]]:
     problems: list[tuple[tuple[Any, ...], str]] = []
+    tags: dict[int, str] = {}
     mirrors, loads, devices = plan.mirrors, plan.loads, plan.devices
     for name in sorted(set(mirrors) & set(loads)):
         problems.append((("loads", name), f"'{name}' names both a mirror and a load; names must be unique"))
@@ -163,6 +177,7 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
             problems.append(
                 (("mirrors", name, "topology"), f"topology '{topo.name}' is not available for {device.kind} devices")
             )
+            tags[len(problems) - 1] = f"kind:{name}"
         problems += _topology_params(name, mirror, topo)
 
     fed_by: dict[str, tuple[Any, ...]] = {}
@@ -199,6 +214,7 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
                         f"not {kinds[target]} mirror '{target}'",
                     )
                 )
+                tags[len(problems) - 1] = f"kind:{name}:{target}"
 
     reachable = {m for level in levels(plan) for m in level}
     reachable |= {b.to for m in reachable for b in mirrors[m].branches if b.to in loads}
@@ -214,11 +230,14 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
         if name not in fed_by:
             why = f" (reference.feeds names '{ref.feeds}')" if ref.feeds not in mirrors else ""
             problems.append((("mirrors", name), f"never fed: no branch or reference drives this mirror{why}"))
+            tags[len(problems) - 1] = "reach"
         elif name not in reachable and name not in in_cycle:
             problems.append((("mirrors", name), _unreachable(name, fed_by, in_cycle)))
+            tags[len(problems) - 1] = "reach"
     for name in loads:
         if name not in fed_by:
             problems.append((("loads", name), "never fed: no branch drives this load"))
+            tags[len(problems) - 1] = "reach"
 
     problems += check_floorplan(plan)
     problems += _check_spread(plan)
@@ -228,9 +247,10 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
             problems.append(
                 (("loads", name, "voltage"), f"node voltage must lie between 0 V and the supply ({plan.supply:g} V)")
             )
+            tags[len(problems) - 1] = "supply"
     problems += _check_instances(plan)
     problems += check_plausible(plan)
-    return problems
+    return problems, tags
 
 
 MAX_INSTANCES = 1e9  # copies of one load, over all counts on its path
