@@ -195,8 +195,8 @@ def _product(suffix: str, text: str, unit: str) -> int:
     parts = _split_product(suffix)
     first = "V" if unit == "V*m" else "%"
     if parts is None or not parts[0].endswith(first) or not parts[1].endswith("m"):
-        shown = "5mV*um" if unit == "V*m" else "1%*um"
-        raise UnitError(f"'{shown(text)}' is not a matching coefficient (write it like {shown})")
+        like = "5mV*um" if unit == "V*m" else "1%*um"
+        raise UnitError(f"'{shown(text)}' is not a matching coefficient (write it like {like})")
     left = parts[0][: -len(first)]
     power = -2 if first == "%" else 0
     return power + _prefix_value(left, text, unit) + _prefix_value(parts[1][:-1], text, unit)

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from biastree.analysis.audit import Audit, audit
 from biastree.analysis.corners import evaluate, has_conditions
+from biastree.analysis.plausible import check_result
 from biastree.analysis.solve import solve
 from biastree.analysis.spread import analytic, has_coefficients
 from biastree.tree.arrays import Tree
@@ -21,7 +22,8 @@ def check_tree(tree: Tree, conditions: bool = True, mismatch: bool = True,
     worst case counts; when its devices carry matching coefficients, k·σ of
     mismatch (k from the plan's spread.k_sigma unless given) counts too.
     ``detail=False`` skips the error terms and output resistances (verdicts only).
+    A result that is not physical raises ``SolveError`` (``analysis.plausible``).
     """
     cond = evaluate(tree) if conditions and has_conditions(tree) else None
     spread = analytic(tree) if mismatch and has_coefficients(tree.plan) else None
-    return audit(solve(tree, output_resistance=detail), cond, spread, k_sigma)
+    return check_result(audit(solve(tree, output_resistance=detail), cond, spread, k_sigma))
