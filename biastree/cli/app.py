@@ -30,10 +30,10 @@ INTERRUPTED = 130  # the shell's status for a process ended by SIGINT
 
 
 class Interrupted(BaseException):
-    """SIGTERM, turned into an exception so that cleanups (``finally``) run."""
+    """SIGTERM or SIGINT, turned into an exception so that cleanups (``finally``) run."""
 
 
-def _on_sigterm(signum: int, frame: object) -> None:
+def _on_signal(signum: int, frame: object) -> None:
     raise Interrupted()
 
 
@@ -67,9 +67,12 @@ class _Group(TyperGroup):
     """Usage errors in one line, Ctrl-C and SIGTERM as one line and exit 130."""
 
     def main(self, *args: Any, standalone_mode: bool = True, **kwargs: Any) -> Any:  # type: ignore[override]
-        previous = None
+        _flags_without_type(self)
+        previous: dict[int, Any] = {}
         if standalone_mode and threading_main():
-            previous = signal.signal(signal.SIGTERM, _on_sigterm)
+            # both signals become Interrupted, which typer does not swallow, so the
+            # cleanups run and one line is printed
+            previous = {sig: signal.signal(sig, _on_signal) for sig in (signal.SIGTERM, signal.SIGINT)}
         try:
             code = super().main(*args, standalone_mode=False, **kwargs)
         except click.exceptions.NoArgsIsHelpError as exc:  # `biastree` alone: the help
@@ -85,11 +88,19 @@ class _Group(TyperGroup):
             sys.stdout = open(os.devnull, "w")  # noqa: SIM115  (Python flushes it at exit)
             code = 1
         finally:
-            if previous is not None:
-                signal.signal(signal.SIGTERM, previous)
+            for sig, handler in previous.items():
+                signal.signal(sig, handler)
         if not standalone_mode:
             return code
         sys.exit(code if isinstance(code, int) else 0)
+
+
+def _flags_without_type(group: Any) -> None:
+    """Show on/off options in help as plain flags (``--json``), not ``--json <bool>``."""
+    for command in group.commands.values():
+        for param in command.params:
+            if getattr(param, "is_flag", False):
+                param.display_type_rich = lambda ctx: None
 
 
 def threading_main() -> bool:

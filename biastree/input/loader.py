@@ -255,7 +255,8 @@ def _yaml_problem(exc: yaml.YAMLError, text: str) -> Problem:
                            "escaped inside double quotes)", line)
     mark = getattr(exc, "problem_mark", None)
     what = getattr(exc, "problem", None) or str(exc).splitlines()[0]
-    if "'\\t'" in what or "tab" in what:
+    at_tab = mark is not None and 0 <= mark.index < len(text) and text[mark.index] == "\t"
+    if "'\\t'" in what or "tab" in what or at_tab:
         what += " (a tab: YAML indents with spaces only)"
     line = mark.line + 1 if mark is not None else None
     return Problem("", f"YAML syntax error: {what}", line)
