@@ -213,12 +213,12 @@ runner = CliRunner()
 LINE = re.compile(r"^error: (?P<file>.+?)(:(?P<line>\d+))?: (?P<rest>.+)$")
 
 
-def run_case(path: Path, body: bytes) -> tuple[int, list[str]]:
+def run_case(path: Path, body: bytes, command: list[str]) -> tuple[int, list[str], str]:
     path.write_bytes(body)
     previous = signal.signal(signal.SIGALRM, _alarm)
     signal.alarm(CASE_SECONDS)
     try:
-        result = runner.invoke(app, ["check", str(path)])
+        result = runner.invoke(app, [command[0], str(path), *command[1:]])
     except Hang:
         pytest.fail(f"hang: check ran longer than {CASE_SECONDS} s on\n{body[:2000]!r}")
     finally:
@@ -228,10 +228,16 @@ def run_case(path: Path, body: bytes) -> tuple[int, list[str]]:
     if result.exception is not None and not isinstance(result.exception, SystemExit):
         raise AssertionError(f"exception {result.exception!r} on\n{body[:2000]!r}") from result.exception
     errors = [line for line in result.stderr.splitlines() if line]
-    return result.exit_code, errors
+    return result.exit_code, errors, result.stdout
 
 
-STATS = {"cases": 0, "exit": {0: 0, 1: 0, 2: 0}}
+def _record(code: int, errors: list[str]) -> None:
+    """With BIASTREE_FUZZ_REPORT=FILE, append each case's exit status and first message (for the counts in notes)."""
+    report = os.environ.get("BIASTREE_FUZZ_REPORT")
+    if report:
+        first = LINE.match(errors[0])["rest"] if errors and LINE.match(errors[0]) else ""
+        with open(report, "a", encoding="utf-8") as handle:
+            handle.write(f"{code}\t{len(errors)}\t{first[:160]}\n")
 
 
 @settings(max_examples=CASES, deadline=None, database=None, derandomize=os.environ.get("CI", "").lower() == "true",
@@ -248,10 +254,10 @@ def test_broken_plans_fail_cleanly(tmp_path_factory: pytest.TempPathFactory, dat
     text = json.dumps(plan, indent=1) if fmt == "json" else yaml.safe_dump(plan, allow_unicode=True, sort_keys=False)
     body = _mutate_text(draw, text) if fmt == "yaml" else (b"\xef\xbb\xbf" + text.encode() if draw(st.booleans()) else text.encode())
     path = tmp_path_factory.mktemp("fuzz") / f"plan.{fmt}"
-    code, errors = run_case(path, body)
-    STATS["cases"] += 1
+    command = draw(st.sampled_from([["check"], ["check"], ["check"], ["check", "--json"], ["netlist"]]))
+    code, errors, out = run_case(path, body, command)
+    _record(code, errors)
     assert code in (0, 1, 2), f"exit {code}: {errors}\non {body[:2000]!r}"
-    STATS["exit"][code] += 1
     if code == 2:
         assert errors, f"exit 2 without a message on {body[:2000]!r}"
         for line in errors:
@@ -260,5 +266,10 @@ def test_broken_plans_fail_cleanly(tmp_path_factory: pytest.TempPathFactory, dat
             assert len(line) <= 700 and line.isprintable(), f"message too long or not printable: {line[:300]!r}"
     else:
         assert not errors, errors
+        if "--json" in command:
+            json.loads(out, parse_constant=lambda c: pytest.fail(f"{c} in the JSON results"))
+        if command[0] == "netlist":
+            cards = "\n".join(line for line in out.splitlines() if not line.startswith("*"))  # not the comments
+            assert not re.search(r"\b(nan|inf)\b", cards, re.IGNORECASE), "non-finite number in the netlist"
         result = biastree.check(str(path))
         assert _finite(result), f"non-finite numbers in the verdict of {body[:2000]!r}"

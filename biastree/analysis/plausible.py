@@ -10,9 +10,10 @@ pass or a fail:
 * any number that is not finite (NaN, ±inf) in currents, voltages, errors or margins;
 * a mirror input voltage (V_BE or V_GS) that is not positive or exceeds the supply;
 * a compliance margin or reference headroom larger than the supply;
-* a branch current more than ``OVERDRIVE`` times what the ratios make of the
-  reference current (no mirror multiplies its input by more than its ratio
-  plus an Early/λ term of a few tens of percent).
+* a branch current more than ``OVERDRIVE`` times its ratio times its own
+  mirror's input current (no mirror stage multiplies its input by more than
+  its ratio plus an Early/λ term of a few tens of percent; a deep chain may
+  compound such terms, so the check is per stage, not against the reference).
 """
 
 from __future__ import annotations
@@ -86,14 +87,14 @@ def check_result(result: Audit) -> Audit:
         _fail(("reference",), f"reference headroom {format_si(result.reference_headroom, 'V')} is larger than "
                               f"the supply ({format_si(top, 'V')})")
 
-    ideal = tree.m_ideal_in[tree.b_parent] * tree.b_ratio
-    scale = op.i_ref[None, :] / tree.plan.reference.current  # the reference's own tolerance/tempco
-    over = op.b_current > OVERDRIVE * ideal[:, None] * np.maximum(scale, 1.0)
+    # per stage: a deep chain may compound small Early gains into a large total, which is real
+    ideal = op.m_i_in[tree.b_parent] * tree.b_ratio[:, None]
+    over = op.b_current > OVERDRIVE * ideal
     b = _first(over)
     if b is not None:
         parent = mirrors[int(tree.b_parent[b])]
         col = int(np.argmax(over[b]))
         _fail(("mirrors", parent, "branches", int(tree.b_index[b])),
               f"this branch of '{parent}' carries {format_si(float(op.b_current[b, col]), 'A')}, more than "
-              f"{OVERDRIVE:g}× the {format_si(float(ideal[b]), 'A')} its ratios give from the reference")
+              f"{OVERDRIVE:g}× the {format_si(float(ideal[b, col]), 'A')} its ratio makes of the mirror's input")
     return result
