@@ -248,9 +248,14 @@ def _temperature(number_text: str, suffix: str, text: str) -> float:
     return kelvin
 
 
+TINY = 1e-60  # below any physical value a plan holds; near it, divisions overflow
+
+
 def _finite(number: float, text: str) -> float:
     if not math.isfinite(number):
         raise UnitError(f"'{shown(text)}' is not a finite number")
+    if number != 0 and abs(number) < TINY:
+        raise UnitError(f"'{shown(text)}' is too small to compute with (nonzero values must exceed {TINY:g})")
     return number
 
 

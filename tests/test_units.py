@@ -70,6 +70,8 @@ def test_prefix_parsing_is_exact() -> None:
         (float("inf"), "V", "not a finite number"),
         (10**400, "V", "too large for a number"),
         ("1e99999999999999999999V", "V", "not a finite number"),
+        ("1e-320A", "A", "too small to compute with"),
+        (1e-320, "A", "too small to compute with"),
         ("x" * 1000, "A", r"… \(1000 characters\)"),
     ],
 )
