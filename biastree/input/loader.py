@@ -361,6 +361,8 @@ _MESSAGES = {
     "int_from_float": "must be a whole number",
     "int_type": "must be a whole number",
     "dict_type": "must be a mapping of keys",
+    "model_attributes_type": "must be a mapping of keys",
+    "string_too_long": "must be at most {max_length} characters",
     "list_type": "must be a list",
     "string_type": "must be text",
     "float_type": "must be a number",
