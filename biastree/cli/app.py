@@ -3,7 +3,7 @@
 Exit status: 0 every load passes (or the command succeeded), 1 some load
 fails its budget (or the simulator disagrees), 2 invalid input or usage,
 3 an internal error (a bug in biastree; please report it), 130 interrupted
-(Ctrl-C or SIGTERM; no output file is left half written).
+(Ctrl-C; nothing written).
 """
 
 from __future__ import annotations
@@ -215,6 +215,9 @@ def guarded(fn: F) -> F:
             _fail([shown(" ".join(str(exc).split()), 400)] if str(exc) else [type(exc).__name__])
         except (typer.Exit, typer.Abort, SystemExit, BrokenPipeError):
             raise
+        except KeyboardInterrupt:  # Ctrl-C: outputs are written whole or not at all
+            typer.echo("\ninterrupted: nothing written", err=True)
+            raise typer.Exit(130) from None
         except RecursionError:
             typer.echo("error: the plan is nested too deeply to process", err=True)
             raise typer.Exit(2) from None
@@ -239,7 +242,11 @@ def emit(text: str, output: Optional[Path]) -> None:
 
 
 def load_tree(plan: Path, forward_bias: Optional[str] = None) -> biastree.Tree:
-    tree = biastree.load(plan)
+    return with_forward_bias(biastree.load(plan), forward_bias, str(plan))
+
+
+def with_forward_bias(tree: biastree.Tree, forward_bias: Optional[str], source: str) -> biastree.Tree:
+    """The tree with ``--forward-bias`` applied (unchanged when not given)."""
     if forward_bias is not None:
         from biastree.input.model import Compliance
         from biastree.units import UnitError, parse_quantity
@@ -251,7 +258,7 @@ def load_tree(plan: Path, forward_bias: Optional[str] = None) -> biastree.Tree:
         if value < 0:
             raise BiasTreeError("--forward-bias: must be ≥ 0 V")
         new = tree.plan.model_copy(update={"compliance": Compliance(bjt_forward_bias=value)})
-        tree = biastree.build(new, source=str(plan))
+        tree = biastree.build(new, source=source)
     return tree
 
 
