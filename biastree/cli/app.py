@@ -218,12 +218,12 @@ def guarded(fn: F) -> F:
         except KeyboardInterrupt:  # Ctrl-C: outputs are written whole or not at all
             typer.echo("\ninterrupted: nothing written", err=True)
             raise typer.Exit(130) from None
-        except RecursionError:
-            typer.echo("error: the plan is nested too deeply to process", err=True)
-            raise typer.Exit(2) from None
         except Exception as exc:  # a bug: say so in one line unless debugging
             if os.environ.get("BIASTREE_DEBUG"):
                 raise
+            if isinstance(exc, RecursionError):
+                typer.echo("error: the plan is nested too deeply to process", err=True)
+                raise typer.Exit(2) from None
             typer.echo(f"internal error (a bug in biastree, please report): {type(exc).__name__}: "
                        f"{shown(' '.join(str(exc).split()), 300)}", err=True)
             raise typer.Exit(3) from None
