@@ -212,7 +212,8 @@ def guarded(fn: F) -> F:
         except SolveError as exc:
             _fail(_located(exc, kwargs))
         except BiasTreeError as exc:
-            _fail([shown(" ".join(str(exc).split()), 400)] if str(exc) else [type(exc).__name__])
+            # one problem a line (some errors list several), each line short and printable
+            _fail([shown(line, 400) for line in str(exc).splitlines() if line.strip()] or [type(exc).__name__])
         except (typer.Exit, typer.Abort, SystemExit, BrokenPipeError):
             raise
         except KeyboardInterrupt:  # Ctrl-C: outputs are written whole or not at all
