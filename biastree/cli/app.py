@@ -29,8 +29,9 @@ from biastree.errors import BiasTreeError, PlanError, SolveError, shown
 INTERRUPTED = 130  # the shell's status for a process ended by SIGINT
 
 
-class Interrupted(BaseException):
-    """SIGTERM or SIGINT, turned into an exception so that cleanups (``finally``) run."""
+class Interrupted(KeyboardInterrupt):
+    """SIGTERM, turned into the exception Ctrl-C raises, so that cleanups
+    (``finally``) run and the same one-line message and exit 130 follow."""
 
 
 def _on_signal(signum: int, frame: object) -> None:
@@ -70,9 +71,7 @@ class _Group(TyperGroup):
         _flags_without_type(self)
         previous: dict[int, Any] = {}
         if standalone_mode and threading_main():
-            # both signals become Interrupted, which typer does not swallow, so the
-            # cleanups run and one line is printed
-            previous = {sig: signal.signal(sig, _on_signal) for sig in (signal.SIGTERM, signal.SIGINT)}
+            previous = {signal.SIGTERM: signal.signal(signal.SIGTERM, _on_signal)}
         try:
             code = super().main(*args, standalone_mode=False, **kwargs)
         except click.exceptions.NoArgsIsHelpError as exc:  # `biastree` alone: the help
@@ -81,7 +80,7 @@ class _Group(TyperGroup):
         except click.exceptions.ClickException as exc:
             click.echo(f"error: {usage_line(exc)}", err=True)
             code = exc.exit_code
-        except (KeyboardInterrupt, Interrupted, typer.Abort):
+        except (KeyboardInterrupt, typer.Abort):  # outside a command (inside, `guarded` says it)
             click.echo("error: interrupted", err=True)
             code = INTERRUPTED
         except BrokenPipeError:  # the reader went away (e.g. `| head`): stop quietly
