@@ -134,7 +134,7 @@ SaturationCurrent = Quantity("A", "1e-17A", Gt(0), plausible=(1e-24, 1e-9))
 # β and V_A have no practical upper bound: very large values make ideal devices
 Beta = Quantity("1", "120", Gt(0), plausible=(1.0, 1e15), shown_unit="")
 EarlyVoltage = Quantity("V", "60V", Gt(0), plausible=(0.5, 1e15))
-Ratio = Quantity("1", "2", Gt(0), plausible=(1e-3, 1e4), shown_unit="")
+Ratio = Quantity("1", "2", Gt(0), plausible=(1e-6, 1e6), shown_unit="")
 Exponent = Quantity("1", "-1.5", plausible=(0.0, 5.0), magnitude=True, shown_unit="")
 PerKelvin2 = Quantity("1", "1e-6", plausible=(0.0, 1e-3), magnitude=True, shown_unit="/K²")
 Kelvin = Quantity("K", "2K", plausible=(0.0, 100.0), magnitude=True)
