@@ -25,6 +25,24 @@ def format_path(path: tuple[Any, ...]) -> str:
     return out
 
 
+def shown(text: object, limit: int = 40) -> str:
+    """A value as it may appear in a one-line message: control characters and
+    lone surrogates escaped, and only a short prefix of a long value.
+
+    >>> shown("ab\\x01c")
+    'ab\\\\x01c'
+    >>> shown("x" * 100, 5)
+    'xxxxx… (100 characters)'
+    """
+    raw = str(text)
+    cut = raw[:limit]
+    out = "".join(c if c.isprintable() else c.encode("unicode_escape", "backslashreplace").decode("ascii") for c in cut)
+    return out if len(raw) <= limit else f"{out}… ({len(raw)} characters)"
+
+
+MAX_MESSAGE = 400  # characters of one problem's message; the rest is cut
+
+
 @dataclass(frozen=True)
 class Problem:
     """One thing wrong with a plan, with the place it was found."""
@@ -34,10 +52,12 @@ class Problem:
     line: int | None = None
 
     def format(self, source: str | None = None) -> str:
-        where = source or "plan"
+        where = shown(source or "plan", 200)
         if self.line is not None:
             where = f"{where}:{self.line}"
-        return f"{where}: {self.path}: {self.message}" if self.path else f"{where}: {self.message}"
+        message = shown(" ".join(self.message.split("\n")), MAX_MESSAGE)
+        path = shown(self.path, 120)
+        return f"{where}: {path}: {message}" if self.path else f"{where}: {message}"
 
 
 class PlanError(BiasTreeError):
@@ -53,7 +73,14 @@ class PlanError(BiasTreeError):
 
 
 class SolveError(BiasTreeError):
-    """The operating point could not be found (e.g. the iteration diverged)."""
+    """The operating point could not be found (e.g. the iteration diverged), or
+    the solved result is not physical.  ``path`` is the key path of the plan
+    entry it concerns (e.g. ``("mirrors", "m2")``), so the CLI can print
+    ``file:line: mirrors.m2: message``."""
+
+    def __init__(self, message: str, path: tuple[Any, ...] = ()) -> None:
+        super().__init__(message)
+        self.path = tuple(path)
 
 
 class SimulatorError(BiasTreeError):

@@ -17,11 +17,14 @@ from __future__ import annotations
 import functools
 import math
 import re
-from decimal import Decimal
+from decimal import Decimal, DecimalException
 
-# One table of SI prefixes.  'M' is mega as in SI (not milli as in SPICE);
-# 'meg' is accepted too because SPICE users type it by habit.
-# Stored as powers of ten so that '10uA' parses to exactly the float 1e-05.
+from biastree.errors import shown
+
+# One table of SI prefixes.  'm' is milli (SI and SPICE agree); mega is
+# written 'meg' (any case, as in SPICE).  A capital 'M' is refused: SI reads
+# it as mega, SPICE (case-insensitive) as milli, so any guess is wrong for
+# someone.  Stored as powers of ten so that '10uA' parses to exactly 1e-05.
 PREFIXES: dict[str, int] = {
     "a": -18,
     "f": -15,
@@ -34,7 +37,6 @@ PREFIXES: dict[str, int] = {
     "": 0,
     "k": 3,
     "meg": 6,
-    "M": 6,
     "G": 9,
     "T": 12,
 }
@@ -74,14 +76,28 @@ class UnitError(ValueError):
 def _split(text: str) -> tuple[str, str]:
     match = _NUMBER.match(text)
     if not match:
-        raise UnitError(f"'{text}' is not a number")
+        if text.strip().lower().lstrip("+-") in ("nan", "inf", "infinity", ".nan", ".inf"):
+            raise UnitError(f"'{shown(text)}' is not a finite number")
+        raise UnitError(f"'{shown(text)}' is not a number")
     return match.group(1), match.group(2)
+
+
+def _plain_fraction(number: float, text: str) -> float:
+    """A percentage field given without '%' is a fraction; above 1 it is almost
+    certainly a slip (``tolerance: 5`` meant 5 %, not 500 %)."""
+    if abs(number) > 1:
+        raise UnitError(f"'{shown(text)}' — did you mean {shown(text)}%? (a plain number here is a fraction: 0.05 = 5%)")
+    return number
 
 
 def _scaled(number: str, power: int) -> float:
     # Shift the decimal exponent in text so the result is correctly rounded.
-    return float(f"{number}e{power}") if "e" not in number.lower() else float(
-        Decimal(number).scaleb(power))
+    if "e" not in number.lower():
+        return float(f"{number}e{power}")
+    try:
+        return float(Decimal(number).scaleb(power))
+    except (DecimalException, OverflowError):  # an exponent beyond any float
+        return math.inf
 
 
 def _prefix_value(prefix: str, text: str, unit: str) -> int:
@@ -89,8 +105,17 @@ def _prefix_value(prefix: str, text: str, unit: str) -> int:
         return PREFIXES[prefix]
     if prefix.lower() == "meg":
         return 6
+    if prefix == "M":
+        number = _NUMBER.match(text)
+        n = number.group(1) if number else "1"
+        rest = text[len(n):].strip()[1:] if number else ""
+        raise UnitError(
+            f"'{shown(text)}': 'M' is mega in SI but milli in SPICE; write {n}m{rest} for milli "
+            f"or {n}meg{rest} for mega")
+    if prefix == "K" and unit not in ("C", "K"):
+        raise UnitError(f"'{shown(text)}': the kilo prefix is a small 'k' (write it like 2k{unit if unit != '1' else ''})")
     expected = f"a value in {unit}" if unit != "1" else "a plain number"
-    raise UnitError(f"'{text}' is not {expected} (unknown unit or prefix '{prefix}')")
+    raise UnitError(f"'{shown(text)}' is not {expected} (unknown unit or prefix '{shown(prefix)}')")
 
 
 def parse_quantity(value: object, unit: str) -> float:
@@ -107,10 +132,16 @@ def parse_quantity(value: object, unit: str) -> float:
     if isinstance(value, bool):
         raise UnitError(f"'{value}' is a boolean, not a quantity")
     if isinstance(value, (int, float)):
-        number = float(value)
+        try:
+            number = float(value)
+        except OverflowError:
+            raise UnitError(f"'{shown(value)}' is too large for a number") from None
+        number = _finite(number, str(value))
         if unit == "C":
-            return number + ZERO_CELSIUS
-        return _finite(number, str(value))
+            return _temperature(str(value), "", str(value))
+        if unit == "%":
+            return _plain_fraction(number, str(value))
+        return number
     if not isinstance(value, str):
         raise UnitError(f"expected a quantity, got {type(value).__name__}")
     return _parse_text(value, unit)
@@ -126,7 +157,7 @@ def _parse_text(value: str, unit: str) -> float:
             return _finite(_scaled(number, -2), text)
         if suffix == "ppm":
             return _finite(_scaled(number, -6), text)
-        return _finite(_scaled(number, _prefix_value(suffix, text, "%")), text)
+        return _plain_fraction(_finite(_scaled(number, _prefix_value(suffix, text, "%")), text), text)
     if unit == "C":
         return _temperature(number, suffix, text)
     if unit in ("V*m", "%*m"):
@@ -144,8 +175,8 @@ def _parse_text(value: str, unit: str) -> float:
         if other != unit and any(suffix.endswith(s) and s for s in other_symbols):
             if other in ("m",) and suffix in PREFIXES:
                 break  # '1m' in a current field is 1 mA, not a length
-            shown = symbols[0] if symbols else "no unit"
-            raise UnitError(f"'{text}' has unit {other}, expected {shown}")
+            want = symbols[0] if symbols else "no unit"
+            raise UnitError(f"'{shown(text)}' has unit {other}, expected {want}")
     return _finite(_scaled(number, _prefix_value(suffix, text, unit)), text)
 
 
@@ -164,8 +195,8 @@ def _product(suffix: str, text: str, unit: str) -> int:
     parts = _split_product(suffix)
     first = "V" if unit == "V*m" else "%"
     if parts is None or not parts[0].endswith(first) or not parts[1].endswith("m"):
-        shown = "5mV*um" if unit == "V*m" else "1%*um"
-        raise UnitError(f"'{text}' is not a matching coefficient (write it like {shown})")
+        like = "5mV*um" if unit == "V*m" else "1%*um"
+        raise UnitError(f"'{shown(text)}' is not a matching coefficient (write it like {like})")
     left = parts[0][: -len(first)]
     power = -2 if first == "%" else 0
     return power + _prefix_value(left, text, unit) + _prefix_value(parts[1][:-1], text, unit)
@@ -183,14 +214,14 @@ def _ratio(suffix: str, text: str, unit: str) -> int:
     num_unit, den_unit = _RATIOS[unit]
     num, sep, den = suffix.partition("/")
     if not sep or not den.endswith(den_unit):
-        raise UnitError(f"'{text}' is not a value in {unit}")
+        raise UnitError(f"'{shown(text)}' is not a value in {unit}")
     power = -_prefix_value(den[: -len(den_unit)], text, unit)
     if num_unit == "":
         if num not in _FRACTIONS:
-            raise UnitError(f"'{text}' is not a value in {unit} (use e.g. 50ppm/K or 0.005/K)")
+            raise UnitError(f"'{shown(text)}' is not a value in {unit} (use e.g. 50ppm/K or 0.005/K)")
         return power + _FRACTIONS[num]
     if not num.endswith(num_unit):
-        raise UnitError(f"'{text}' is not a value in {unit}")
+        raise UnitError(f"'{shown(text)}' is not a value in {unit}")
     return power + _prefix_value(num[: -len(num_unit)], text, unit)
 
 
@@ -201,25 +232,30 @@ def _area(suffix: str, text: str) -> int:
     for tail in ("m^2", "m2", "m²"):
         if suffix.endswith(tail):
             return 2 * _prefix_value(suffix[: -len(tail)], text, "m^2")
-    raise UnitError(f"'{text}' is not an area (write it like 4um^2)")
+    raise UnitError(f"'{shown(text)}' is not an area (write it like 4um^2)")
 
 
 def _temperature(number_text: str, suffix: str, text: str) -> float:
-    number = float(number_text)
+    number = _finite(float(number_text), text)
     if suffix in ("", "C", "°C", "degC"):
         kelvin = number + ZERO_CELSIUS
     elif suffix == "K":
         kelvin = number
     else:
-        raise UnitError(f"'{text}' is not a temperature (use 27C or 300K)")
+        raise UnitError(f"'{shown(text)}' is not a temperature (use 27C or 300K)")
     if kelvin <= 0:
-        raise UnitError(f"'{text}' is below absolute zero")
+        raise UnitError(f"'{shown(text)}' is at or below absolute zero")
     return kelvin
+
+
+TINY = 1e-60  # below any physical value a plan holds; near it, divisions overflow
 
 
 def _finite(number: float, text: str) -> float:
     if not math.isfinite(number):
-        raise UnitError(f"'{text}' is not a finite number")
+        raise UnitError(f"'{shown(text)}' is not a finite number")
+    if number != 0 and abs(number) < TINY:
+        raise UnitError(f"'{shown(text)}' is too small to compute with (nonzero values must exceed {TINY:g})")
     return number
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import pytest
@@ -184,3 +185,38 @@ def test_field_and_name_errors_in_one_run(write_plan) -> None:  # type: ignore[n
                for e in errors)
     lines = [int(e.split(".yaml:")[1].split(":")[0]) for e in errors]
     assert lines == sorted(lines)
+
+
+def test_out_of_range_value_needs_allow_unusual(write_plan) -> None:  # type: ignore[no-untyped-def]
+    # a 200 mA load is beyond the plausible range (1 pA … 100 mA) unless the plan says it means it
+    text = GOOD.replace("current: 40uA", "current: 200mA")
+    code, out = run_check(write_plan(text))
+    assert code == 2
+    assert "plan.yaml:16: loads.adc_bias.current: 200 mA is outside the plausible range for an on-chip bias network " \
+           "(1 pA … 100 mA); if you mean it, list 'loads.adc_bias.current' under allow_unusual" in out
+    code, out = run_check(write_plan(text + "allow_unusual: [loads.adc_bias.current]\n"))
+    assert code in (0, 1) and "plausible" not in out
+    code, out = run_check(write_plan(text + "allow_unusual: [loads]\n"))  # a whole section
+    assert code in (0, 1) and "plausible" not in out
+
+
+def test_percent_field_plain_number_hint(write_plan) -> None:  # type: ignore[no-untyped-def]
+    code, out = run_check(write_plan(GOOD.replace("tolerance: 30%, voltage: 1.5V", "tolerance: 5, voltage: 1.5V")))
+    assert code == 2 and "loads.adc_bias.tolerance: '5' — did you mean 5%?" in out
+    code, out = run_check(write_plan(GOOD.replace("tolerance: 30%, voltage: 1.5V", "tolerance: 0.3, voltage: 1.5V")))
+    assert code == 0, out  # a plain fraction ≤ 1 stays valid SI
+
+
+def test_usage_errors_are_one_line() -> None:
+    result = runner.invoke(app, ["check", "samples/bipolar_small.yaml", "--k-sigma", "abc"])
+    assert result.exit_code == 2
+    assert re.fullmatch(r"error: --k-sigma: 'abc' is not a number \(see '\S+ check --help'\)\n", result.stderr)
+    result = runner.invoke(app, ["check", "samples/bipolar_small.yaml", "--nope"])
+    assert result.exit_code == 2 and result.stderr.count("\n") == 1 and "No such option: --nope" in result.stderr
+
+
+def test_json_is_a_flag_in_help() -> None:
+    result = runner.invoke(app, ["check", "--help"])
+    lines = [line for line in result.output.splitlines()
+             if line.split()[:1] in (["--json"], ["--failing"])]
+    assert len(lines) == 2 and not any("<bool>" in line or "--no-json" in line for line in lines), lines

@@ -338,16 +338,13 @@ def _solve(
                         break
                     solve_generation(generation)
         if not np.all(np.isfinite(m_v_in)) or not np.all(np.isfinite(b_current)):
-            bad = [tree.mirrors[i] for i in np.flatnonzero(~np.all(np.isfinite(m_v_in), axis=1))][:3]
-            raise SolveError(
-                "no operating point: currents became invalid"
-                + (f" at mirror(s) {', '.join(bad)}" if bad else "")
-                + " (an output pushed far out of its active region, or the supply is too low)"
-            )
+            raise _no_operating_point(tree, m_v_in, b_current, cols)
         if np.max(np.abs(m_v_in - previous)) < VOLTAGE_TOL:
             break
     else:
-        raise SolveError(f"operating point did not converge in {MAX_SWEEPS} sweeps")
+        m = int(np.argmax(np.max(np.abs(m_v_in - previous), axis=1)))
+        raise SolveError(f"operating point did not converge in {MAX_SWEEPS} sweeps: the input voltage of mirror "
+                         f"'{tree.mirrors[m]}' keeps moving", ("mirrors", tree.mirrors[m]))
 
     # Distances into child mirrors with the final input voltages.
     distance[to_mirror] = supply - m_v_in[tree.b_child[to_mirror]]
@@ -374,6 +371,28 @@ def _solve(
         cases=cols.names,
         columns=cols,
         devices=dev,
+    )
+
+
+def _no_operating_point(tree: Tree, m_v_in: Array, b_current: Array, cols: Columns) -> SolveError:
+    """Name the first mirror, the quantity and the condition where the solve broke down."""
+    bad_v = ~np.isfinite(m_v_in)
+    bad_b = ~np.isfinite(b_current)
+    if bad_v.any():
+        m, col = (int(x[0]) for x in np.nonzero(bad_v))
+        what = "input voltage (V_BE)" if tree.m_bipolar[m] else "input voltage (V_GS)"
+        path: tuple[object, ...] = ("mirrors", tree.mirrors[m])
+    else:
+        b, col = (int(x[0]) for x in np.nonzero(bad_b))
+        m = int(tree.b_parent[b])
+        what = f"output current of branch {int(tree.b_index[b])}"
+        path = ("mirrors", tree.mirrors[m], "branches", int(tree.b_index[b]))
+    case = cols.names[col] if col < len(cols.names) else str(col)
+    return SolveError(
+        f"no operating point: the {what} of mirror '{tree.mirrors[m]}' is not a finite number in case {case} "
+        f"({cols.temperature[col] - 273.15:.4g} °C, supply {cols.supply[col]:.4g} V); a device parameter, "
+        "ratio or condition drives it outside the equations' range",
+        path,
     )
 
 

@@ -12,8 +12,10 @@ from __future__ import annotations
 import difflib
 from typing import TYPE_CHECKING, Any
 
+from pydantic import BaseModel
+
 from biastree.errors import format_path
-from biastree.input.model import BjtModel, Plan
+from biastree.input.model import BjtModel, Plan, Plausible
 from biastree.physics.topologies import TOPOLOGIES
 
 if TYPE_CHECKING:
@@ -140,7 +142,21 @@ def raw_name_problems(data: Any) -> list[tuple[tuple[Any, ...], str]]:
 
 def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
     """Every structural problem of the plan as (key path, message)."""
+    return _structure(plan)[0]
+
+
+def structure_tagged(plan: Plan) -> list[tuple[tuple[Any, ...], str, str]]:
+    """``check_structure`` with what each problem depends on beyond its own
+    place: ``reach`` (every feed), ``supply``, ``kind:m1:m2`` (those mirrors'
+    device kinds) or ``""``.  The loader uses it to keep the structural
+    problems that field errors elsewhere do not make meaningless."""
+    problems, tags = _structure(plan)
+    return [(path, message, tags.get(i, "")) for i, (path, message) in enumerate(problems)]
+
+
+def _structure(plan: Plan) -> tuple[list[tuple[tuple[Any, ...], str]], dict[int, str]]:
     problems: list[tuple[tuple[Any, ...], str]] = []
+    tags: dict[int, str] = {}
     mirrors, loads, devices = plan.mirrors, plan.loads, plan.devices
     for name in sorted(set(mirrors) & set(loads)):
         problems.append((("loads", name), f"'{name}' names both a mirror and a load; names must be unique"))
@@ -161,6 +177,7 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
             problems.append(
                 (("mirrors", name, "topology"), f"topology '{topo.name}' is not available for {device.kind} devices")
             )
+            tags[len(problems) - 1] = f"kind:{name}"
         problems += _topology_params(name, mirror, topo)
 
     fed_by: dict[str, tuple[Any, ...]] = {}
@@ -197,6 +214,7 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
                         f"not {kinds[target]} mirror '{target}'",
                     )
                 )
+                tags[len(problems) - 1] = f"kind:{name}:{target}"
 
     reachable = {m for level in levels(plan) for m in level}
     reachable |= {b.to for m in reachable for b in mirrors[m].branches if b.to in loads}
@@ -210,12 +228,16 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
             in_cycle.update(cycle)  # a cycle is reported once, not as unreachable too
     for name in mirrors:
         if name not in fed_by:
-            problems.append((("mirrors", name), "never fed: no branch or reference drives this mirror"))
+            why = f" (reference.feeds names '{ref.feeds}')" if ref.feeds not in mirrors else ""
+            problems.append((("mirrors", name), f"never fed: no branch or reference drives this mirror{why}"))
+            tags[len(problems) - 1] = "reach"
         elif name not in reachable and name not in in_cycle:
-            problems.append((("mirrors", name), "not reachable from the reference (it hangs below a cycle)"))
+            problems.append((("mirrors", name), _unreachable(name, fed_by, in_cycle)))
+            tags[len(problems) - 1] = "reach"
     for name in loads:
         if name not in fed_by:
             problems.append((("loads", name), "never fed: no branch drives this load"))
+            tags[len(problems) - 1] = "reach"
 
     problems += check_floorplan(plan)
     problems += _check_spread(plan)
@@ -225,7 +247,48 @@ def check_structure(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
             problems.append(
                 (("loads", name, "voltage"), f"node voltage must lie between 0 V and the supply ({plan.supply:g} V)")
             )
-    return problems
+            tags[len(problems) - 1] = "supply"
+    problems += _check_instances(plan)
+    problems += check_plausible(plan)
+    return problems, tags
+
+
+MAX_INSTANCES = 1e9  # copies of one load, over all counts on its path
+
+
+def _check_instances(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
+    """Counts that multiply down the tree to more copies than any chip holds."""
+    mult = {plan.reference.feeds: 1.0}
+    out = []
+    for level in levels(plan):
+        for name in level:
+            for i, branch in enumerate(plan.mirrors[name].branches):
+                copies = mult.get(name, 1.0) * branch.count
+                if copies > MAX_INSTANCES:
+                    out.append((("mirrors", name, "branches", i, "count"),
+                                f"the counts above make {copies:.3g} copies of '{branch.to}'; at most {MAX_INSTANCES:.0e}"))
+                    copies = 1.0  # reported once, at the top
+                if branch.to in plan.mirrors:
+                    mult[branch.to] = copies
+    return out
+
+
+def _unreachable(name: str, fed_by: dict[str, tuple[Any, ...]], in_cycle: set[str]) -> str:
+    """Why a fed mirror is not reachable: the first unfed ancestor or the cycle above it."""
+    seen = {name}
+    node = name
+    while True:
+        where = fed_by.get(node)
+        if where is None:
+            return f"not reachable from the reference: '{node}' above it is never fed"
+        if where[0] == "reference":
+            return "not reachable from the reference"  # not expected: reachable by definition
+        node = where[1]
+        if node in in_cycle:
+            return f"not reachable from the reference (it hangs below the cycle through '{node}')"
+        if node in seen:
+            return "not reachable from the reference (it hangs below a cycle)"
+        seen.add(node)
 
 
 def plan_graph(plan: Plan) -> "nx.DiGraph":
@@ -279,4 +342,106 @@ def check_floorplan(plan: Any) -> list[tuple[tuple[Any, ...], str]]:
     for name in fp.offsets:
         if name not in fp.remote:
             out.append((("floorplan", "offsets", name), f"'{name}' is not listed under remote"))
+    return out
+
+
+# --- plausible values -------------------------------------------------------
+
+
+def _ranges(model: type) -> list[tuple[str, Any, Any]]:
+    """(field name, Plausible or None, alias) of the fields of a model class
+    that carry a range or hold nested values (cached per class)."""
+    cached = _RANGES.get(model)
+    if cached is None:
+        cached = []
+        for name, field in model.model_fields.items():
+            mark = next((m for m in field.metadata if isinstance(m, Plausible)), None)
+            if mark is None:
+                mark = _inner_mark(field.annotation)
+            cached.append((name, mark, field.alias or name))
+        _RANGES[model] = cached
+    return cached
+
+
+_RANGES: dict[type, list[tuple[str, Any, Any]]] = {}
+
+
+def _inner_mark(annotation: Any) -> Any:
+    """The Plausible mark of Annotated[...] inside Optional/list/tuple/Union annotations."""
+    from typing import get_args
+
+    for arg in get_args(annotation):
+        meta = getattr(arg, "__metadata__", None)
+        if meta:
+            mark = next((m for m in meta if isinstance(m, Plausible)), None)
+            if mark is not None:
+                return mark
+        mark = _inner_mark(arg)
+        if mark is not None:
+            return mark
+    return None
+
+
+def _outside(value: float, mark: Plausible) -> bool:
+    x = abs(value) if mark.magnitude else value
+    return not (mark.low <= x <= mark.high)
+
+
+def _value_text(value: float, mark: Plausible) -> str:
+    from biastree.units import format_si
+
+    if mark.unit == "%":
+        return f"{value * 100:.4g}%"
+    if mark.unit == "K":
+        return f"{value - 273.15:.4g}C"
+    if mark.unit == "":
+        return f"{value:.4g}"
+    if value == 0 or 1e-18 <= abs(value) < 1e15:
+        return format_si(value, mark.unit)
+    return f"{value:.3g} {mark.unit}".strip()
+
+
+def _range_text(mark: Plausible) -> str:
+    lo, hi = _value_text(mark.low, mark), _value_text(mark.high, mark)
+    return f"magnitude at most {hi}" if mark.magnitude and mark.low == 0 else f"{lo} … {hi}"
+
+
+def check_plausible(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
+    """Values outside the plausible range of an on-chip bias network (see
+    ``Plausible`` on each field), except under the plan's ``allow_unusual`` keys.
+
+    >>> from biastree.input.model import Load
+    >>> plan = Plan.model_construct(loads={"a": Load(current=20, tolerance=0.05, voltage=1)}, allow_unusual=[])
+    >>> check_plausible(plan)[0][0]
+    ('loads', 'a', 'current')
+    """
+    allowed = [tuple(p.split(".")) for p in getattr(plan, "allow_unusual", [])]
+    out: list[tuple[tuple[Any, ...], str]] = []
+
+    def allowed_at(path: tuple[Any, ...]) -> bool:
+        parts = tuple(str(k) for k in path if not isinstance(k, int))
+        return any(parts[: len(a)] == a for a in allowed)
+
+    def report(path: tuple[Any, ...], value: float, mark: Plausible) -> None:
+        if allowed_at(path):
+            return
+        key = ".".join(str(k) for k in path if not isinstance(k, int))
+        out.append((path, f"{_value_text(value, mark)} is outside the plausible range for an on-chip bias network "
+                          f"({_range_text(mark)}); if you mean it, list '{key}' under allow_unusual"))
+
+    def visit(value: Any, mark: Any, path: tuple[Any, ...]) -> None:
+        if isinstance(value, BaseModel):
+            for name, inner, alias in _ranges(type(value)):
+                visit(getattr(value, name, None), inner, path + (alias,))
+        elif isinstance(value, dict):
+            for key, item in value.items():
+                visit(item, mark, path + (key,))
+        elif isinstance(value, (list, tuple)):
+            for k, item in enumerate(value):
+                visit(item, mark, path + (k,))
+        elif mark is not None and isinstance(value, (int, float)) and not isinstance(value, bool):
+            if _outside(float(value), mark):
+                report(path, float(value), mark)
+
+    visit(plan, None, ())
     return out

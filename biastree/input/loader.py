@@ -10,14 +10,14 @@ from __future__ import annotations
 
 import difflib
 import json
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Union, get_args, get_origin
 
 import yaml
 from pydantic import BaseModel, ValidationError
 
-from biastree.errors import PlanError, Problem, format_path
+from biastree.errors import PlanError, Problem, format_path, shown
 from biastree.input.model import BjtModel, MosModel, Plan
 
 # libyaml's C parser when present; only its events are used (no resolver).
@@ -32,6 +32,9 @@ class Document:
     text: str
     source: str
     _lines: dict[tuple[Any, ...], int] | None = None
+    # problems found while parsing that leave the data usable (duplicate keys):
+    # reported together with the field and structural problems
+    problems: list[Problem] = field(default_factory=list)
 
     def line_of(self, path: tuple[Any, ...]) -> int | None:
         """1-based line of the deepest key on ``path`` that exists in the file.
@@ -85,6 +88,8 @@ def _build(events: Any, problems: list[Problem], lines: dict[tuple[Any, ...], in
     stack: list[list[Any]] = []
     anchors: dict[str, Any] = {}
     documents = 0
+    expanded = 0  # values added by aliases of containers, counted as if written out
+    sizes: dict[int, int] = {}
 
     def place(value: Any, event: Any, is_key_candidate: bool) -> None:
         nonlocal root
@@ -103,6 +108,12 @@ def _build(events: Any, problems: list[Problem], lines: dict[tuple[Any, ...], in
                     top[2] = _BAD_KEY
                     return
                 key = "" if value is None else str(value)
+                if key == "<<" and not getattr(event, "style", "x"):  # plain style: None or empty
+                    problems.append(Problem(format_path(path + (key,)),
+                                            "YAML merge keys (<<) are not supported: write the keys out "
+                                            "(an alias of a whole mapping, key: *name, works)", line))
+                    top[2] = _BAD_KEY
+                    return
                 if key in container:
                     problems.append(Problem(format_path(path + (key,)), "duplicate key (each name may appear once)", line))
                     top[2] = _BAD_KEY
@@ -143,7 +154,7 @@ def _build(events: Any, problems: list[Problem], lines: dict[tuple[Any, ...], in
                 if type(container) is dict:
                     key = top[2]
                     if key is None:
-                        if value is not None and value not in container:
+                        if value is not None and value not in container and value != "<<":
                             top[2] = value
                             continue
                     elif key is not _BAD_KEY:
@@ -162,9 +173,16 @@ def _build(events: Any, problems: list[Problem], lines: dict[tuple[Any, ...], in
             stack.pop()
         elif kind is alias:
             if event.anchor not in anchors:
-                problems.append(Problem("", f"unknown alias *{event.anchor}", event.start_mark.line + 1))
+                problems.append(Problem("", f"unknown alias *{shown(event.anchor)}", event.start_mark.line + 1))
                 continue
-            place(anchors[event.anchor], event, False)
+            target = anchors[event.anchor]
+            if isinstance(target, (dict, list)):
+                expanded += _size(target, sizes)
+                if expanded > MAX_EXPANDED:
+                    problems.append(Problem("", f"aliases expand to more than {MAX_EXPANDED:,} values "
+                                                "(an alias bomb?); write the plan out", event.start_mark.line + 1))
+                    break
+            place(target, event, False)
         elif kind is yaml.DocumentStartEvent:
             documents += 1
             if documents > 1:
@@ -174,42 +192,125 @@ def _build(events: Any, problems: list[Problem], lines: dict[tuple[Any, ...], in
 
 
 _BAD_KEY = object()
+MAX_EXPANDED = 1_000_000
 
 
-def _reject_duplicates(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
-    out = dict(pairs)
-    if len(out) != len(pairs):
-        seen: set[str] = set()
-        duplicate = next(k for k, _ in pairs if k in seen or seen.add(k))  # type: ignore[func-returns-value]
-        raise ValueError(f"duplicate key '{duplicate}'")
-    return out
+def _size(container: Any, sizes: dict[int, int]) -> int:
+    """Values in ``container`` with every shared (aliased) part counted each
+    time it appears; memoised by identity, without recursion."""
+    stack = [(container, False)]
+    while stack:
+        node, done = stack.pop()
+        if id(node) in sizes:
+            continue
+        items = node.values() if isinstance(node, dict) else node
+        children = [c for c in items if isinstance(c, (dict, list))]
+        if done:
+            total = len(node) + sum(sizes.get(id(c), 0) for c in children)
+            sizes[id(node)] = min(total, 10 * MAX_EXPANDED)
+        else:
+            stack.append((node, True))
+            stack.extend((c, False) for c in children if id(c) not in sizes)
+    return sizes[id(container)]
+
+
+class _Pairs:
+    """JSON object hook: the first of duplicate keys wins (as in YAML), and
+    each duplicate is remembered so it can be reported with its line."""
+
+    def __init__(self) -> None:
+        self.duplicates: list[str] = []
+
+    def __call__(self, pairs: list[tuple[str, Any]]) -> dict[str, Any]:
+        out: dict[str, Any] = {}
+        for key, value in pairs:
+            if key in out:
+                self.duplicates.append(key)
+            else:
+                out[key] = value
+        return out
+
+
+def _json_duplicates(text: str, keys: list[str]) -> list[Problem]:
+    """Duplicate keys of a JSON text with their lines: JSON is (nearly) YAML
+    flow syntax, so the YAML event walk finds them with their key paths."""
+    found: list[Problem] = []
+    try:
+        _build(_events(text), found)
+    except yaml.YAMLError:
+        found = []
+    found = [p for p in found if p.message.startswith("duplicate key")]
+    if found:
+        return found
+    return [Problem("", f"duplicate key '{shown(k)}' (each name may appear once)") for k in keys]
+
+
+def _yaml_problem(exc: yaml.YAMLError, text: str) -> Problem:
+    """One line for a YAML error, with its line; no parser position dump."""
+    if isinstance(exc, yaml.reader.ReaderError):
+        line = text.count("\n", 0, exc.position) + 1
+        char = exc.character
+        code = f"U+{ord(char) if isinstance(char, str) else int(char):04X}"
+        return Problem("", f"control character {code} is not allowed in a plan (remove it, or write it "
+                           "escaped inside double quotes)", line)
+    mark = getattr(exc, "problem_mark", None)
+    what = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+    at_tab = mark is not None and 0 <= mark.index < len(text) and text[mark.index] == "\t"
+    if "'\\t'" in what or "tab" in what or at_tab:
+        what += " (a tab: YAML indents with spaces only)"
+    line = mark.line + 1 if mark is not None else None
+    return Problem("", f"YAML syntax error: {what}", line)
+
+
+def _has_surrogate(data: Any) -> bool:
+    stack = [data]
+    while stack:
+        node = stack.pop()
+        if isinstance(node, str):
+            if any("\ud800" <= c <= "\udfff" for c in node):
+                return True
+        elif isinstance(node, dict):
+            stack.extend(node.keys())
+            stack.extend(node.values())
+        elif isinstance(node, list):
+            stack.extend(node)
+    return False
 
 
 def parse_text(text: str, source: str = "plan", fmt: str | None = None) -> Document:
-    """Parse plan text (YAML, or JSON when ``fmt == 'json'``) to plain data."""
+    """Parse plan text (YAML, or JSON when ``fmt == 'json'``) to plain data.
+
+    A UTF-8 byte-order mark is accepted in both formats.
+    """
     problems: list[Problem] = []
+    if text.startswith("\ufeff"):
+        text = text[1:]
     if fmt == "json":
+        hook = _Pairs()
         try:
-            data = json.loads(text, object_pairs_hook=_reject_duplicates)
+            data = json.loads(text, object_pairs_hook=hook)
         except json.JSONDecodeError as exc:
             raise PlanError([Problem("", f"JSON syntax error: {exc.msg} (column {exc.colno})", exc.lineno)], source) from None
-        except ValueError as exc:
-            raise PlanError([Problem("", f"JSON: {exc}")], source) from None
-        doc = Document(data, text, source)
+        except RecursionError:
+            raise PlanError([Problem("", "JSON nested too deeply for a plan")], source) from None
+        except ValueError as exc:  # e.g. an integer of more digits than Python converts
+            raise PlanError([Problem("", f"JSON: {shown(str(exc), 120)}")], source) from None
+        if hook.duplicates:
+            problems += _json_duplicates(text, hook.duplicates)
     else:
         try:
             data = _build(_events(text), problems)
         except yaml.YAMLError as exc:
-            mark = getattr(exc, "problem_mark", None)
-            what = getattr(exc, "problem", None) or str(exc)
-            line = mark.line + 1 if mark is not None else None
-            raise PlanError([Problem("", f"YAML syntax error: {what}", line)], source) from None
-        doc = Document(data, text, source)
-    if problems:
+            raise PlanError([_yaml_problem(exc, text)], source) from None
+    if ("\\u" in text or "\\U" in text) and _has_surrogate(data):
+        raise PlanError([Problem("", "a string holds a lone surrogate escape (e.g. \\ud800), which is not a character")],
+                        source)
+    fatal = [p for p in problems if not p.message.startswith("duplicate key")]
+    if fatal:
         raise PlanError(problems, source)
-    if not isinstance(doc.data, dict):
+    if not isinstance(data, dict):
         raise PlanError([Problem("", "a plan must be a mapping of keys (title, supply, devices, reference, mirrors, loads)", 1)], source)
-    return doc
+    return Document(data, text, source, problems=problems)
 
 
 # --- step 2: plain data → Plan --------------------------------------------
@@ -260,6 +361,8 @@ _MESSAGES = {
     "int_from_float": "must be a whole number",
     "int_type": "must be a whole number",
     "dict_type": "must be a mapping of keys",
+    "model_attributes_type": "must be a mapping of keys",
+    "string_too_long": "must be at most {max_length} characters",
     "list_type": "must be a list",
     "string_type": "must be text",
     "float_type": "must be a number",
@@ -331,15 +434,22 @@ def _describe(err: dict[str, Any], data: Any, model: Any = Plan) -> tuple[tuple[
 
 def validate(doc: Document, model: Any = Plan) -> Any:
     """Validate plain data against the plan models (or another strict model of
-    the same family, e.g. the planner's block list); all problems at once."""
-    try:
-        return model.model_validate(doc.data)
-    except ValidationError as exc:
-        from biastree.input.checks import raw_name_problems
+    the same family, e.g. the planner's block list); all problems at once.
 
+    When some fields are invalid, the structural checks still run on a copy
+    of the plan in which the broken entries are replaced by neutral ones, and
+    the problems they find are reported too unless they depend on a broken
+    part (a feed, the supply, a device kind).
+    """
+    from biastree.input.checks import raw_name_problems, structure_tagged
+
+    try:
+        plan = model.model_validate(doc.data)
+    except ValidationError as exc:
         problems = []
         seen = set()
-        for err in exc.errors(include_url=False):
+        errors = exc.errors(include_url=False)
+        for err in errors:
             loc, message = _describe(err, doc.data, model)
             if not message:
                 continue
@@ -352,9 +462,125 @@ def validate(doc: Document, model: Any = Plan) -> Any:
         flagged = {p.path for p in problems}
         for loc, message in (raw_name_problems(doc.data) if model is Plan else ()):
             if format_path(loc) not in flagged:
+                flagged.add(format_path(loc))
                 problems.append(Problem(format_path(loc), message, doc.line_of(loc)))
-        problems.sort(key=lambda p: (p.line is None, p.line or 0))
-        raise PlanError(problems, doc.source) from None
+        for loc, message in (_structure_despite(doc.data, errors) if model is Plan else ()):
+            if format_path(loc) not in flagged:
+                problems.append(Problem(format_path(loc), message, doc.line_of(loc)))
+        raise PlanError(_sorted(doc.problems + problems), doc.source) from None
+    if doc.problems:
+        tagged = structure_tagged(plan) if model is Plan else []
+        found = [Problem(format_path(loc), message, doc.line_of(loc)) for loc, message, _ in tagged]
+        raise PlanError(_sorted(doc.problems + found), doc.source)
+    return plan
+
+
+def _sorted(problems: list[Problem]) -> list[Problem]:
+    return sorted(problems, key=lambda p: (p.line is None, p.line or 0))
+
+
+# --- structural checks when some fields are invalid -------------------------
+
+_NOWHERE = "\u2400"  # a placeholder name no plan can use (a control picture)
+_KINDS = ("npn", "pnp", "nmos", "pmos")
+
+
+def _good_name(value: Any) -> bool:
+    return isinstance(value, str) and 0 < len(value) <= 200 and value.isprintable() and value != _NOWHERE
+
+
+def _neutral_device(raw: Any) -> tuple[dict[str, Any], bool]:
+    kind = raw.get("kind") if isinstance(raw, dict) else None
+    known = kind in _KINDS
+    if kind in ("nmos", "pmos"):
+        return {"kind": kind, "kp": "100uA/V^2", "vth": "0.5V", "w": "1um", "l": "1um"}, True
+    return {"kind": kind if known else "npn", "is": "1e-16A", "beta": "100"}, known
+
+
+def _neutral_mirror(raw: Any) -> tuple[dict[str, Any], bool]:
+    """A valid mirror keeping the names of ``raw``; False when a feed was lost."""
+    from biastree.physics.topologies import TOPOLOGIES
+
+    spec = raw if isinstance(raw, dict) else {}
+    out: dict[str, Any] = {"device": spec.get("device") if _good_name(spec.get("device")) else _NOWHERE}
+    if isinstance(spec.get("topology"), str) and spec["topology"] in TOPOLOGIES:
+        out["topology"] = spec["topology"]
+    branches = spec.get("branches")
+    kept = True
+    out["branches"] = []
+    for branch in branches if isinstance(branches, list) else []:
+        to = branch.get("to") if isinstance(branch, dict) else None
+        kept &= _good_name(to)
+        out["branches"].append({"to": to if _good_name(to) else _NOWHERE})
+    if not out["branches"]:
+        out["branches"], kept = [{"to": _NOWHERE}], False
+    return out, kept
+
+
+def _structure_despite(data: Any, errors: list[Any]) -> list[tuple[tuple[Any, ...], str]]:
+    """Structural problems of ``data`` that its field errors leave meaningful."""
+    from biastree.input.checks import structure_tagged
+
+    if not isinstance(data, dict) or any(not isinstance(data.get(k), dict) for k in ("devices", "mirrors", "loads", "reference")):
+        return []  # without these sections no structure is left to check
+    fixed = dict(data)
+    broken: set[tuple[Any, ...]] = set()
+    copied: set[str] = set()
+    feeds_lost, supply_lost = False, False
+    unknown_kind: set[str] = set()
+    for err in errors:
+        loc = tuple(err["loc"])
+        if not loc:
+            return []
+        top = loc[0]
+        if top in ("devices", "mirrors", "loads") and len(loc) >= 2:
+            name = loc[1]
+            if (top, name) in broken or name not in data[top]:
+                continue
+            if not _good_name(name):
+                return []
+            broken.add((top, name))
+            if top not in copied:
+                fixed[top] = dict(data[top])
+                copied.add(top)
+            raw = data[top][name]
+            if top == "devices":
+                fixed[top][name], known = _neutral_device(raw)
+                if not known:
+                    unknown_kind.add(name)
+            elif top == "mirrors":
+                fixed[top][name], kept = _neutral_mirror(raw)
+                feeds_lost |= not kept
+            else:
+                fixed[top][name] = {"current": "1uA", "tolerance": "1%", "voltage": "0V"}
+        elif top == "reference":
+            feeds = data["reference"].get("feeds")
+            feeds_lost |= not _good_name(feeds)
+            fixed["reference"] = {"current": "1uA", "feeds": feeds if _good_name(feeds) else _NOWHERE}
+            broken.add(("reference",))
+        elif top == "supply":
+            fixed["supply"], supply_lost = "1V", True
+            broken.add(("supply",))
+        elif top in ("devices", "mirrors", "loads"):
+            return []  # the section itself (empty, or not a mapping)
+        else:  # a section structure does not rest on (or an unknown key): use its default
+            fixed.pop(top, None)
+            broken.add((top,))
+    try:
+        plan = Plan.model_validate(fixed)
+    except ValidationError:
+        return []
+    users = {m for m, spec in plan.mirrors.items() if spec.device in unknown_kind}
+    out = []
+    for path, message, tag in structure_tagged(plan):
+        if any(path[: len(b)] == b for b in broken):
+            continue
+        if (tag == "reach" and feeds_lost) or (tag == "supply" and supply_lost):
+            continue
+        if tag.startswith("kind:") and users & set(tag.split(":")[1:]):
+            continue
+        out.append((path, message))
+    return out
 
 
 # --- the whole pipeline ----------------------------------------------------

@@ -7,10 +7,11 @@ description (it ends up in the committed JSON Schema).
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from functools import cached_property
 from typing import Annotated, Callable, Literal, Optional, Union
 
-from annotated_types import Ge, Gt
+from annotated_types import Ge, Gt, Le
 from pydantic import (
     BaseModel,
     BeforeValidator,
@@ -21,7 +22,7 @@ from pydantic import (
     field_validator,
 )
 
-from biastree.units import ZERO_CELSIUS, parse_quantity
+from biastree.units import ZERO_CELSIUS, UnitError, parse_quantity, shown
 
 _QUANTITY_PATTERN = r"^\s*[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?\s*\S*\s*$"
 
@@ -44,7 +45,23 @@ def _parser(unit: str) -> Callable[[object], float]:
     return parse
 
 
-def Quantity(unit: str, example: str, *constraints: object) -> object:
+@dataclass(frozen=True)
+class Plausible:
+    """The range of values that make sense for an on-chip bias network.
+
+    A value outside it is almost certainly a slip (``current: 20`` is 20 A);
+    ``biastree.input.checks`` reports it unless the plan lists the key under
+    ``allow_unusual``.  ``magnitude`` ranges bound the absolute value.
+    """
+
+    low: float
+    high: float
+    unit: str
+    magnitude: bool = False
+
+
+def Quantity(unit: str, example: str, *constraints: object, plausible: tuple[float, float] | None = None,
+             shown_unit: str | None = None, magnitude: bool = False) -> object:
     """A float field that also accepts a string with SI prefix and unit."""
     schema = {
         "anyOf": [
@@ -54,39 +71,82 @@ def Quantity(unit: str, example: str, *constraints: object) -> object:
         "examples": [example],
     }
     # Annotated[(…)] with a tuple: the same as listing the items, and valid on Python 3.10
-    return Annotated[(float, BeforeValidator(_parser(unit)), *constraints, WithJsonSchema(schema))]
+    extra: tuple[object, ...] = ()
+    if plausible is not None:
+        extra = (Plausible(plausible[0], plausible[1], shown_unit if shown_unit is not None else unit, magnitude),)
+    return Annotated[(float, BeforeValidator(_parser(unit)), *constraints, *extra, WithJsonSchema(schema))]
 
 
-Current = Quantity("A", "10uA", Gt(0))
-NonNegCurrent = Quantity("A", "1uA", Ge(0))
-Resistance = Quantity("ohm", "10kohm", Gt(0))
-VoltMeter = Quantity("V*m", "5mV*um", Ge(0))
-FractionMeter = Quantity("%*m", "1%*um", Ge(0))
-Area = Quantity("m^2", "4um^2", Gt(0))
-SignedVoltage = Quantity("V", "20mV")
-SignedFraction = Quantity("%", "-10%")
-PerKelvin = Quantity("1/K", "50ppm/K")
-SignedVoltagePerKelvin = Quantity("V/K", "-1mV/K")
-Distance = Quantity("m", "1.5mm", Ge(0))
-PositiveVoltage = Quantity("V", "3.3V", Gt(0))
-Voltage = Quantity("V", "1.5V")
-NonNegVoltage = Quantity("V", "0.3V", Ge(0))
-Fraction = Quantity("%", "1%", Ge(0))
-PositiveFraction = Quantity("%", "5%", Gt(0))
-PositiveNumber = Quantity("1", "3", Gt(0))
-Positive = Quantity("1", "120", Gt(0))
-NonNegative = Quantity("1", "3", Ge(0))
-Length = Quantity("m", "1um", Gt(0))
-Transconductance = Quantity("A/V^2", "200uA/V^2", Gt(0))
-InverseVoltage = Quantity("1/V", "0.05/V", Ge(0))
-EnergyEV = Quantity("eV", "1.11eV", Gt(0))
+def _temperature(value: object) -> float:
+    """A temperature must say its unit: '27C' or '300K'.  A plain number is
+    refused, because a designer reads it as °C and SI as kelvin."""
+    text = value if isinstance(value, str) else None
+    if text is not None and text.strip().upper().endswith(("C", "K")):
+        return _parser("C")(text)
+    if isinstance(value, bool) or not isinstance(value, (str, int, float)):
+        return parse_quantity(value, "C")  # the same message as any other field
+    raise UnitError(f"'{shown(value)}' needs a unit: write {shown(value)}C (°C) or {shown(value)}K (kelvin)")
+
+
+def _whole(value: object) -> object:
+    """A count: a whole number, never a boolean, never beyond 10⁹."""
+    if isinstance(value, bool):
+        raise UnitError(f"'{value}' is a boolean, not a number")
+    if isinstance(value, str) and len(value.strip()) > 12:
+        raise UnitError(f"'{shown(value)}' is too large for a count (at most 1e9)")
+    if isinstance(value, int) and abs(value) > 10**9:
+        raise UnitError(f"'{shown(value)}' is too large for a count (at most 1e9)")
+    return value
+
+
+def _line_of_text(value: object) -> object:
+    if isinstance(value, str) and any(not c.isprintable() for c in value):
+        raise UnitError(f"'{shown(value)}' holds a control character or an invalid one")
+    return value
+
+
+Current = Quantity("A", "10uA", Gt(0), plausible=(1e-12, 0.1))
+NonNegCurrent = Quantity("A", "1uA", Ge(0), plausible=(0.0, 0.1))
+Resistance = Quantity("ohm", "10kohm", Gt(0), plausible=(0.1, 1e9), shown_unit="Ω")
+VoltMeter = Quantity("V*m", "5mV*um", Ge(0), plausible=(0.0, 1e-7), shown_unit="V·m")
+FractionMeter = Quantity("%*m", "1%*um", Ge(0), plausible=(0.0, 1e-6), shown_unit="·m")
+Area = Quantity("m^2", "4um^2", Gt(0), plausible=(1e-16, 1e-6), shown_unit="m²")
+SignedVoltage = Quantity("V", "20mV", plausible=(0.0, 10.0), magnitude=True)
+SignedFraction = Quantity("%", "-10%", Gt(-1), plausible=(-0.9, 10.0), shown_unit="%")
+PerKelvin = Quantity("1/K", "50ppm/K", plausible=(0.0, 0.01), magnitude=True, shown_unit="/K")
+SignedVoltagePerKelvin = Quantity("V/K", "-1mV/K", plausible=(0.0, 0.01), magnitude=True)
+Distance = Quantity("m", "1.5mm", Ge(0), plausible=(0.0, 0.1))
+PositiveVoltage = Quantity("V", "3.3V", Gt(0), plausible=(1e-3, 100.0))
+Voltage = Quantity("V", "1.5V", plausible=(0.0, 100.0), magnitude=True)
+NonNegVoltage = Quantity("V", "0.3V", Ge(0), plausible=(0.0, 1.0))
+Fraction = Quantity("%", "1%", Ge(0), plausible=(0.0, 1.0), shown_unit="%")
+PositiveFraction = Quantity("%", "5%", Gt(0), plausible=(0.0, 1.0), shown_unit="%")
+PositiveNumber = Quantity("1", "3", Gt(0), plausible=(0.0, 10.0), shown_unit="")
+Positive = Quantity("1", "120", Gt(0), plausible=(1e-3, 1e4), shown_unit="")
+NonNegative = Quantity("1", "3", Ge(0), plausible=(0.0, 10.0), shown_unit="")
+Length = Quantity("m", "1um", Gt(0), plausible=(1e-8, 1e-2))
+Transconductance = Quantity("A/V^2", "200uA/V^2", Gt(0), plausible=(1e-7, 1e-2), shown_unit="A/V²")
+InverseVoltage = Quantity("1/V", "0.05/V", Ge(0), plausible=(0.0, 10.0), shown_unit="/V")
+EnergyEV = Quantity("eV", "1.11eV", Gt(0), plausible=(0.1, 5.0))
+# A die between -100 °C and 250 °C covers cold labs, automotive and downhole parts.
+DIE_TEMPERATURES = (173.15, 523.15)
+SaturationCurrent = Quantity("A", "1e-17A", Gt(0), plausible=(1e-24, 1e-9))
+# β and V_A have no practical upper bound: very large values make ideal devices
+Beta = Quantity("1", "120", Gt(0), plausible=(1.0, 1e15), shown_unit="")
+EarlyVoltage = Quantity("V", "60V", Gt(0), plausible=(0.5, 1e15))
+Ratio = Quantity("1", "2", Gt(0), plausible=(1e-6, 1e6), shown_unit="")
+Exponent = Quantity("1", "-1.5", plausible=(0.0, 5.0), magnitude=True, shown_unit="")
+PerKelvin2 = Quantity("1", "1e-6", plausible=(0.0, 1e-3), magnitude=True, shown_unit="/K²")
+Kelvin = Quantity("K", "2K", plausible=(0.0, 100.0), magnitude=True)
+Count = Annotated[int, BeforeValidator(_whole), Gt(0), Le(10**9), Plausible(1, 1e6, "")]
 Temperature = Annotated[
     float,
-    BeforeValidator(_parser("C")),
+    BeforeValidator(_temperature),
+    Plausible(*DIE_TEMPERATURES, "K"),
     PlainSerializer(lambda k: f"{k - ZERO_CELSIUS:.6g}C", return_type=str),
     WithJsonSchema({"anyOf": [{"type": "number"}, {"type": "string"}], "examples": ["27C", "300K"]}),
 ]
-Name = Annotated[str, Field(min_length=1)]
+Name = Annotated[str, Field(min_length=1, max_length=200), BeforeValidator(_line_of_text)]
 
 
 class _Strict(BaseModel):
@@ -98,9 +158,9 @@ class BjtModel(_Strict):
     """A bipolar device model (Gummel–Poon without parasitics)."""
 
     kind: Literal["npn", "pnp"] = Field(description="npn sinks current to ground, pnp sources it from the supply")
-    is_: Current = Field(alias="is", description="saturation current IS of one unit device at tnom")
-    beta: Positive = Field(description="forward current gain BF at tnom")
-    early: Optional[PositiveVoltage] = Field(
+    is_: SaturationCurrent = Field(alias="is", description="saturation current IS of one unit device at tnom")
+    beta: Beta = Field(description="forward current gain BF at tnom")
+    early: Optional[EarlyVoltage] = Field(
         default=None,
         description="forward Early voltage VAF (omit for none: infinite output resistance)",
     )
@@ -136,7 +196,7 @@ class MosModel(_Strict):
     l: Length = Field(description="gate length of one unit device")  # noqa: E741
     tnom: Temperature = Field(default=300.15, description="temperature at which kp and vth are given (default 27C)")
     vth_tc: SignedVoltagePerKelvin = Field(default=0.0, description="threshold temperature coefficient d|VT|/dT, V/K")
-    mobility_exp: float = Field(default=-1.5, description="kp ∝ (T/tnom)^mobility_exp (default −1.5)")
+    mobility_exp: Exponent = Field(default=-1.5, description="kp ∝ (T/tnom)^mobility_exp (default −1.5)")
     a_vt_pair: Optional[VoltMeter] = Field(
         default=None, description="Pelgrom A_VT: σ(ΔVT) of a PAIR × √(WL), e.g. 5mV*um (Pelgrom et al. 1989)"
     )
@@ -155,7 +215,7 @@ class Reference(_Strict):
     tolerance: Fraction = Field(default=0.0, description="reference current tolerance, e.g. 1%")
     feeds: Name = Field(description="name of the mirror whose input the reference drives")
     tempco: PerKelvin = Field(default=0.0, description="linear temperature coefficient, e.g. 50ppm/K")
-    tempco2: float = Field(default=0.0, description="quadratic temperature coefficient, 1/K²")
+    tempco2: PerKelvin2 = Field(default=0.0, description="quadratic temperature coefficient, 1/K²")
     tnom: Temperature = Field(default=300.15, description="temperature at which current is given (default 27C)")
 
 
@@ -163,8 +223,8 @@ class Branch(_Strict):
     """One output of a mirror."""
 
     to: Name = Field(description="name of the mirror or load this output drives")
-    ratio: Positive = Field(default=1.0, description="output device size / input device size")
-    count: Annotated[int, Gt(0)] = Field(
+    ratio: Ratio = Field(default=1.0, description="output device size / input device size")
+    count: Count = Field(
         default=1,
         description="identical copies of this output; into a mirror, copies of that mirror and all below it",
     )
@@ -174,10 +234,10 @@ class Mirror(_Strict):
     """One mirror stage: a diode-connected input device and its outputs."""
 
     device: Name = Field(description="name of a device model under devices:")
-    input_size: Positive = Field(default=1.0, description="input device size in unit devices")
+    input_size: Ratio = Field(default=1.0, description="input device size in unit devices")
     topology: Name = Field(default="simple", description="mirror topology (see `biastree topologies`)")
     branches: list[Branch] = Field(min_length=1, description="the outputs of this mirror")
-    helper_size: Positive = Field(default=1.0, description="beta_helper: size of the helper device, unit devices")
+    helper_size: Ratio = Field(default=1.0, description="beta_helper: size of the helper device, unit devices")
     bleed: NonNegCurrent = Field(default=0.0, description="beta_helper: bleed current from the base line to the rail")
     degeneration: Optional[Resistance] = Field(
         default=None, description="degenerated: emitter resistor of the input device (outputs get R/ratio)"
@@ -276,7 +336,7 @@ class Matched(_Strict):
 class Offset(_Strict):
     """A remote output device's offsets from its mirror's input device."""
 
-    temperature: Quantity("K", "2K") = Field(default=0.0, description="warmer by, K")  # type: ignore[valid-type]
+    temperature: Kelvin = Field(default=0.0, description="warmer by, K")  # type: ignore[valid-type]
     rail: SignedVoltage = Field(default=0.0, description="rail moved towards the other rail by, V")
 
 
@@ -286,8 +346,8 @@ class Floorplan(_Strict):
     positions: dict[Name, tuple[Distance, Distance]] = Field(
         default_factory=dict, description="[x, y] of mirrors and loads, e.g. [0.5mm, 1.2mm]"
     )
-    thermal_gradient: Quantity("K/m", "2K/mm", Ge(0)) = Field(default=0.0, description="temperature gradient, K/mm")  # type: ignore[valid-type]
-    rail_gradient: Quantity("V/m", "1mV/mm", Ge(0)) = Field(default=0.0, description="IR-drop gradient of the rails, mV/mm")  # type: ignore[valid-type]
+    thermal_gradient: Quantity("K/m", "2K/mm", Ge(0), plausible=(0.0, 1e5)) = Field(default=0.0, description="temperature gradient, K/mm")  # type: ignore[valid-type]
+    rail_gradient: Quantity("V/m", "1mV/mm", Ge(0), plausible=(0.0, 1e3)) = Field(default=0.0, description="IR-drop gradient of the rails, mV/mm")  # type: ignore[valid-type]
     remote: list[Name] = Field(
         default_factory=list,
         description="loads whose output device sits at the load (the mirror's base/gate line is routed there)",
@@ -302,7 +362,8 @@ class Floorplan(_Strict):
 class Plan(_Strict):
     """One bias network: a reference current, mirrors, and the loads they feed."""
 
-    title: str = Field(default="", description="free text shown in reports")
+    title: Annotated[str, BeforeValidator(_line_of_text)] = Field(
+        default="", max_length=200, description="free text shown in reports (one line, at most 200 characters)")
     supply: PositiveVoltage = Field(description="supply voltage (the rail of pnp/pmos mirrors)")
     temperature: Temperature = Field(default=300.15, description="die temperature, e.g. 27C or 300K")
     devices: dict[Name, DeviceModel] = Field(min_length=1, description="named device models")
@@ -314,3 +375,8 @@ class Plan(_Strict):
     spread: Spread = Field(default_factory=Spread, description="mismatch budget and global process spread")
     matched: dict[Name, Matched] = Field(default_factory=dict, description="load pairs whose ratio must hold")
     floorplan: Optional[Floorplan] = Field(default=None, description="positions and gradients across the die")
+    allow_unusual: list[Name] = Field(
+        default_factory=list,
+        description="key paths (e.g. loads.heater.current, or a whole section such as loads) whose values "
+        "may lie outside the plausible range of an on-chip bias network",
+    )
