@@ -281,7 +281,7 @@ def _describe(err: dict[str, Any], data: Any) -> tuple[tuple[Any, ...], str]:
     loc = tuple(err["loc"])
     kind = err["type"]
     # The discriminated device union puts the tag into the path: drop it.
-    if len(loc) >= 3 and loc[0] == "devices" and loc[2] in ("npn", "pnp", "nmos", "pmos"):
+    if len(loc) >= 3 and loc[0] == "devices" and loc[2] in ("npn", "pnp", "nmos", "pmos", "card"):
         loc = loc[:2] + loc[3:]
     # A [min, max] voltage that failed both union members: report it once.
     if "voltage" in loc:
@@ -332,7 +332,9 @@ def _describe(err: dict[str, Any], data: Any) -> tuple[tuple[Any, ...], str]:
 def validate(doc: Document) -> Plan:
     """Validate plain data against the plan models; all problems at once."""
     try:
-        return Plan.model_validate(doc.data)
+        # model files named by devices are found relative to the plan's folder
+        base = str(Path(doc.source).resolve().parent) if Path(doc.source).is_file() else None
+        return Plan.model_validate(doc.data, context={"base": base})
     except ValidationError as exc:
         from biastree.input.checks import raw_name_problems
 
