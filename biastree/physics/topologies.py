@@ -27,7 +27,7 @@ from typing import Callable
 
 import numpy as np
 
-from biastree.physics import devices
+from biastree.physics import devices, gp_mirrors, gummel_poon
 from biastree.physics.devices import Array
 
 TERM_LABELS = {
@@ -54,15 +54,19 @@ class DeviceArrays:
     vth: Array
     lam: Array
     size_in: Array  # input_size (unit devices)
+    # Bipolar devices given by Gummel–Poon cards: their full DC parameters per row
+    # (every bipolar row of a plan that has any such card; None otherwise)
+    gp: gummel_poon.GummelPoon | None = None
 
     def take(self, index: Array, family: str | None = None) -> "DeviceArrays":
         """Rows ``index`` of every parameter (optionally relabelled as one family)."""
-        arrays = (getattr(self, f)[index] for f in self.__dataclass_fields__ if f != "family")
-        return DeviceArrays(family or self.family, *arrays)
+        arrays = (getattr(self, f)[index] for f in self.__dataclass_fields__ if f not in ("family", "gp"))
+        return DeviceArrays(family or self.family, *arrays, gp=None if self.gp is None else self.gp.take(index))
 
     def ideal_outputs(self) -> "DeviceArrays":
         """The same devices with infinite output resistance (V_A → ∞, λ = 0)."""
-        return replace(self, early=np.full_like(self.early, np.inf), lam=np.zeros_like(self.lam))
+        return replace(self, early=np.full_like(self.early, np.inf), lam=np.zeros_like(self.lam),
+                       gp=None if self.gp is None else self.gp.ideal_outputs())
 
 
 @dataclass(frozen=True)
@@ -154,6 +158,8 @@ def _simple(g: GroupInput) -> GroupOutput:
     """
     d, r = g.dev, g.row
     scale = 1.0 if g.is_scale is None else g.is_scale
+    if d.family == "bjt" and d.gp is not None:
+        return GroupOutput(*gp_mirrors.simple(g, d.gp))
     if d.family == "bjt":
         x_in = g.i_in / (1.0 + (1.0 + g.fanout(scale)) / d.beta)  # IS·A0·e^(VBE/VT)
         vbe = _vbe(x_in, d.is_in, d.vt)
