@@ -13,11 +13,8 @@ from __future__ import annotations
 import functools
 import os
 from dataclasses import dataclass
-from pathlib import Path
-
 import numpy as np
 
-from biastree.errors import BiasTreeError
 from biastree.input.cards import CardModel
 from biastree.input.spice_text import Deck, ModelCard, SpiceError, parse_text, read_file, split_params, tokens
 from biastree.physics import gummel_poon as gp
@@ -115,17 +112,38 @@ def _values(dev: CardModel, corner: str) -> dict[str, float]:
         raise SpiceError(card.where, f"model {card.name} has level={card.params['level']}: "
                                      "only Gummel–Poon (level 1) is solved exactly; use a MOS-style table instead")
     values: dict[str, float] = {}
+    unknown: list[str] = []
     for key in card.params:
         if key in gp.UNSUPPORTED:
             raise SpiceError(card.where, f"model {card.name}: '{key}' (quasi-saturation) is not supported")
         if not gp.known(key):
-            raise SpiceError(card.where, f"model {card.name}: unknown Gummel–Poon parameter '{key}'")
+            # reported, not fatal: ngspice too warns and ignores a parameter it does not know
+            unknown.append(key)
+            continue
         target = gp.ALIASES.get(key, key)
         if target in gp.DC_DEFAULTS or target in gp.TEMP_PARAMS:
             values[target] = card.value(key)
     if found.multiplier != 1.0:
         values["_m"] = found.multiplier
+    if unknown:
+        _NOTES[card.where] = (f"{card.where}: model {card.name}: not Gummel–Poon parameters, ignored "
+                              f"(as ngspice ignores them): {', '.join(unknown)}")
     return values
+
+
+_NOTES: dict[str, str] = {}
+
+
+def notes(plan: object) -> list[str]:
+    """One line per card of the plan that carries parameters the model does not know."""
+    check_plan_cards(plan)
+    wanted = []
+    for dev in getattr(plan, "devices", {}).values():
+        if isinstance(dev, CardModel) and dev.is_bipolar:
+            where = locate(dev).card.where
+            if where in _NOTES:
+                wanted.append(_NOTES[where])
+    return list(dict.fromkeys(wanted))
 
 
 def gummel_poon(dev: CardModel, corner: str, kelvin: np.ndarray) -> gp.GummelPoon:
@@ -153,12 +171,3 @@ def check_plan_cards(plan: object) -> None:
         if isinstance(dev, CardModel) and dev.is_bipolar:
             for corner in [""] + corners:
                 bipolar_values(dev, corner)
-
-
-class CardError(BiasTreeError):
-    """A device's card cannot be used."""
-
-
-def library_folder(dev: CardModel) -> Path | None:
-    path = dev.include or dev.library
-    return Path(path).parent if path else None

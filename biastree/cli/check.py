@@ -30,7 +30,12 @@ def check(
     """Solve the plan and audit every load against its budget (exit 1 if any fails)."""
     if k_sigma is not None and k_sigma <= 0:
         raise BiasTreeError("--k-sigma: must be > 0")
-    result = biastree.check(load_tree(plan, forward_bias), conditions=conditions, mismatch=mismatch, k_sigma=k_sigma)
+    tree = load_tree(plan, forward_bias)
+    from biastree.analysis.cards import notes
+
+    for note in notes(tree.plan):  # card parameters the model does not know: said, never silently dropped
+        typer.echo(f"note: {note}", err=True)
+    result = biastree.check(tree, conditions=conditions, mismatch=mismatch, k_sigma=k_sigma)
     if json:
         from biastree.output.json import to_json
 

@@ -190,6 +190,8 @@ def _beta_helper(g: GroupInput) -> GroupOutput:
     with X = IS·e^(VBE/VT) per unit and VCB_B = supply − VBE − VBE_B.
     """
     d, r = g.dev, g.row
+    if d.gp is not None:
+        return GroupOutput(*gp_mirrors.beta_helper(g, d.gp))
     scale = 1.0 if g.is_scale is None else g.is_scale
     a0 = d.size_in
     is_unit = d.is_in / a0
@@ -228,6 +230,8 @@ def _wilson_core(g: GroupInput, four: bool) -> GroupOutput:
     VCB1 = VBE3 (three devices) or VBE3 − VBE4 (four devices: Q4 carries IC1).
     """
     d = g.dev  # one branch per mirror: branch rows and mirror rows coincide
+    if d.gp is not None:
+        return GroupOutput(*gp_mirrors.wilson(g, d.gp, four))
     scale = 1.0 if g.is_scale is None else g.is_scale
     a0 = d.size_in
     is_unit = d.is_in / a0
@@ -285,6 +289,8 @@ def _cascode(g: GroupInput) -> GroupOutput:
     d, r = g.dev, g.row
     scale = 1.0 if g.is_scale is None else g.is_scale
     a0 = d.size_in
+    if d.family == "bjt" and d.gp is not None:
+        return GroupOutput(*gp_mirrors.cascode(g, d.gp))
     if d.family == "bjt":
         is_unit = d.is_in / a0
         fan = g.fanout(scale)
@@ -400,6 +406,8 @@ def _degenerated(g: GroupInput) -> GroupOutput:
       I_in = IC1 + IB1 + Σ IB_k,
     solved by Newton's method on V_B (the residual is monotone in V_B)."""
     d, r = g.dev, g.row
+    if d.gp is not None:
+        return GroupOutput(*gp_mirrors.degenerated(g, d.gp))
     scale = 1.0 if g.is_scale is None else g.is_scale
     r1 = g.params["r_emitter"]
     is_out = d.is_in[r] * g.ratio * scale
