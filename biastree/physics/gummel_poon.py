@@ -209,22 +209,33 @@ def from_card(values: Mapping[str, float], kelvin: float | Array, gmin: float = 
 
 def _diode(v: Array, sat: Array, n_vt: Array) -> Array:
     """sat·(e^(v/nV_T) − 1), continued below −3·nV_T by SPICE's cubic form."""
+    x = v / n_vt
+    if np.all(x >= -3.0):  # the usual case: no junction reverse-biased beyond 3·nV_T
+        return sat * np.expm1(x)
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-        forward = sat * np.expm1(v / n_vt)
-        arg = (3.0 * n_vt / (v * math.e)) ** 3
-        reverse = -sat * (1.0 + arg)
-    return np.where(v >= -3.0 * n_vt, forward, reverse)
+        reverse = -sat * (1.0 + (3.0 / (x * math.e)) ** 3)
+        return np.where(x >= -3.0, sat * np.expm1(x), reverse)
+
+
+def _junctions(vbe: Array, vbc: Array, p: GummelPoon) -> tuple[Array, Array, Array, Array]:
+    """(I_C, I_B, I_BE, I_BC) of the intrinsic device."""
+    cbe = _diode(vbe, p.is_be, p.nf * p.vt)
+    cbc = _diode(vbc, p.is_bc, p.nr * p.vt)
+    cben = p.gmin * vbe
+    cbcn = p.gmin * vbc
+    if np.any(p.ise):
+        cben = cben + _diode(vbe, p.ise, p.ne * p.vt)
+    if np.any(p.isc):
+        cbcn = cbcn + _diode(vbc, p.isc, p.nc * p.vt)
+    qb = base_charge(vbe, vbc, cbe, cbc, p)
+    ic = (cbe - cbc) / qb - cbc / p.br - cbcn
+    ib = cbe / p.bf + cben + cbc / p.br + cbcn
+    return ic, ib, qb, cbe
 
 
 def intrinsic(vbe: Array, vbc: Array, p: GummelPoon) -> tuple[Array, Array]:
     """Collector and base current of the intrinsic device (no RB, RE, RC)."""
-    cbe = _diode(vbe, p.is_be, p.nf * p.vt)
-    cbc = _diode(vbc, p.is_bc, p.nr * p.vt)
-    cben = _diode(vbe, p.ise, p.ne * p.vt) + p.gmin * vbe
-    cbcn = _diode(vbc, p.isc, p.nc * p.vt) + p.gmin * vbc
-    qb = base_charge(vbe, vbc, cbe, cbc, p)
-    ic = (cbe - cbc) / qb - cbc / p.br - cbcn
-    ib = cbe / p.bf + cben + cbc / p.br + cbcn
+    ic, ib, _, _ = _junctions(vbe, vbc, p)
     return ic, ib
 
 
@@ -240,6 +251,8 @@ def base_charge(vbe: Array, vbc: Array, cbe: Array, cbc: Array, p: GummelPoon) -
 def base_resistance(ib: Array, qb: Array, p: GummelPoon) -> Array:
     """r_bb between RBM and RB: from q_b, or from the base current when IRB is given."""
     spread = p.rb - p.rbm
+    if not np.any(p.irb > 0):
+        return p.rbm + spread / qb
     with np.errstate(divide="ignore", invalid="ignore"):
         x = np.maximum(ib / np.where(p.irb > 0, p.irb, 1.0), 1e-9)
         z = (-1.0 + np.sqrt(1.0 + 14.59025 * x)) / 2.4317 / np.sqrt(x)
@@ -249,19 +262,14 @@ def base_resistance(ib: Array, qb: Array, p: GummelPoon) -> Array:
 
 
 def _terminal_residual(vbe_i: Array, vbc_i: Array, vbe: Array, vbc: Array, p: GummelPoon) -> tuple[Array, Array, Array, Array]:
-    ic, ib = intrinsic(vbe_i, vbc_i, p)
-    if np.any(p.rb) or np.any(p.rbm):
-        cbe = _diode(vbe_i, p.is_be, p.nf * p.vt)
-        cbc = _diode(vbc_i, p.is_bc, p.nr * p.vt)
-        drop_b = ib * base_resistance(ib, base_charge(vbe_i, vbc_i, cbe, cbc, p), p)
-    else:
-        drop_b = 0.0
+    ic, ib, qb, _ = _junctions(vbe_i, vbc_i, p)
+    drop_b = ib * base_resistance(ib, qb, p) if (np.any(p.rb) or np.any(p.rbm)) else 0.0
     f1 = vbe_i + drop_b + (ic + ib) * p.re - vbe
     f2 = vbc_i + drop_b - ic * p.rc - vbc
     return f1, f2, ic, ib
 
 
-def terminal(vbe: Array, vbc: Array, p: GummelPoon, tol: float = 1e-15) -> tuple[Array, Array]:
+def terminal(vbe: Array, vbc: Array, p: GummelPoon, tol: float = 1e-13) -> tuple[Array, Array]:
     """Collector and base current of one unit device at terminal voltages V_BE, V_BC
     (RB, RE, RC included: the internal nodes are solved by Newton's method)."""
     vbe, vbc = np.broadcast_arrays(np.asarray(vbe, dtype=float), np.asarray(vbc, dtype=float))
