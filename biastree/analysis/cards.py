@@ -16,7 +16,17 @@ from dataclasses import dataclass
 import numpy as np
 
 from biastree.input.cards import CardModel
-from biastree.input.spice_text import Deck, ModelCard, SpiceError, parse_text, read_file, split_params, tokens
+from biastree.input.spice_text import (
+    Deck,
+    ModelCard,
+    SpiceError,
+    evaluate,
+    parse_text,
+    read_file,
+    spice_number,
+    split_params,
+    tokens,
+)
 from biastree.physics import gummel_poon as gp
 
 
@@ -71,8 +81,6 @@ def locate(dev: CardModel, corner: str = "") -> Located:
     mult = 1.0
     for key in ("m", "area"):
         if key in named:
-            from biastree.input.spice_text import evaluate
-
             mult *= evaluate(named[key], sub.scope.lookup(devices[0].where), devices[0].where)
     return Located(found.models[models[0]], sub.name, tuple(sub.ports), mult)
 
@@ -171,3 +179,44 @@ def check_plan_cards(plan: object) -> None:
         if isinstance(dev, CardModel) and dev.is_bipolar:
             for corner in [""] + corners:
                 bipolar_values(dev, corner)
+
+
+def _spice_num(x: float) -> str:
+    return f"{x:.12g}"
+
+
+def source_line(dev: CardModel, corner: str) -> str:
+    """The designer's models by reference (``.include`` / ``.lib FILE SECTION``) or inline."""
+    if dev.card is not None:
+        return dev.card.strip()
+    if dev.include is not None:
+        return f'.include "{dev.include}"'
+    return f'.lib "{dev.library}" {dev.section_for(corner)}'
+
+
+def length_scale(dev: CardModel, corner: str) -> float:
+    """The ``.option scale`` the device's library sets (sky130: 1e-6), 1 if none."""
+    for line in deck(dev, corner).lines:
+        if line.keyword in (".option", ".options"):
+            for word in line.text.lower().replace("=", " = ").split("scale = ")[1:]:
+                value = spice_number(word.split()[0])
+                if value:
+                    return value
+    return 1.0
+
+
+def instance_line(label: str, dev: CardModel, c: str, b: str, e: str, bulk: str, copies: float,
+                  corner: str = "") -> str:
+    """One instance of a card device: ``copies`` unit devices in parallel (m=), never a wider device."""
+    if dev.is_bipolar:
+        found = locate(dev, corner)
+        if found.subckt is None:
+            return f"q{label} {c} {b} {e} {dev.model} m={_spice_num(copies)}"
+        ports = [c, b, e] + [bulk] * (len(found.ports) - 3)
+        return f"x{label} {' '.join(ports)} {dev.model} m={_spice_num(copies)}"
+    scale = length_scale(dev, corner)
+    size = f"w={_spice_num(dev.w / scale)} l={_spice_num(dev.l / scale)}"  # type: ignore[operator]
+    kind = "m" if dev.model.lower() in deck(dev, corner).models else "x"
+    return f"{kind}{label} {c} {b} {e} {bulk} {dev.model} {size} m={_spice_num(copies)}"
+
+

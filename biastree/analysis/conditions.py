@@ -19,12 +19,14 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from biastree.analysis import cards as model_cards
+from biastree.analysis import characterize
 from biastree.analysis.floorplan import remote_offsets
 from biastree.input.cards import CardModel
 from biastree.input.model import BjtModel, Corner, Plan
 from biastree.physics import devices
 from biastree.physics import gummel_poon as gp
 from biastree.physics.devices import Array
+from biastree.physics.tables import Table, TableSet
 from biastree.physics.topologies import DeviceArrays
 from biastree.tree.arrays import Tree
 from biastree.units import ZERO_CELSIUS
@@ -175,7 +177,40 @@ def device_arrays(tree: Tree, cols: Columns) -> DeviceArrays:
         lam=np.broadcast_to(base["lam"] * (1.0 + sh["lambda"]), shape).copy(),
         size_in=np.broadcast_to(base["size"], shape).copy(),
         gp=bipolar_cards(tree, cols, sh),
+        tables=mos_tables(tree, cols),
     )
+
+
+def table_vmax(tree: Tree, cols: Columns) -> float:
+    """Upper end of a table's sweeps: the highest supply, rounded up to 0.1 V (a stable cache key)."""
+    plan = tree.plan
+    top = max([plan.supply, *plan.conditions.supplies, float(np.max(cols.supply))])
+    return float(np.ceil(top * 10.0 - 1e-9) / 10.0)
+
+
+def mos_tables(tree: Tree, cols: Columns) -> TableSet | None:
+    """Characterisation tables of every MOS mirror given by a card, per column (its temperature
+    and corner section); simulated on first use and cached (biastree.analysis.characterize)."""
+    plan = tree.plan
+    rows = [i for i, name in enumerate(tree.mirrors)
+            if isinstance(plan.devices[plan.mirrors[name].device], CardModel)
+            and not plan.devices[plan.mirrors[name].device].is_bipolar]
+    if not rows:
+        return None
+    vmax = table_vmax(tree, cols)
+    which = np.full((len(tree.mirrors), cols.size), -1, dtype=np.int64)
+    found: list[Table] = []
+    index: dict[tuple[str, str, float], int] = {}
+    for i in rows:
+        device = plan.mirrors[tree.mirrors[i]].device
+        dev = plan.devices[device]
+        for j in range(cols.size):
+            key = (device, cols.corner[j], float(cols.temperature[j]))
+            if key not in index:
+                index[key] = len(found)
+                found.append(characterize.table_for(dev, cols.corner[j], float(cols.temperature[j]), vmax))
+            which[i, j] = index[key]
+    return TableSet(tuple(found), which)
 
 
 def _simple_card(dev: BjtModel) -> dict[str, float]:

@@ -97,42 +97,6 @@ def _model_card(name: str, dev: BjtModel | MosModel, temperature: float) -> str:
     return f".model {name} {dev.kind} ({' '.join(params)})"
 
 
-def _card_source(dev: CardModel, corner: str) -> str:
-    """The designer's models by reference (``.include`` / ``.lib FILE SECTION``) or inline."""
-    if dev.card is not None:
-        return dev.card.strip()
-    if dev.include is not None:
-        return f'.include "{dev.include}"'
-    return f'.lib "{dev.library}" {dev.section_for(corner)}'
-
-
-def _length_scale(dev: CardModel, corner: str) -> float:
-    """The ``.option scale`` the device's library sets (sky130: 1e-6), 1 if none."""
-    for line in model_cards.deck(dev, corner).lines:
-        if line.keyword in (".option", ".options"):
-            for word in line.text.lower().replace("=", " = ").split("scale = ")[1:]:
-                from biastree.input.spice_text import spice_number
-
-                value = spice_number(word.split()[0])
-                if value:
-                    return value
-    return 1.0
-
-
-def _card_device(label: str, dev: CardModel, c: str, b: str, e: str, bulk: str, copies: float) -> str:
-    """One instance of a card device: ``copies`` unit devices in parallel (m=), never a wider device."""
-    if dev.is_bipolar:
-        found = model_cards.locate(dev)
-        if found.subckt is None:
-            return f"q{label} {c} {b} {e} {dev.model} m={_num(copies)}"
-        ports = [c, b, e] + [bulk] * (len(found.ports) - 3)
-        return f"x{label} {' '.join(ports)} {dev.model} m={_num(copies)}"
-    scale = _length_scale(dev, "")
-    size = f"w={_num(dev.w / scale)} l={_num(dev.l / scale)}"  # type: ignore[operator]
-    kind = "m" if dev.model.lower() in model_cards.deck(dev).models else "x"
-    return f"{kind}{label} {c} {b} {e} {bulk} {dev.model} {size} m={_num(copies)}"
-
-
 Writer = Callable[["_Context", str], list[str]]
 
 
@@ -188,7 +152,7 @@ class _Context:
         model = self.models[plan.mirrors[mirror].device]
         if isinstance(dev, CardModel):
             rail = "0" if dev.kind in ("npn", "nmos") else "vdd"
-            return _card_device(label, dev, c, b, e, bulk or rail, size * multiplicity)
+            return model_cards.instance_line(label, dev, c, b, e, bulk or rail, size * multiplicity)
         if isinstance(dev, BjtModel):
             return f"q{label} {c} {b} {e} {model} area={_num(size * multiplicity)}{extra}"
         if extra.startswith("@model="):
@@ -362,7 +326,7 @@ def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: O
     for name, dev in plan.devices.items():
         if isinstance(dev, CardModel):
             models[name] = dev.model
-            source = _card_source(dev, corner)
+            source = model_cards.source_line(dev, corner)
             if source not in sources:  # one .lib/.include per library, however many devices use it
                 sources.append(source)
                 lines.append(source)

@@ -21,65 +21,9 @@ import numpy as np
 from biastree.analysis.solve import CASES, OperatingPoint, solve
 from biastree.errors import SimulatorError
 from biastree.output.spice import Netlist, to_spice
-from biastree.sim.ngspice import INSTALL_HINT, find_ngspice, run_deck  # noqa: F401  (re-exported)
+from biastree.sim.ngspice import INSTALL_HINT, find_ngspice, parse_raw, run_deck  # noqa: F401  (re-exported)
 from biastree.tree.arrays import Tree
 
-
-
-def parse_raw(text: str) -> list[dict[str, np.ndarray]]:
-    """Plots of an ASCII SPICE raw file: one dict per plot, variable → values.
-
-    >>> raw = ("Title: t\\nPlotname: Operating Point\\nFlags: real\\nNo. Variables: 2\\n"
-    ...        "No. Points: 1\\nVariables:\\n\\t0\\tv(a)\\tvoltage\\n\\t1\\ti(v1)\\tcurrent\\n"
-    ...        "Values:\\n0\\t\\t1.5e+00\\n\\t-2.0e-06\\n")
-    >>> float(parse_raw(raw)[0]["i(v1)"][0])
-    -2e-06
-    """
-    plots = []
-    lines = text.splitlines()
-    i = 0
-    while i < len(lines):
-        header: dict[str, str] = {}
-        while i < len(lines) and not lines[i].startswith("Variables:"):
-            if ":" in lines[i]:
-                key, _, value = lines[i].partition(":")
-                header[key.strip().lower()] = value.strip()
-            i += 1
-        if i >= len(lines):
-            break
-        try:
-            n_vars = int(header["no. variables"])
-            n_points = int(header["no. points"])
-        except (KeyError, ValueError):
-            raise SimulatorError("raw file: header without variable or point counts") from None
-        complex_values = "complex" in header.get("flags", "")
-        names = []
-        i += 1
-        for _ in range(n_vars):
-            if i >= len(lines):
-                raise SimulatorError("raw file: truncated variable list")
-            parts = lines[i].split()
-            names.append(parts[1].lower())
-            i += 1
-        if i >= len(lines) or not lines[i].startswith("Values:"):
-            raise SimulatorError("raw file: no values (binary raw file, or the run stopped early)")
-        i += 1
-        tokens: list[str] = []
-        needed = n_points * (n_vars + 1)
-        while i < len(lines) and len(tokens) < needed:
-            tokens += lines[i].split()
-            i += 1
-        if len(tokens) < needed:
-            raise SimulatorError(f"raw file: incomplete ({len(tokens)} of {needed} numbers)")
-        table = np.array(tokens[:needed], dtype=object).reshape(n_points, n_vars + 1)[:, 1:]
-
-        def value(tok: str) -> float:
-            return float(tok.split(",")[0]) if complex_values else float(tok)
-
-        plots.append({name: np.array([value(t) for t in table[:, k]]) for k, name in enumerate(names)})
-    if not plots:
-        raise SimulatorError("raw file: no plot found")
-    return plots
 
 
 def run_ngspice(netlist: str, timeout: float = 120.0, spiceinit: str = "") -> dict[str, np.ndarray]:
