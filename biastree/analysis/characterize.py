@@ -140,3 +140,28 @@ def table_for(dev: CardModel, corner: str, kelvin: float, vmax: float, folder: P
     table = Table(np.asarray(vgs, float), np.asarray(vds, float), np.log(np.maximum(current, 1e-30)))
     _MEMORY[key] = table
     return table
+
+
+def characterize_plan(tree: object, folder: Path | None = None) -> list[dict[str, object]]:
+    """Tables of every MOS device given by a card, at every temperature and corner the plan
+    uses (nominal included); simulated where the cache folder has none.  Returns their headers."""
+    from biastree.analysis.conditions import condition_columns, table_vmax
+
+    plan = tree.plan  # type: ignore[attr-defined]
+    cols = condition_columns(tree)  # type: ignore[arg-type]
+    vmax = table_vmax(tree, cols)  # type: ignore[arg-type]
+    temps = sorted(set(plan.conditions.temperatures or [plan.temperature]) | {plan.temperature})
+    corners = [""] + list(plan.conditions.corners)
+    done = []
+    used = {plan.mirrors[m].device for m in plan.mirrors}
+    for name, dev in plan.devices.items():
+        if not isinstance(dev, CardModel) or dev.is_bipolar or name not in used:
+            continue
+        for corner in corners:
+            for kelvin in temps:
+                table_for(dev, corner, kelvin, vmax, folder)
+                info = header(dev, corner, kelvin, vmax)
+                info["device"] = name
+                info["file"] = str((folder or table_folder()) / f"{info['hash']}.npz")
+                done.append(info)
+    return done
