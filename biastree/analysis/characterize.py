@@ -40,6 +40,12 @@ FORMAT = "biastree characterisation table 1"
 _MEMORY: dict[str, Table] = {}
 
 
+def table_vmax(plan: object, supplies: tuple[float, ...] = ()) -> float:
+    """Upper end of a table's sweeps: the highest supply, rounded up to 0.1 V (a stable cache key)."""
+    top = max([plan.supply, *plan.conditions.supplies, *supplies])  # type: ignore[attr-defined]
+    return float(np.ceil(top * 10.0 - 1e-9) / 10.0)
+
+
 def table_folder() -> Path:
     """Where tables are kept: ``$BIASTREE_TABLES``, else ``~/.cache/biastree/tables``."""
     env = os.environ.get("BIASTREE_TABLES")
@@ -145,11 +151,8 @@ def table_for(dev: CardModel, corner: str, kelvin: float, vmax: float, folder: P
 def characterize_plan(tree: object, folder: Path | None = None) -> list[dict[str, object]]:
     """Tables of every MOS device given by a card, at every temperature and corner the plan
     uses (nominal included); simulated where the cache folder has none.  Returns their headers."""
-    from biastree.analysis.conditions import condition_columns, table_vmax
-
     plan = tree.plan  # type: ignore[attr-defined]
-    cols = condition_columns(tree)  # type: ignore[arg-type]
-    vmax = table_vmax(tree, cols)  # type: ignore[arg-type]
+    vmax = table_vmax(plan)
     temps = sorted(set(plan.conditions.temperatures or [plan.temperature]) | {plan.temperature})
     corners = [""] + list(plan.conditions.corners)
     done = []

@@ -181,13 +181,6 @@ def device_arrays(tree: Tree, cols: Columns) -> DeviceArrays:
     )
 
 
-def table_vmax(tree: Tree, cols: Columns) -> float:
-    """Upper end of a table's sweeps: the highest supply, rounded up to 0.1 V (a stable cache key)."""
-    plan = tree.plan
-    top = max([plan.supply, *plan.conditions.supplies, float(np.max(cols.supply))])
-    return float(np.ceil(top * 10.0 - 1e-9) / 10.0)
-
-
 def mos_tables(tree: Tree, cols: Columns) -> TableSet | None:
     """Characterisation tables of every MOS mirror given by a card, per column (its temperature
     and corner section); simulated on first use and cached (biastree.analysis.characterize)."""
@@ -197,7 +190,7 @@ def mos_tables(tree: Tree, cols: Columns) -> TableSet | None:
             and not plan.devices[plan.mirrors[name].device].is_bipolar]
     if not rows:
         return None
-    vmax = table_vmax(tree, cols)
+    vmax = characterize.table_vmax(plan, (float(np.max(cols.supply)),))
     which = np.full((len(tree.mirrors), cols.size), -1, dtype=np.int64)
     found: list[Table] = []
     index: dict[tuple[str, str, float], int] = {}

@@ -20,14 +20,29 @@ from pathlib import Path
 from typing import Annotated, Literal, Optional
 
 from annotated_types import Gt
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationInfo, field_validator, model_validator
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    ValidationInfo,
+    WithJsonSchema,
+    field_validator,
+    model_validator,
+)
 
 from biastree.units import parse_quantity
 
-_Length = Annotated[float, BeforeValidator(lambda v: parse_quantity(v, "m")), Gt(0)]
-_VoltMeter = Annotated[float, BeforeValidator(lambda v: parse_quantity(v, "V*m"))]
-_FractionMeter = Annotated[float, BeforeValidator(lambda v: parse_quantity(v, "%*m"))]
-_Area = Annotated[float, BeforeValidator(lambda v: parse_quantity(v, "m^2")), Gt(0)]
+def _schema(example: str) -> WithJsonSchema:
+    # a number, or text with SI prefix and unit (the plan's quantity fields say the same)
+    return WithJsonSchema({"anyOf": [{"type": "number"}, {"type": "string", "pattern": r"^\s*[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?\s*\S*\s*$"}],
+                           "examples": [example]})
+
+
+_Length = Annotated[float, BeforeValidator(lambda v: parse_quantity(v, "m")), Gt(0), _schema("1um")]
+_VoltMeter = Annotated[float, BeforeValidator(lambda v: parse_quantity(v, "V*m")), _schema("5mV*um")]
+_FractionMeter = Annotated[float, BeforeValidator(lambda v: parse_quantity(v, "%*m")), _schema("1%*um")]
+_Area = Annotated[float, BeforeValidator(lambda v: parse_quantity(v, "m^2")), Gt(0), _schema("4um^2")]
 
 PACKAGE_PREFIX = "package:"
 
