@@ -150,11 +150,9 @@ class MosModel(_Strict):
 
 def _device_tag(data: object) -> str | None:
     # A device that names a model card (key "model") is a CardModel; otherwise its kind picks the simple model.
-    if is_card(data):
+    if is_card(data) or isinstance(data, CardModel):
         return "card"
     kind = data.get("kind") if isinstance(data, dict) else getattr(data, "kind", None)
-    if isinstance(data, CardModel):
-        return "card"
     return kind if isinstance(kind, str) else None
 
 
