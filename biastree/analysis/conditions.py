@@ -18,10 +18,15 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
+from biastree.analysis import cards as model_cards
+from biastree.analysis import characterize
 from biastree.analysis.floorplan import remote_offsets
+from biastree.input.cards import CardModel
 from biastree.input.model import BjtModel, Corner, Plan
 from biastree.physics import devices
+from biastree.physics import gummel_poon as gp
 from biastree.physics.devices import Array
+from biastree.physics.tables import Table, TableSet
 from biastree.physics.topologies import DeviceArrays
 from biastree.tree.arrays import Tree
 from biastree.units import ZERO_CELSIUS
@@ -142,6 +147,8 @@ def device_arrays(tree: Tree, cols: Columns) -> DeviceArrays:
         mirror = plan.mirrors[name]
         dev = plan.devices[mirror.device]
         base["size"][i] = mirror.input_size
+        if isinstance(dev, CardModel):
+            continue  # its parameters come from the card (gp below, or a characterisation table)
         base["tnom"][i] = dev.tnom
         if isinstance(dev, BjtModel):
             base["is"][i], base["beta"][i], base["early"][i] = dev.is_, dev.beta, dev.vaf
@@ -169,4 +176,66 @@ def device_arrays(tree: Tree, cols: Columns) -> DeviceArrays:
         vth=np.broadcast_to(vth_t, shape).copy(),
         lam=np.broadcast_to(base["lam"] * (1.0 + sh["lambda"]), shape).copy(),
         size_in=np.broadcast_to(base["size"], shape).copy(),
+        gp=bipolar_cards(tree, cols, sh),
+        tables=mos_tables(tree, cols),
     )
+
+
+def mos_tables(tree: Tree, cols: Columns) -> TableSet | None:
+    """Characterisation tables of every MOS mirror given by a card, per column (its temperature
+    and corner section); simulated on first use and cached (biastree.analysis.characterize)."""
+    plan = tree.plan
+    rows = [i for i, name in enumerate(tree.mirrors)
+            if isinstance(plan.devices[plan.mirrors[name].device], CardModel)
+            and not plan.devices[plan.mirrors[name].device].is_bipolar]
+    if not rows:
+        return None
+    vmax = characterize.table_vmax(plan, (float(np.max(cols.supply)),))
+    which = np.full((len(tree.mirrors), cols.size), -1, dtype=np.int64)
+    found: list[Table] = []
+    index: dict[tuple[str, str, float], int] = {}
+    for i in rows:
+        device = plan.mirrors[tree.mirrors[i]].device
+        dev = plan.devices[device]
+        for j in range(cols.size):
+            key = (device, cols.corner[j], float(cols.temperature[j]))
+            if key not in index:
+                index[key] = len(found)
+                found.append(characterize.table_for(dev, cols.corner[j], float(cols.temperature[j]), vmax))
+            which[i, j] = index[key]
+    return TableSet(tuple(found), which)
+
+
+def _simple_card(dev: BjtModel) -> dict[str, float]:
+    """A simple bipolar model as the Gummel–Poon card it stands for."""
+    values = {"is": dev.is_, "bf": dev.beta, "xti": dev.xti, "eg": dev.eg, "xtb": dev.xtb,
+              "tnom": dev.tnom - ZERO_CELSIUS}
+    if dev.early is not None:
+        values["vaf"] = dev.early
+    return values
+
+
+def bipolar_cards(tree: Tree, cols: Columns, sh: dict[str, Array]) -> gp.GummelPoon | None:
+    """Full Gummel–Poon parameters of every bipolar mirror, (n_mirrors, C), when the plan
+    has any bipolar card (simple models then join as the cards they stand for); else None."""
+    plan = tree.plan
+    if not any(isinstance(d, CardModel) and d.is_bipolar for d in plan.devices.values()):
+        return None
+    rows = []
+    nan = gp.from_card({}, cols.temperature[None, :] * 0 + 300.15)
+    for name in tree.mirrors:
+        dev = plan.devices[plan.mirrors[name].device]
+        if isinstance(dev, CardModel) and dev.is_bipolar:
+            # one parameter set per column: its temperature and its corner's library section
+            per_col = []
+            for j, corner in enumerate(cols.corner):
+                per_col.append(model_cards.gummel_poon(dev, corner, cols.temperature[j:j + 1][None, :]))
+            rows.append(gp.concat_columns(per_col))
+        elif isinstance(dev, BjtModel):
+            rows.append(gp.from_card(_simple_card(dev), cols.temperature[None, :], gmin=0.0))
+        else:
+            rows.append(nan)
+    p = gp.stack(rows)
+    # the plan's own corner shifts apply on top of the cards
+    return replace(p, is_be=p.is_be * (1.0 + sh["is"]), is_bc=p.is_bc * (1.0 + sh["is"]),
+                    bf=p.bf * (1.0 + sh["beta"]), inv_vaf=p.inv_vaf / (1.0 + sh["early"]))

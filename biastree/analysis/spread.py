@@ -30,7 +30,6 @@ import numpy as np
 from biastree.analysis.conditions import default_columns
 from biastree.analysis.corners import path_headroom
 from biastree.analysis.solve import solve
-from biastree.input.model import BjtModel
 from biastree.physics.devices import Array
 from biastree.tree.arrays import Tree
 
@@ -75,7 +74,7 @@ def device_sigmas(tree: Tree) -> DeviceSigmas:
     size_in = np.array([plan.mirrors[m].input_size for m in tree.mirrors])
     for i, name in enumerate(tree.mirrors):
         dev = plan.devices[plan.mirrors[name].device]
-        if isinstance(dev, BjtModel):
+        if dev.kind in ("npn", "pnp"):
             if dev.area:
                 a_is[i], unit[i] = single(dev.a_is_pair, dev.a_is_single), dev.area
         else:

@@ -7,7 +7,7 @@ fails its budget (or the simulator disagrees), 2 invalid input or usage,
 
 from __future__ import annotations
 
-from biastree.cli import check, conditions, diff, extract, plan, review, simulate  # noqa: F401  (each registers its commands)
+from biastree.cli import characterize, check, conditions, diff, extract, plan, review, simulate  # noqa: F401  (each registers its commands)
 from biastree.cli.app import app
 
 __all__ = ["app", "main"]

@@ -60,6 +60,10 @@ def check(
     with biastree._gc_paused():  # millions of small acyclic objects: nothing for the collector to find
         netlist = is_netlist(plan) or annotate is not None or top is not None
         tree = netlist_tree(plan, annotate, top, forward_bias) if netlist else load_tree(plan, forward_bias)
+        from biastree.analysis.cards import notes
+
+        for note in notes(tree.plan):  # card parameters the model does not know: said, never silently dropped
+            typer.echo(f"note: {note}", err=True)
         result = biastree.check(tree, conditions=conditions, mismatch=mismatch, k_sigma=k_sigma)
         if json:
             from biastree.output.json import default_detail, iter_json

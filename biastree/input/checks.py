@@ -15,7 +15,7 @@ from typing import TYPE_CHECKING, Any
 from pydantic import BaseModel
 
 from biastree.errors import format_path
-from biastree.input.model import BjtModel, Plan, Plausible
+from biastree.input.model import Plan, Plausible
 from biastree.physics.topologies import TOPOLOGIES
 
 if TYPE_CHECKING:
@@ -37,12 +37,13 @@ def _check_spread(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
     """Matching coefficients given twice or without an area; matched pairs naming nothing."""
     out: list[tuple[tuple[Any, ...], str]] = []
     for name, dev in plan.devices.items():
-        pairs = (("a_is_pair", "a_is_single"),) if isinstance(dev, BjtModel) else (
+        bipolar = dev.kind in ("npn", "pnp")
+        pairs = (("a_is_pair", "a_is_single"),) if bipolar else (
             ("a_vt_pair", "a_vt_single"), ("a_beta_pair", "a_beta_single"))
         for pair, one in pairs:
             if getattr(dev, pair) is not None and getattr(dev, one) is not None:
                 out.append((("devices", name, one), f"give either {pair} (a pair's σ) or {one} (one device's), not both"))
-        if isinstance(dev, BjtModel) and (dev.a_is_pair or dev.a_is_single) and dev.area is None:
+        if bipolar and (dev.a_is_pair or dev.a_is_single) and dev.area is None:
             out.append((("devices", name), "a bipolar matching coefficient needs the unit device's emitter area (area: 4um^2)"))
     for name, group in plan.matched.items():
         for k, load in enumerate(group.loads):
@@ -171,7 +172,7 @@ def _structure(plan: Plan) -> tuple[list[tuple[tuple[Any, ...], str]], dict[int,
             problems.append((("mirrors", name, "device"), _no_device(mirror.device, list(devices))))
             continue
         kinds[name] = device.kind
-        family = "bjt" if isinstance(device, BjtModel) else "mos"
+        family = "bjt" if device.kind in ("npn", "pnp") else "mos"
         topo = TOPOLOGIES[mirror.topology]
         if family not in topo.kinds:
             problems.append(

@@ -384,7 +384,7 @@ def _describe(err: dict[str, Any], data: Any, model: Any = Plan) -> tuple[tuple[
     loc = tuple(err["loc"])
     kind = err["type"]
     # The discriminated device union puts the tag into the path: drop it.
-    if len(loc) >= 3 and loc[0] == "devices" and loc[2] in ("npn", "pnp", "nmos", "pmos"):
+    if len(loc) >= 3 and loc[0] == "devices" and loc[2] in ("npn", "pnp", "nmos", "pmos", "card"):
         loc = loc[:2] + loc[3:]
     # A [min, max] voltage that failed both union members: report it once.
     if "voltage" in loc:
@@ -443,8 +443,10 @@ def validate(doc: Document, model: Any = Plan) -> Any:
     """
     from biastree.input.checks import raw_name_problems, structure_tagged
 
+    # model files named by devices are found relative to the plan's folder
+    base = str(Path(doc.source).resolve().parent) if Path(doc.source).is_file() else None
     try:
-        plan = model.model_validate(doc.data)
+        plan = model.model_validate(doc.data, context={"base": base})
     except ValidationError as exc:
         problems = []
         seen = set()

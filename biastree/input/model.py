@@ -16,12 +16,15 @@ from pydantic import (
     BaseModel,
     BeforeValidator,
     ConfigDict,
+    Discriminator,
     Field,
     PlainSerializer,
+    Tag,
     WithJsonSchema,
     field_validator,
 )
 
+from biastree.input.cards import CardModel, is_card
 from biastree.units import ZERO_CELSIUS, UnitError, parse_quantity, shown
 
 _QUANTITY_PATTERN = r"^\s*[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?\s*\S*\s*$"
@@ -205,7 +208,19 @@ class MosModel(_Strict):
     a_beta_single: Optional[FractionMeter] = Field(default=None, description="σ(Δβ/β) of ONE device × √(WL)")
 
 
-DeviceModel = Annotated[Union[BjtModel, MosModel], Field(discriminator="kind")]
+def _device_tag(data: object) -> str | None:
+    # A device that names a model card (key "model") is a CardModel; otherwise its kind picks the simple model.
+    if is_card(data) or isinstance(data, CardModel):
+        return "card"
+    kind = data.get("kind") if isinstance(data, dict) else getattr(data, "kind", None)
+    return kind if isinstance(kind, str) else None
+
+
+DeviceModel = Annotated[
+    Union[Annotated[BjtModel, Tag("npn")], Annotated[BjtModel, Tag("pnp")], Annotated[MosModel, Tag("nmos")],
+          Annotated[MosModel, Tag("pmos")], Annotated[CardModel, Tag("card")]],
+    Discriminator(_device_tag),
+]
 
 
 class Reference(_Strict):

@@ -33,8 +33,9 @@ from biastree.errors import BiasTreeError
 from biastree.units import _scaled
 
 # SPICE scale suffixes (lower case).  'meg' and 'mil' are checked before the
-# one-letter ones; 'm' is milli, as in every SPICE.
-_SCALE: dict[str, int] = {"t": 12, "g": 9, "k": 3, "m": -3, "u": -6, "n": -9, "p": -12, "f": -15, "a": -18}
+# one-letter ones; 'm' is milli, as in every SPICE.  No 'a': ngspice reads
+# '1e-17A' as 1e-17 amperes, not atto (checked with ngspice 39).
+_SCALE: dict[str, int] = {"t": 12, "g": 9, "k": 3, "m": -3, "u": -6, "n": -9, "p": -12, "f": -15}
 _NUMBER_HEAD = re.compile(r"^([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)([A-Za-z_µ%]*)$")
 
 

@@ -20,7 +20,10 @@ import numpy as np
 from biastree.analysis.conditions import condition_columns, reference_current
 from biastree.analysis.floorplan import remote_offsets as tree_remote
 from biastree.analysis.solve import CASES, OperatingPoint, solve, topology_params
+from biastree.analysis import cards as model_cards
+from biastree.input.cards import CardModel
 from biastree.input.model import BjtModel, MosModel
+from biastree.sim.ngspice import COMPATIBLE
 from biastree.tree.arrays import Tree
 from biastree.units import ZERO_CELSIUS
 
@@ -69,6 +72,7 @@ class Netlist:
     instances: dict[str, float] = field(default_factory=dict)  # load name → instances behind the ammeter
     sources: dict[str, str] = field(default_factory=dict)  # load name → its node-voltage source
     mirror_nodes: dict[str, str] = field(default_factory=dict)  # mirror name → input node
+    spiceinit: str = ""  # start-up settings the models need (ngspice compatibility mode for PDK libraries)
 
     def with_sweep(self, load: str, start: float, stop: float, step: float) -> str:
         """The netlist with its operating point replaced by a DC sweep of one load's voltage."""
@@ -146,6 +150,9 @@ class _Context:
         plan = self.tree.plan
         dev = plan.devices[plan.mirrors[mirror].device]
         model = self.models[plan.mirrors[mirror].device]
+        if isinstance(dev, CardModel):
+            rail = "0" if dev.kind in ("npn", "nmos") else "vdd"
+            return model_cards.instance_line(label, dev, c, b, e, bulk or rail, size * multiplicity)
         if isinstance(dev, BjtModel):
             return f"q{label} {c} {b} {e} {model} area={_num(size * multiplicity)}{extra}"
         if extra.startswith("@model="):
@@ -284,11 +291,14 @@ WRITERS: dict[str, Writer] = {
 
 
 def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: OperatingPoint | None = None,
-             temperature: float | None = None, supply: float | None = None) -> Netlist:
+             temperature: float | None = None, supply: float | None = None, corner: str = "") -> Netlist:
     """The plan as an ngspice netlist, loads at the ``case`` end of their range.
 
     ``case`` is one of ``min``, ``nominal``, ``max``; ``temperature`` (K) and
-    ``supply`` (V) override the plan's conditions.  Every mirror's input
+    ``supply`` (V) override the plan's conditions; ``corner`` picks the library
+    sections of devices given by cards.  Devices given by cards are written by
+    reference (``.include`` / ``.lib FILE SECTION``) or inline, each size as
+    ``m=`` copies of the unit device.  Every mirror's input
     node gets a ``.nodeset`` at biastree's solution (``op``, solved here if
     not given): only a starting guess for the simulator's Newton iteration,
     which still finds its own answer, but it spares deep trees the gmin
@@ -312,7 +322,15 @@ def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: O
         f".temp {_num(kelvin - ZERO_CELSIUS)}",
     ]
     models: dict[str, str] = {}
+    sources: list[str] = []
     for name, dev in plan.devices.items():
+        if isinstance(dev, CardModel):
+            models[name] = dev.model
+            source = model_cards.source_line(dev, corner)
+            if source not in sources:  # one .lib/.include per library, however many devices use it
+                sources.append(source)
+                lines.append(source)
+            continue
         models[name] = names.get("model", name)
         lines.append(_model_card(models[name], dev, kelvin))
     lines.append(f"vdd vdd 0 dc {_num(vdd)}")
@@ -322,7 +340,7 @@ def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: O
     out_node: dict[tuple[str, int], str] = {}
     load_lines: list[str] = []
     ammeters: dict[str, str] = {}
-    sources: dict[str, str] = {}
+    sources_of_loads: dict[str, str] = {}
     instances: dict[str, float] = {}
     for b in range(len(tree.b_parent)):
         parent = tree.mirrors[tree.b_parent[b]]
@@ -337,7 +355,7 @@ def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: O
             # ammeter oriented so that the delivered current reads positive
             a, c = (f"l_{tag}", node) if sink else (node, f"l_{tag}")
             ammeters[load] = f"va_{tag}"
-            sources[load] = f"vl_{tag}"
+            sources_of_loads[load] = f"vl_{tag}"
             instances[load] = float(tree.l_mult[tree.b_child[b]])
             load_lines += [f"va_{tag} {a} {c} dc 0", f"vl_{tag} l_{tag} 0 dc {_num(voltage)}"]
         else:
@@ -376,4 +394,6 @@ def to_spice(tree: Tree, case: str = "nominal", source: str | None = None, op: O
     for load in tree.loads:
         lines.append(f"*   {ammeters[load]} -> {load} (x{instances[load]:g})")
     lines.append(".end")
-    return Netlist("\n".join(lines) + "\n", case, ammeters, instances, sources, node_of_mirror)
+    by_file = any(isinstance(d, CardModel) and d.card is None for d in plan.devices.values())
+    return Netlist("\n".join(lines) + "\n", case, ammeters, instances, sources_of_loads, node_of_mirror,
+                   spiceinit=COMPATIBLE if by_file else "")

@@ -27,7 +27,8 @@ from typing import Callable
 
 import numpy as np
 
-from biastree.physics import devices
+from biastree.errors import SolveError
+from biastree.physics import devices, gp_mirrors, gummel_poon, tables
 from biastree.physics.devices import Array
 
 TERM_LABELS = {
@@ -54,15 +55,23 @@ class DeviceArrays:
     vth: Array
     lam: Array
     size_in: Array  # input_size (unit devices)
+    # Bipolar devices given by Gummel–Poon cards: their full DC parameters per row
+    # (every bipolar row of a plan that has any such card; None otherwise)
+    gp: gummel_poon.GummelPoon | None = None
+    # MOS devices given by cards: their characterisation tables per (row, column), or None
+    tables: tables.TableSet | None = None
 
     def take(self, index: Array, family: str | None = None) -> "DeviceArrays":
         """Rows ``index`` of every parameter (optionally relabelled as one family)."""
-        arrays = (getattr(self, f)[index] for f in self.__dataclass_fields__ if f != "family")
-        return DeviceArrays(family or self.family, *arrays)
+        arrays = (getattr(self, f)[index] for f in self.__dataclass_fields__ if f not in ("family", "gp", "tables"))
+        return DeviceArrays(family or self.family, *arrays, gp=None if self.gp is None else self.gp.take(index),
+                            tables=None if self.tables is None else self.tables.take(index))
 
     def ideal_outputs(self) -> "DeviceArrays":
         """The same devices with infinite output resistance (V_A → ∞, λ = 0)."""
-        return replace(self, early=np.full_like(self.early, np.inf), lam=np.zeros_like(self.lam))
+        return replace(self, early=np.full_like(self.early, np.inf), lam=np.zeros_like(self.lam),
+                       gp=None if self.gp is None else self.gp.ideal_outputs(),
+                       tables=None if self.tables is None else replace(self.tables, ideal=True))
 
 
 @dataclass(frozen=True)
@@ -154,6 +163,8 @@ def _simple(g: GroupInput) -> GroupOutput:
     """
     d, r = g.dev, g.row
     scale = 1.0 if g.is_scale is None else g.is_scale
+    if d.family == "bjt" and d.gp is not None:
+        return GroupOutput(*gp_mirrors.simple(g, d.gp))
     if d.family == "bjt":
         x_in = g.i_in / (1.0 + (1.0 + g.fanout(scale)) / d.beta)  # IS·A0·e^(VBE/VT)
         vbe = _vbe(x_in, d.is_in, d.vt)
@@ -166,7 +177,26 @@ def _simple(g: GroupInput) -> GroupOutput:
     current = (g.i_in[r] * g.ratio * mismatch * devices.clm_factor(g.distance, d.lam[r])
                / devices.clm_factor(vgs[r], d.lam[r]))
     vmin = np.broadcast_to(vov_in[r] - dvt, current.shape)
+    if d.tables is not None and d.tables.any():
+        return _simple_tables(g, vgs, current, vmin)
     return GroupOutput(vgs, current, vmin, np.zeros_like(g.i_in))
+
+
+def _simple_tables(g: GroupInput, vgs: Array, current: Array, vmin: Array) -> GroupOutput:
+    """Rows with characterisation tables replace the square law (see biastree.physics.tables)."""
+    d, r = g.dev, g.row
+    t = d.tables
+    assert t is not None
+    t_out = t.take(r)
+    dvt, ks = g.mos_mismatch()
+    vgs_t = tables.diode_vgs(g.i_in / d.size_in, t)
+    vg_out = vgs_t[r] - dvt  # a threshold mismatch shifts the output's effective V_GS
+    vds = np.broadcast_to(vgs_t[r], g.distance.shape) if t.ideal else g.distance
+    cur_t = g.ratio * d.size_in[r] * ks * np.exp(t_out.log_current(vg_out, vds))
+    vmin_t = tables.compliance(np.broadcast_to(vg_out, cur_t.shape), t_out)
+    in_rows, out_rows = t.which >= 0, t_out.which >= 0
+    return GroupOutput(np.where(in_rows, vgs_t, vgs), np.where(out_rows, cur_t, current),
+                       np.where(out_rows, vmin_t, vmin), np.zeros_like(g.i_in))
 
 
 # --- beta helper ---------------------------------------------------------------
@@ -184,6 +214,8 @@ def _beta_helper(g: GroupInput) -> GroupOutput:
     with X = IS·e^(VBE/VT) per unit and VCB_B = supply − VBE − VBE_B.
     """
     d, r = g.dev, g.row
+    if d.gp is not None:
+        return GroupOutput(*gp_mirrors.beta_helper(g, d.gp))
     scale = 1.0 if g.is_scale is None else g.is_scale
     a0 = d.size_in
     is_unit = d.is_in / a0
@@ -222,6 +254,8 @@ def _wilson_core(g: GroupInput, four: bool) -> GroupOutput:
     VCB1 = VBE3 (three devices) or VBE3 − VBE4 (four devices: Q4 carries IC1).
     """
     d = g.dev  # one branch per mirror: branch rows and mirror rows coincide
+    if d.gp is not None:
+        return GroupOutput(*gp_mirrors.wilson(g, d.gp, four))
     scale = 1.0 if g.is_scale is None else g.is_scale
     a0 = d.size_in
     is_unit = d.is_in / a0
@@ -279,6 +313,8 @@ def _cascode(g: GroupInput) -> GroupOutput:
     d, r = g.dev, g.row
     scale = 1.0 if g.is_scale is None else g.is_scale
     a0 = d.size_in
+    if d.family == "bjt" and d.gp is not None:
+        return GroupOutput(*gp_mirrors.cascode(g, d.gp))
     if d.family == "bjt":
         is_unit = d.is_in / a0
         fan = g.fanout(scale)
@@ -308,6 +344,8 @@ def _cascode(g: GroupInput) -> GroupOutput:
             ib4_sum = new_sum
         current = x4 * devices.early_factor(vcb4, d.early[r])
         return GroupOutput(v_in, current, np.broadcast_to(v_in[r], current.shape), np.zeros_like(g.i_in))
+    if d.tables is not None and d.tables.any():
+        raise SolveError("MOS devices given by cards are characterised for the simple topology only (so far)")
     vgs1 = devices.mos_vgs(g.i_in, d.k_in, d.vth, d.lam)
     vgs3 = devices.mos_vgs(g.i_in, d.k_in, d.vth, d.lam)  # top diode: V_DS = V_GS too (γ = 0: no body effect)
     v_in = vgs1 + vgs3
@@ -381,6 +419,8 @@ def _wide_swing(g: GroupInput) -> GroupOutput:
     default: the mirror's ideal input current) and is counted as overhead.
     """
     d, r = g.dev, g.row
+    if d.tables is not None and d.tables.any():
+        raise SolveError("MOS devices given by cards are characterised for the simple topology only (so far)")
     n = g.params["swing_n"]
     i_bias = g.params["bias_current"]
     k5 = d.k_in / (n + 1.0) ** 2
@@ -418,6 +458,8 @@ def _degenerated(g: GroupInput) -> GroupOutput:
       I_in = IC1 + IB1 + Σ IB_k,
     solved by Newton's method on V_B (the residual is monotone in V_B)."""
     d, r = g.dev, g.row
+    if d.gp is not None:
+        return GroupOutput(*gp_mirrors.degenerated(g, d.gp))
     scale = 1.0 if g.is_scale is None else g.is_scale
     r1 = g.params["r_emitter"]
     is_out = d.is_in[r] * g.ratio * scale

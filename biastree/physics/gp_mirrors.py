@@ -1,0 +1,259 @@
+"""Bipolar mirrors solved exactly with the full Gummel–Poon DC model.
+
+Each function takes a group (``biastree.physics.topologies.GroupInput``) and
+solves it of mirrors of one topology at once, like the
+entries of ``biastree.physics.topologies`` (first axis mirrors or branches,
+trailing axes conditions), but with every device given by
+``biastree.physics.gummel_poon``: current-dependent β (ISE/NE, IKF, NKF),
+reverse Early effect, RB/IRB/RBM, RE, RC.  Sizes are numbers of unit devices
+in parallel (SPICE's ``m=``).  The unknown node voltages are found by a
+vectorised, bracketed Newton iteration on each mirror's KCL, nested where a
+topology has more than one unknown node.
+
+Voltages are distances from the mirror's rail (the npn view).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from biastree.physics import gummel_poon as gp
+from biastree.physics.devices import Array
+
+# (input voltage, output currents, smallest output distance, extra current) — the fields
+# of biastree.physics.topologies.GroupOutput, which wraps them
+Solution = tuple[Array, Array, Array, Array]
+
+
+def _rows(p: gp.GummelPoon, row: Array, scale: Array | float | None) -> gp.GummelPoon:
+    out = p.take(row)
+    return out if scale is None else out.with_is_scale(scale)
+
+
+def diode_current(v: Array, p: gp.GummelPoon) -> Array:
+    """Terminal current I_C + I_B of a diode-connected unit device at V_BE = ``v``."""
+    ic, ib = gp.terminal(v, np.zeros_like(v), p)
+    return ic + ib
+
+
+def diode_voltage(current: Array, p: gp.GummelPoon) -> Array:
+    """V_BE of a diode-connected unit device carrying ``current``."""
+    return gp.solve_increasing(lambda v: diode_current(v, p) - current, gp.vbe_guess(current, p))
+
+
+def emitter_voltage_for(base: Array, collector: Array, emitter_current: Array, p: gp.GummelPoon) -> Array:
+    """Emitter voltage of a unit device whose base and collector sit at ``base`` and
+    ``collector`` and whose emitter carries ``emitter_current`` (an emitter follower)."""
+    def resid(ve: Array) -> Array:
+        ic, ib = gp.terminal(base - ve, base - collector, p)
+        return emitter_current - (ic + ib)  # falls as V_E rises: negate for an increasing residual
+
+    start = base - gp.vbe_guess(emitter_current, p)
+    return gp.solve_increasing(resid, start)
+
+
+def simple(g: Any, p: gp.GummelPoon) -> Solution:
+    """Simple mirror: diode-connected input (A0 units), outputs of m_k·A0 units on its base line.
+
+    KCL at the input node:  I_in = A0·(I_C1 + I_B1)(V) + Σ_k count_k·m_k·A0·I_B,k(V, V − d_k).
+    """
+    r = g.row
+    a0 = g.dev.size_in
+    out_p = _rows(p, r, g.is_scale)
+    units = g.ratio * a0[r]
+
+    def resid(v: Array) -> Array:
+        vb = v[r]
+        _, ib = gp.terminal(vb, vb - g.distance, out_p)
+        return a0 * diode_current(v, p) + g.segment_sum(units * ib) - g.i_in
+
+    start = gp.vbe_guess(g.i_in / a0, p)
+    v = gp.solve_increasing(resid, start)
+    ic, _ = gp.terminal(v[r], v[r] - g.distance, out_p)
+    current = units * ic
+    return v, current, np.broadcast_to(v[r], current.shape).copy(), np.zeros_like(g.i_in)
+
+
+def newton_system(residual, x0: Array, tol: float = 1e-13, iters: int = 100) -> Array:  # type: ignore[no-untyped-def]
+    """Solve residual(x) = 0 for x of shape (..., n), every leading index its own small
+    system: Newton's method with a finite-difference Jacobian and steps limited to
+    0.1 V, as SPICE limits junction voltages."""
+    x = np.array(x0, dtype=float)
+    n = x.shape[-1]
+    h = 1e-8
+    for _ in range(iters):
+        f = residual(x)
+        jac = np.empty(x.shape + (n,))
+        for j in range(n):
+            xp = x.copy()
+            xp[..., j] += h
+            jac[..., :, j] = (residual(xp) - f) / h
+        step = np.linalg.solve(jac, f[..., None])[..., 0]
+        step = np.clip(step, -0.1, 0.1)
+        x = x - step
+        if np.all(np.abs(step) <= tol):
+            break
+    return x
+
+
+def _current(base: Array, collector: Array, emitter: Array, p: gp.GummelPoon) -> tuple[Array, Array]:
+    """(I_C, I_B) of a unit device with its terminals at these distances from the rail."""
+    return gp.terminal(base - emitter, base - collector, p)
+
+
+def beta_helper(g: Any, p: gp.GummelPoon) -> Solution:
+    """β-helper mirror: Q1 (A0) collector at the input node N, base on the base line B;
+    helper QB (helper_size units) base at N, emitter on B, collector on the opposite rail;
+    outputs (m_k·A0) on B; an optional bleed current from B to the rail.
+    Unknowns V_B, V_N:  KCL at N: I_in = A0·I_C1 + I_B,QB;  at B: I_E,QB = A0·I_B1 + Σ I_B,k + I_bleed."""
+    r = g.row
+    a0 = g.dev.size_in
+    hs = g.params["helper_size"]
+    bleed = g.params["bleed"]
+    out_p = _rows(p, r, g.is_scale)
+    units = g.ratio * a0[r]
+    top = np.broadcast_to(g.supply, g.i_in.shape)
+
+    def resid(x: Array) -> Array:
+        vb, vn = x[..., 0], x[..., 1]
+        ic1, ib1 = _current(vb, vn, 0.0 * vb, p)
+        ich, ibh = _current(vn, top, vb, p)
+        _, ibk = _current(vb[r], g.distance, 0.0 * g.distance, out_p)
+        f_n = a0 * ic1 + hs * ibh - g.i_in
+        f_b = hs * (ich + ibh) - a0 * ib1 - g.segment_sum(units * ibk) - bleed
+        return np.stack([f_n, f_b], axis=-1)
+
+    vb0 = gp.vbe_guess(g.i_in / a0, p)
+    vn0 = vb0 + gp.vbe_guess(np.maximum(g.i_in / a0 * 0.05 + bleed / hs, 1e-12), p)
+    x = newton_system(resid, np.stack([vb0, vn0], axis=-1))
+    vb, vn = x[..., 0], x[..., 1]
+    ic, _ = _current(vb[r], g.distance, 0.0 * g.distance, out_p)
+    ich, _ = _current(vn, top, vb, p)
+    current = units * ic
+    return vn, current, np.broadcast_to(vb[r], current.shape).copy(), hs * ich + bleed
+
+
+def wilson(g: Any, p: gp.GummelPoon, four: bool = False) -> Solution:
+    """Wilson mirror (one output, ratio m): Q1 (A0) collector at N (three devices) or at X
+    under the diode Q4 (A0) from N (four devices), base on B; Q2 (m·A0) diode on B (it
+    carries the pair's mismatch); Q3 (m·A0) base at N, emitter on B, collector the output.
+    Unknowns V_B, V_N (and V_X): KCL at N, at B (I_E3 = I_C2 + I_B2 + I_B1) and at X."""
+    a0 = g.dev.size_in
+    m = g.ratio
+    d = g.distance
+    q2 = p if g.is_scale is None else p.with_is_scale(g.is_scale)
+    zero = np.zeros_like(g.i_in)
+
+    def resid(x: Array) -> Array:
+        vb, vn = x[..., 0], x[..., 1]
+        vx = x[..., 2] if four else vn
+        ic1, ib1 = _current(vb, vx, zero, p)
+        ic2, ib2 = _current(vb, vb, zero, q2)
+        ic3, ib3 = _current(vn, d, vb, p)
+        f_b = m * a0 * (ic3 + ib3) - m * a0 * (ic2 + ib2) - a0 * ib1
+        if four:
+            ic4, ib4 = _current(vn, vn, vx, p)
+            f_n = a0 * (ic4 + ib4) + m * a0 * ib3 - g.i_in
+            f_x = a0 * ic1 - a0 * (ic4 + ib4)
+            return np.stack([f_b, f_n, f_x], axis=-1)
+        f_n = a0 * ic1 + m * a0 * ib3 - g.i_in
+        return np.stack([f_b, f_n], axis=-1)
+
+    vb0 = gp.vbe_guess(g.i_in / a0, p) - p.nf * p.vt * np.log(np.maximum(m, 1e-9))
+    vn0 = vb0 + gp.vbe_guess(g.i_in / a0, p)
+    start = [vb0, vn0] + ([vn0 - gp.vbe_guess(g.i_in / a0, p)] if four else [])
+    x = newton_system(resid, np.stack(start, axis=-1))
+    vb, vn = x[..., 0], x[..., 1]
+    ic3, _ = _current(vn, d, vb, p)
+    current = m * a0 * ic3
+    return vn, current, np.broadcast_to(vn, current.shape).copy(), zero
+
+
+def cascode(g: Any, p: gp.GummelPoon) -> Solution:
+    """Cascode mirror: Q1 (A0) diode on B, Q3 (A0) diode from N down to B; per output a
+    mirror device Q2_k (m_k·A0, base B, collector X_k) under a cascode device Q4_k
+    (m_k·A0, base N, emitter X_k, collector the output).  For given V_B, V_N each X_k
+    solves I_C2 = I_E4 (inner Newton); V_B, V_N solve KCL at B and at N (outer Newton)."""
+    r = g.row
+    a0 = g.dev.size_in
+    out_p = _rows(p, r, g.is_scale)
+    units = g.ratio * a0[r]
+    d = g.distance
+    zero = np.zeros_like(g.i_in)
+    state = {"x": None}
+
+    def middle(vb: Array, vn: Array) -> Array:
+        def f(x: Array) -> Array:
+            vx = x[..., 0]
+            ic2, _ = _current(vb[r], vx, 0.0 * vx, out_p)
+            ic4, ib4 = _current(vn[r], d, vx, p.take(r))
+            return (ic2 - (ic4 + ib4))[..., None]
+
+        start = state["x"] if state["x"] is not None and state["x"].shape == d.shape + (1,) else \
+            (0.5 * (vb[r] + 0.0 * d))[..., None]
+        vx = newton_system(f, start)
+        state["x"] = vx
+        return vx[..., 0]
+
+    def resid(x: Array) -> Array:
+        vb, vn = x[..., 0], x[..., 1]
+        vx = middle(vb, vn)
+        ic1, ib1 = _current(vb, vb, zero, p)
+        ic3, ib3 = _current(vn, vn, vb, p)
+        _, ib2 = _current(vb[r], vx, 0.0 * vx, out_p)
+        _, ib4 = _current(vn[r], d, vx, p.take(r))
+        f_b = a0 * (ic3 + ib3) - a0 * (ic1 + ib1) - g.segment_sum(units * ib2)
+        f_n = a0 * (ic3 + ib3) + g.segment_sum(units * ib4) - g.i_in
+        return np.stack([f_b, f_n], axis=-1)
+
+    vb0 = gp.vbe_guess(g.i_in / a0, p)
+    x = newton_system(resid, np.stack([vb0, 2.0 * vb0], axis=-1))
+    vb, vn = x[..., 0], x[..., 1]
+    vx = middle(vb, vn)
+    ic4, _ = _current(vn[r], d, vx, p.take(r))
+    current = units * ic4
+    return vn, current, np.broadcast_to(vn[r], current.shape).copy(), zero
+
+
+def degenerated(g: Any, p: gp.GummelPoon) -> Solution:
+    """Simple mirror with emitter resistors: R_E on the input device (A0 units), R_E/m_k on
+    output k (m_k·A0 units), so every unit device sees R_E·A0.  For a given base-line
+    voltage V_N each device's emitter node E solves E = R_E·A0·I_E (inner Newton); V_N
+    solves KCL at the input node (outer Newton)."""
+    r = g.row
+    a0 = g.dev.size_in
+    r_unit = g.params["r_emitter"] * a0  # the resistance one unit device sees
+    out_p = _rows(p, r, g.is_scale)
+    units = g.ratio * a0[r]
+    d = g.distance
+    state: dict[str, Array | None] = {"in": None, "out": None}
+
+    def emitter(vn: Array, collector: Array, q: gp.GummelPoon, res: Array, key: str) -> Array:
+        def f(e: Array) -> Array:
+            ic, ib = _current(vn, collector, e[..., 0], q)
+            return (e[..., 0] - res * (ic + ib))[..., None]
+
+        old = state[key]
+        start = old if old is not None and old.shape == vn.shape + (1,) else np.zeros(vn.shape + (1,))
+        e = newton_system(f, start)
+        state[key] = e
+        return e[..., 0]
+
+    def currents(vn: Array) -> tuple[Array, Array, Array, Array]:
+        e1 = emitter(vn, vn, p, r_unit, "in")
+        ic1, ib1 = _current(vn, vn, e1, p)
+        ek = emitter(vn[r], d, out_p, r_unit[r], "out")
+        ick, ibk = _current(vn[r], d, ek, out_p)
+        return ic1, ib1, ick, ibk
+
+    def resid(x: Array) -> Array:
+        ic1, ib1, _, ibk = currents(x[..., 0])
+        return (a0 * (ic1 + ib1) + g.segment_sum(units * ibk) - g.i_in)[..., None]
+
+    start = gp.vbe_guess(g.i_in / a0, p) + r_unit * g.i_in / a0
+    vn = newton_system(resid, start[..., None])[..., 0]
+    _, _, ick, _ = currents(vn)
+    current = units * ick
+    return vn, current, np.broadcast_to(vn[r], current.shape).copy(), np.zeros_like(g.i_in)
