@@ -8,7 +8,7 @@ from typing import Annotated, Optional
 
 import typer
 
-from biastree.cli.app import PlanArg, app, emit, guarded, load_tree
+from biastree.cli.app import app, emit, guarded, load_tree
 from biastree.errors import BiasTreeError
 
 
@@ -21,7 +21,7 @@ class Objective(str, Enum):
 @app.command()
 @guarded
 def plan(
-    file: PlanArg,
+    file: Annotated[Path, typer.Argument(help="block list (.yaml or .json); with --repair, a plan", show_default=False)],
     output: Annotated[Optional[Path], typer.Option("-o", "--output", help="write the planned (or repaired) plan here")] = None,
     repair: Annotated[bool, typer.Option("--repair", help="FILE is a plan: find a small set of changes that makes it pass")] = False,
     objective: Annotated[Objective, typer.Option(help="what to spend least: power (overhead current × supply), area, or most margin")] = Objective.power,
