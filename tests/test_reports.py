@@ -11,6 +11,7 @@ import re
 import xml.etree.ElementTree as ET
 from html.parser import HTMLParser
 
+import numpy as np
 import pytest
 from conftest import ROOT, SAMPLES
 from helpers import one_stage, tree_of
@@ -380,3 +381,21 @@ def test_tempco_is_the_end_point_slope() -> None:
     i_lo, i_hi = cond.op.l_current[:, 0], cond.op.l_current[:, 2]
     assert tc == pytest.approx((i_hi - i_lo) / ((i_hi + i_lo) / 2 * 165.0) * 1e6)
     assert tempco_ppm(evaluate(tree, sweep_columns(tree, [300.0]))) is None
+
+
+def test_tempco_column_in_every_table() -> None:
+    """The ppm/K column (end-point slope, as in test_tempco_is_the_end_point_slope) is one of the
+    shared columns: terminal, CSV and Markdown carry the same value for a plan with temperatures."""
+    from biastree.output.columns import BY_KEY
+    from biastree.output.csv import to_csv
+    from biastree.output.table import to_table
+
+    result = biastree.check(ROOT / "samples" / "die_spread.yaml")
+    tc = result.conditions.tempco_ppm
+    assert tc is not None and np.all(np.isfinite(tc))
+    assert "ppm/K" in to_table(result).splitlines()[0]
+    rows = list(csv.DictReader(io.StringIO(to_csv(result))))
+    assert [float(r["tempco"]) for r in rows] == [float(x) for x in tc]
+    assert BY_KEY["tempco"].text(result, 0) == f"{tc[0]:+.4g}"
+    plain = biastree.check(ROOT / "samples" / "bipolar_small.yaml")  # no temperatures: no column
+    assert "ppm/K" not in to_table(plain).splitlines()[0]

@@ -39,6 +39,28 @@ class ConditionResult:
     def worst_name(self, load: int) -> str:
         return self.columns.names[int(self.worst_index[load])]
 
+    @cached_property
+    def tempco_ppm(self) -> Array | None:
+        """(n_loads,) temperature coefficient of each load's current, ppm/K, or ``None``
+        when the conditions hold fewer than two temperatures.
+
+        End-point slope over the solved temperature range, at the first supply and
+        corner and the nominal voltage end: (I(Tmax) − I(Tmin)) / (Ī · (Tmax − Tmin)),
+        Ī the mean of the two currents.
+        """
+        cols = self.columns
+        ends = [name.rsplit(" ", 1)[-1] for name in cols.names]
+        end = "nominal" if "nominal" in ends else ends[0]
+        pick = [k for k in range(cols.size) if ends[k] == end and cols.supply[k] == cols.supply[0]
+                and cols.corner[k] == cols.corner[0]]
+        temps = cols.temperature[pick]
+        if len(pick) < 2 or temps.max() <= temps.min():
+            return None
+        lo, hi = pick[int(np.argmin(temps))], pick[int(np.argmax(temps))]
+        i_lo, i_hi = self.op.l_current[:, lo], self.op.l_current[:, hi]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return (i_hi - i_lo) / (0.5 * (i_hi + i_lo) * (cols.temperature[hi] - cols.temperature[lo])) * 1e6
+
     def end(self, column: int) -> str:
         """The load-voltage end (min, nominal, max) of one column: the last word of its name."""
         word = self.columns.names[column].rsplit(" ", 1)[-1]

@@ -5,7 +5,6 @@ from __future__ import annotations
 
 from typing import Any
 
-import numpy as np
 
 from biastree.analysis.audit import Audit
 from biastree.analysis.solve import CASES
@@ -62,21 +61,5 @@ def budget_use(result: Audit, load: int) -> str:
 
 def tempco_ppm(cond: Any) -> Array | None:
     """(n_loads,) temperature coefficient of each load's current, ppm/K, or ``None``
-    when the conditions hold fewer than two temperatures.
-
-    End-point slope over the solved temperature range, at the first supply and
-    corner and the nominal voltage end: (I(Tmax) − I(Tmin)) / (Ī · (Tmax − Tmin)),
-    Ī the mean of the two currents.  ``cond`` is a ``ConditionResult``.
-    """
-    cols = cond.columns
-    ends = [name.rsplit(" ", 1)[-1] for name in cols.names]
-    end = "nominal" if "nominal" in ends else ends[0]
-    pick = [k for k in range(cols.size) if ends[k] == end and cols.supply[k] == cols.supply[0]
-            and cols.corner[k] == cols.corner[0]]
-    temps = cols.temperature[pick]
-    if len(pick) < 2 or temps.max() <= temps.min():
-        return None
-    lo, hi = pick[int(np.argmin(temps))], pick[int(np.argmax(temps))]
-    i_lo, i_hi = cond.op.l_current[:, lo], cond.op.l_current[:, hi]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return (i_hi - i_lo) / (0.5 * (i_hi + i_lo) * (cols.temperature[hi] - cols.temperature[lo])) * 1e6
+    when the conditions hold fewer than two temperatures (``ConditionResult.tempco_ppm``)."""
+    return cond.tempco_ppm

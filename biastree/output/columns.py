@@ -108,6 +108,14 @@ def _regulation(result: Audit, load: int) -> float | None:
     return per_volt / float(result.delivered[load, 1]) if per_volt else None
 
 
+def _tempco(result: Audit, load: int) -> float | None:
+    cond = result.conditions
+    tc = None if cond is None else cond.tempco_ppm
+    if tc is None or not math.isfinite(float(tc[load])):
+        return None
+    return float(tc[load])
+
+
 def _opt_pct(f: Callable[[Audit, int], float | None], digits: int = 2) -> Callable[[Audit, int], str]:
     def text(result: Audit, load: int) -> str:
         v = f(result, load)
@@ -132,6 +140,9 @@ COLUMNS: tuple[Column, ...] = (
            _error_range, _error_range_text, optional=True),
     Column("worst_condition", "worst cond.", "", "the error of largest magnitude over the plan's conditions",
            _worst_condition, _opt_pct(_worst_condition), optional=True),
+    Column("tempco", "ppm/K", "", "temperature coefficient of the current over the plan's temperatures, ppm/K "
+           "(end-point slope at the first supply and corner)", _tempco,
+           lambda r, i: "" if _tempco(r, i) is None else f"{_tempco(r, i):+.4g}", optional=True),
     Column("k_sigma", "kσ", "", "the kσ term: k × first-order mismatch σ", _k_sigma,
            lambda r, i: "" if r.spread is None else f"{r.k_sigma * r.sigma[i] * 100:.3g}%", optional=True),
     Column("budget", "budget", "", "the load's error budget (±)",
