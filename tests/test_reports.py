@@ -399,3 +399,20 @@ def test_tempco_column_in_every_table() -> None:
     assert BY_KEY["tempco"].text(result, 0) == f"{tc[0]:+.4g}"
     plain = biastree.check(ROOT / "samples" / "bipolar_small.yaml")  # no temperatures: no column
     assert "ppm/K" not in to_table(plain).splitlines()[0]
+
+
+def test_diagram_node_explains_the_deciding_case() -> None:
+    """A failing load's node quotes the case that decides it (issue: the nominal terms were shown
+    while the load failed in a corner): its error, kσ and reference terms, where, and the largest
+    term there with its value — the same numbers as Audit.deciding (the oracle is the audit's own
+    exact split, checked against brute force in test_verdicts.py)."""
+    result = biastree.check(ROOT / "samples" / "die_spread.yaml")
+    i = result.tree.loads.index("amp_far")
+    d = result.deciding(i)
+    assert d["condition"] is not None  # with conditions, a corner decides this load
+    text = to_dot(result).text
+    node = next(line for line in text.splitlines() if line.lstrip().startswith('"l:amp_far" ['))
+    assert f"at {result.deciding_text(i, d)}" in node
+    assert f"= {d['used'] * 100:.3g}%" in node
+    stage, label, value = result.largest_term(i)
+    assert f"{label} at {stage} {value * 100:+.2f}%" in node

@@ -282,7 +282,7 @@ def _load_rows(result: Audit, i: int) -> list[str]:
         f"target {escape(format_si(result.target[i], 'A'))}",
         f"delivered {escape(format_si(result.delivered[i, 1], 'A', 4))}",
         f"error {_pct(result.error[i, 1])}"
-        + (f" ({_pct(result.error[i, 0])}..{_pct(result.error[i, 2])})"
+        + (f" ({_pct(min(result.error[i, 0], result.error[i, 2]))}..{_pct(max(result.error[i, 0], result.error[i, 2]))})"
            if result.error[i, 0] != result.error[i, 2] else ""),
         f"budget ±{result.tolerance[i] * 100:.3g}%, margin {_pct(result.margin[i])}",
         f"compliance {escape(format_si(result.compliance[i], 'V'))}",
@@ -292,8 +292,14 @@ def _load_rows(result: Audit, i: int) -> list[str]:
     else:
         why = []
         if result.margin[i] < 0:
-            _, label, _ = result.largest_term(i)
-            why.append(f"budget ({escape(label)})")
+            # the case that decides the verdict, not the nominal one (they differ with conditions)
+            d = result.deciding(i)
+            extra = "".join(f" + {name} {abs(d[key]) * 100:.3g}%" for name, key in (("kσ", "k_sigma"), ("ref.", "reference"))
+                            if d.get(key))
+            rows.append(f"decides: {_pct(d['error'])}{extra} = {d['used'] * 100:.3g}%")
+            rows.append(f"at {escape(result.deciding_text(i, d))}")
+            stage, label, value = result.largest_term(i)
+            why.append(f"budget ({escape(label)} at {escape(stage)} {_pct(value)})")
         if result.compliance[i] < 0:
             why.append("compliance")
         if result.upstream[i] >= 0 or result.reference_headroom <= 0:
