@@ -255,12 +255,30 @@ def test_sweep_solves_both_endpoints() -> None:
     assert parse_range("3.0V:3.6V:0.25V", "V") == pytest.approx([3.0, 3.25, 3.5, 3.6])
     assert parse_range("3.0V:3.6V:0.2V", "V")[-1] == 3.6  # on the grid: not doubled
     assert len(parse_range("3.0V:3.6V:0.2V", "V")) == 4
-    out = runner.invoke(app, ["sweep", str(DIE), "--temperature=-40C:125C:25C", "--json"])
+    out = runner.invoke(app, ["sweep", str(DIE), "--temperature=-40C:125C:25C", "--json", "--nominal-only"])
     data = json.loads(out.stdout)
     assert data["temperature"][0] == pytest.approx(233.15) and data["temperature"][-1] == pytest.approx(398.15)
     tree = biastree.load(DIE)
     alone = solve(tree, sweep_columns(tree, [398.15]), output_resistance=False).l_current[:, 0]
     assert [l["current"][-1] for l in data["loads"]] == pytest.approx(alone.tolist(), rel=1e-12)
+
+
+def test_sweep_judges_like_check(tmp_path: Path) -> None:
+    """Oracle: `check` itself.  A load whose output leaves its active region only at one end of its
+    voltage range fails `check`; a sweep through the plan's own temperature must fail it too (by
+    default every end of the range is judged, as check does)."""
+    text = (ROOT / "samples" / "failing_budgets.yaml").read_text()
+    plan = tmp_path / "hot.yaml"
+    plan.write_text(text)
+    result = biastree.check(plan)
+    hot = result.tree.loads.index("hot_node")
+    assert not result.passed[hot] and result.compliance[hot] < 0
+    out = runner.invoke(app, ["sweep", str(plan), "--temperature=-40C:125C:5C", "--json"])
+    assert out.exit_code == 1
+    data = json.loads(out.stdout)
+    verdict = {l["name"]: l["verdict"] for l in data["loads"]}
+    assert verdict["hot_node"] == "fail"
+    assert {n for n, v in verdict.items() if v == "fail"} >= {result.tree.loads[i] for i in np.flatnonzero(~result.passed)}
 
 
 # --- spread -----------------------------------------------------------------------------------

@@ -51,6 +51,14 @@ class Audit:
         return self.op.tree
 
     @cached_property
+    def worst_compliance(self) -> Array:
+        """(n_loads,) smallest compliance margin over the voltage range and, when the plan
+        lists conditions, over all of them too, V (``compliance`` is the range alone)."""
+        if self.conditions is None:
+            return self.compliance
+        return np.minimum(self.compliance, self.conditions.compliance)
+
+    @cached_property
     def ideal(self) -> Array:
         """Current each load would get from the ratios alone (ideal mirrors)."""
         tree = self.tree

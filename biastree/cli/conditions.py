@@ -99,7 +99,10 @@ def sweep(
     temperature: Annotated[Optional[str], typer.Option(help="START:STOP:STEP, e.g. -40C:125C:5C")] = None,
     supply: Annotated[Optional[str], typer.Option(help="START:STOP:STEP, e.g. 3.0V:3.6V:0.1V")] = None,
     corner: Annotated[Optional[list[str]], typer.Option(help="process corner(s) from the plan")] = None,
-    all_ends: Annotated[bool, typer.Option("--all-ends", help="each load at min, nominal and max voltage")] = False,
+    all_ends: Annotated[bool, typer.Option(
+        "--all-ends/--nominal-only",
+        help="judge each load at the min, nominal and max of its voltage range, as check does "
+             "(--nominal-only: the nominal voltage alone; its verdict can then miss a failure check finds)")] = True,
     json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
     csv: Annotated[Optional[Path], typer.Option("--csv", help="also write every load × condition as CSV")] = None,
     k_sigma: Annotated[Optional[float], typer.Option(help="budgets must hold with this many σ of mismatch (plan default 3)")] = None,

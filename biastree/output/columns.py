@@ -164,10 +164,7 @@ BY_KEY = {c.key: c for c in COLUMNS}
 
 
 def _compliance(result: Audit, load: int) -> float:
-    c = float(result.compliance[load])
-    if result.conditions is not None:
-        c = min(c, float(result.conditions.compliance[load]))
-    return c
+    return float(result.worst_compliance[load])
 
 
 def visible(result: Audit) -> list[Column]:

@@ -285,7 +285,7 @@ def _load_rows(result: Audit, i: int) -> list[str]:
         + (f" ({_pct(min(result.error[i, 0], result.error[i, 2]))}..{_pct(max(result.error[i, 0], result.error[i, 2]))})"
            if result.error[i, 0] != result.error[i, 2] else ""),
         f"budget ±{result.tolerance[i] * 100:.3g}%, margin {_pct(result.margin[i])}",
-        f"compliance {escape(format_si(result.compliance[i], 'V'))}",
+        f"compliance {escape(format_si(result.worst_compliance[i], 'V'))}",
     ]
     if ok:
         rows.append(f"<B>{PASS_MARK}</B>")
@@ -300,7 +300,7 @@ def _load_rows(result: Audit, i: int) -> list[str]:
             rows.append(f"at {escape(result.deciding_text(i, d))}")
             stage, label, value = result.largest_term(i)
             why.append(f"budget ({escape(label)} at {escape(stage)} {_pct(value)})")
-        if result.compliance[i] < 0:
+        if result.worst_compliance[i] < 0:
             why.append("compliance")
         if result.upstream[i] >= 0 or result.reference_headroom <= 0:
             why.append("headroom")

@@ -68,7 +68,7 @@ def page_data(result: Audit) -> dict[str, Any]:
         "worst": _floats(worst),
         "tolerance": _floats(result.tolerance),
         "margin": _floats(result.margin),
-        "compliance": _floats(result.compliance),
+        "compliance": _floats(result.worst_compliance),  # over range and conditions, as every table
         "rout": _floats(result.rout),
         "pass": result.passed.astype(int).tolist(),
     }
