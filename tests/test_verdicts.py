@@ -444,3 +444,21 @@ def test_verify_names_a_mos_output_in_triode(ngspice, write_plan) -> None:  # ty
                      r"\|VDS\| 100 mV below VGS − VT 15\d mV", out.stdout)
     assert not any(l.startswith("  fine") for l in out.stdout.splitlines())
     assert "3 of 3 disagreements have a known cause" in out.stdout
+
+
+def test_verdict_only_audit_names_no_term() -> None:
+    """An audit solved for verdicts only (no error terms) must not name the plan's ratio term as
+    the largest of an error it does not explain; with terms, the named term is the deciding case's
+    largest (oracle: the exact split of test_deciding_terms_compound_to_the_deciding_error)."""
+    from biastree.analysis.pipeline import check_tree
+
+    tree = biastree.load(ROOT / "samples" / "failing_budgets.yaml")
+    quick = check_tree(tree, detail=False)
+    full = check_tree(tree)
+    i = tree.loads.index("fine_trim")
+    assert not quick.passed[i] and not full.passed[i]
+    budget_quick = next(r for r in quick.reasons(i) if r.startswith("budget:"))
+    budget_full = next(r for r in full.reasons(i) if r.startswith("budget:"))
+    assert "largest term" not in budget_quick
+    top = full.deciding(i)["terms"][0]
+    assert f"largest term there: {top['label']} at {top['stage']}" in budget_full

@@ -296,10 +296,13 @@ class Audit:
             ref = f" + reference {d['reference'] * 100:.3g} %" if d["reference"] else ""
             mm = f" + {d['k']:g}σ mismatch {d['k_sigma'] * 100:.3g} %" if d["k_sigma"] else ""
             top = d["terms"][0]
+            # an operating point solved for verdicts only (detail=False) has no error terms:
+            # then no term can be named, rather than the plan's own ratio term alone
+            largest = (f"; largest term there: {top['label']} at {top['stage']} ({format_percent(top['value'])})"
+                       if op.b_factors else "")
             out.append(
                 f"budget: error {format_percent(d['error'])}{mm}{ref} = {d['used'] * 100:.3g} % exceeds "
-                f"±{d['tolerance'] * 100:.3g} % at {self.deciding_text(load, d)}; largest term there: "
-                f"{top['label']} at {top['stage']} ({format_percent(top['value'])})"
+                f"±{d['tolerance'] * 100:.3g} % at {self.deciding_text(load, d)}{largest}"
             )
         if self.conditions is not None and self.compliance[load] >= 0 and self.conditions.compliance[load] < 0:
             k = int(self.conditions.compliance_index[load])
