@@ -416,3 +416,15 @@ def test_diagram_node_explains_the_deciding_case() -> None:
     assert f"= {d['used'] * 100:.3g}%" in node
     stage, label, value = result.largest_term(i)
     assert f"{label} at {stage} {value * 100:+.2f}%" in node
+
+
+def test_diff_shows_values_in_their_units(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    """Plan values are SI inside; the diff shows them as the plan file writes them (10% not 0.1)."""
+    text = (ROOT / "samples" / "bipolar_small.yaml").read_text()
+    old, new = tmp_path / "old.yaml", tmp_path / "new.yaml"
+    old.write_text(text)
+    new.write_text(text.replace("cmp_tail: {current: 10uA, tolerance: 10%", "cmp_tail: {current: 10uA, tolerance: 4%")
+                   .replace("reference: {current: 20uA", "reference: {current: 25uA"))
+    out = runner.invoke(app, ["diff", str(old), str(new)]).output
+    assert "loads.cmp_tail.tolerance: 10% → 4%" in out
+    assert "reference.current: 20 µA → 25 µA" in out

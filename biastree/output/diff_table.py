@@ -11,9 +11,22 @@ from biastree.analysis.diff import LoadChange, PlanDiff
 from biastree.units import format_si, signed_percent
 
 
-def _value(x: Any) -> str:
+# Display units of the plan keys a diff most often shows (values inside are SI).
+_UNITS = {"current": "A", "voltage": "V", "supply": "V", "early": "V", "is": "A", "vth": "V", "bleed": "A",
+          "bias_current": "A", "degeneration": "Ω", "degeneration_drop": "V", "w": "m", "l": "m"}
+_PERCENT = {"tolerance", "tempco"}
+
+
+def _value(x: Any, path: str = "") -> str:
     if x is None:
         return "—"
+    key = path.rsplit(".", 1)[-1]
+    if isinstance(x, float) and key in _PERCENT:
+        return f"{x * 100:.4g}%"
+    if isinstance(x, float) and key in _UNITS:
+        return format_si(x, _UNITS[key], 4)
+    if isinstance(x, float) and key == "temperature":
+        return f"{x - 273.15:.4g} °C"
     if isinstance(x, float):
         return f"{x:.6g}"
     if isinstance(x, (dict, list)):
@@ -45,7 +58,7 @@ def changed_loads(d: PlanDiff, everything: bool = False) -> list[LoadChange]:
 
 def to_diff_table(d: PlanDiff, everything: bool = False) -> str:
     out = [f"{len(d.changes)} change(s) in the plan:"]
-    out += [f"  {c.kind:8} {c.path}: {_value(c.old)} → {_value(c.new)}" for c in d.changes] or ["  (none)"]
+    out += [f"  {c.kind:8} {c.path}: {_value(c.old, c.path)} → {_value(c.new, c.path)}" for c in d.changes] or ["  (none)"]
     rows = [_row(c) for c in changed_loads(d, everything)]
     same = sum(1 for c in d.loads if c.status == "same")
     out.append("")
@@ -70,8 +83,8 @@ def to_diff_html(d: PlanDiff, old_name: str = "old plan") -> str:
          + (f', <span class="fail">{len(d.regressions)} newly failing</span>' if d.regressions else "") + ".</p>"]
     if d.changes:
         h.append('<table class="plain"><thead><tr><th>what</th><th>key</th><th>old</th><th>new</th></tr></thead><tbody>')
-        h += [f"<tr><td>{c.kind}</td><td><code>{escape(c.path)}</code></td><td>{escape(_value(c.old))}</td>"
-              f"<td>{escape(_value(c.new))}</td></tr>" for c in d.changes]
+        h += [f"<tr><td>{c.kind}</td><td><code>{escape(c.path)}</code></td><td>{escape(_value(c.old, c.path))}</td>"
+              f"<td>{escape(_value(c.new, c.path))}</td></tr>" for c in d.changes]
         h.append("</tbody></table>")
     rows = [_row(c) for c in changed_loads(d)]
     if rows:
