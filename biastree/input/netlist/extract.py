@@ -17,7 +17,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from biastree.input.netlist.annotate import Annotations
-from biastree.input.netlist.devices import SPICE_TNOM_C, device_entry, temperature_law
+from biastree.input.netlist.devices import SPICE_TNOM_C, card_entry, device_entry, temperature_law, wants_card
 from biastree.input.netlist.flat import SINKS, TRANSISTORS, Device, Finding, Flat, family
 from biastree.input.netlist.recognise import Recogniser, Stage
 
@@ -302,7 +302,13 @@ class _Builder:
         card = self.flat.cards.get(card_name)
         self.origins[f"devices.{card_name}"] = [f".model {card_name} ({card.where})" if card else
                                                f"device subcircuit {card_name} (first used {s.input.where})"]
-        dev, findings, missing = device_entry(s.kind, card_name, card, self.notes.devices.get(card_name), s.input)
+        given, source = self.notes.devices.get(card_name), self.flat.sources.get(card_name)
+        if wants_card(s.kind, card, source, given):
+            at = source.get("library") or source.get("include") or "inline"  # type: ignore[union-attr]
+            self.origins[f"devices.{card_name}"].append(f"model from {at}"
+                                                        + (f" section {source['section']}" if "section" in source else ""))  # type: ignore[operator]
+            return card_entry(s.kind, card_name, source, s.input)  # type: ignore[arg-type]
+        dev, findings, missing = device_entry(s.kind, card_name, card, given, s.input)
         self.findings += findings
         self.missing += missing
         return dev
@@ -310,7 +316,7 @@ class _Builder:
     def _hot_card(self, s: Stage, out: Any, dev: dict[str, Any]) -> None:
         """A warmer MOS output device with its own card: the pair of cards gives the temperature law."""
         card = out.devices[0].card
-        if family(s.kind) != "mos" or card == s.input.card or card not in self.flat.cards:
+        if family(s.kind) != "mos" or card == s.input.card or card not in self.flat.cards or "model" in dev:
             return
         for key, value in temperature_law(dev, self.flat.cards[card].params, self.temperature_k, out.dtemp).items():
             if key in dev and abs(dev[key] - value) > 1e-6 * max(1.0, abs(value)):
