@@ -22,7 +22,6 @@ from biastree.analysis.solve import solve
 from biastree.cli import app
 from biastree.cli.extract import extract_text
 from biastree.errors import BiasTreeError, PlanError
-from biastree.input.model import BjtModel
 from biastree.input.netlist.annotate import read_annotations
 from biastree.output.spice import to_spice
 
@@ -52,14 +51,50 @@ def _tree_shape(tree: biastree.Tree) -> dict[str, tuple[str, str, list[tuple[str
 # --- round trip: every sample's exported netlist ----------------------------------
 
 
-# Plans whose devices are SPICE model cards export PDK subcircuits that extraction maps
-# only to square-law stand-ins so far (see "Auditing an existing netlist" in the README):
-# the round trip covers the plans with the plan's own device parameters.
+# Plans whose devices are SPICE model cards (samples/sky130_bias.yaml) export PDK subcircuits
+# and a `.lib` line; extraction points card devices at the same library and section, so those
+# round trip too (below, with the sky130 models and ngspice for the MOS tables).
 PARAMETER_SAMPLES = [p for p in SAMPLES if "model:" not in p.read_text()]
+CARD_SAMPLES = [p for p in SAMPLES if "model:" in p.read_text()]
+
+
+@pytest.fixture(scope="module")
+def card_tables(tmp_path_factory):  # type: ignore[no-untyped-def]
+    """One MOS table cache for this module's sky130 tests: the round trip and the netlist check use the
+    same unit devices (nfet 2/1 µm, pfet 4/1 µm, tt, 27 °C), so each is characterised once."""
+    import os
+
+    folder = tmp_path_factory.mktemp("tables")
+    old = os.environ.get("BIASTREE_TABLES")
+    os.environ["BIASTREE_TABLES"] = str(folder)
+    yield folder
+    if old is None:
+        os.environ.pop("BIASTREE_TABLES", None)
+    else:
+        os.environ["BIASTREE_TABLES"] = old
 
 
 @pytest.mark.parametrize("sample", PARAMETER_SAMPLES, ids=lambda p: p.stem)
 def test_round_trip_same_currents_and_structure(sample: Path, tmp_path: Path) -> None:
+    _round_trip(sample, tmp_path)
+
+
+@pytest.mark.sky130
+@pytest.mark.ngspice
+@pytest.mark.parametrize("sample", CARD_SAMPLES, ids=lambda p: p.stem)
+def test_round_trip_of_card_samples(sample: Path, tmp_path: Path, sky130_root: Path, ngspice: None,
+                                    card_tables: Path) -> None:
+    """The exported netlist's `.lib` line and PDK subcircuits come back as card devices with the same
+    library, section, model and unit W/L: the same solution (1e-9), no stand-in parameters."""
+    back = _round_trip(sample, tmp_path)
+    original = biastree.load(sample)
+    cards = {(d.kind, d.model.lower(), Path(d.library).resolve(), d.section, d.w, d.l)
+             for d in original.plan.devices.values()}
+    assert {(d.kind, d.model, Path(d.library).resolve(), d.section, d.w, d.l)
+            for d in back.plan.devices.values()} == cards
+
+
+def _round_trip(sample: Path, tmp_path: Path) -> biastree.Tree:
     original = biastree.load(sample)
     net = to_spice(original, "nominal", str(sample))
     path = tmp_path / f"{sample.stem}.cir"
@@ -85,13 +120,14 @@ def test_round_trip_same_currents_and_structure(sample: Path, tmp_path: Path) ->
         dev, bdev = plan.devices[spec.device], bplan.devices[got.device]
         mult = float(original.m_mult[i])
         assert (got.topology, bdev.kind) == (spec.topology, dev.kind), name
-        unit = 1.0 if isinstance(dev, BjtModel) else dev.w
-        bunit = 1.0 if isinstance(bdev, BjtModel) else bdev.w
+        unit = 1.0 if dev.kind in ("npn", "pnp") else dev.w
+        bunit = 1.0 if bdev.kind in ("npn", "pnp") else bdev.w
         assert got.input_size * bunit == pytest.approx(spec.input_size * unit * mult, rel=1e-12), name
         targets = [net.mirror_nodes.get(b.to) or node_of_load[b.to] for b in spec.branches]
         assert [b.to for b in got.branches] == targets, name
         for b, bb in zip(spec.branches, got.branches):
             assert bb.ratio == pytest.approx(b.ratio * b.count, rel=1e-12), name
+    return back
 
 
 # --- hand-written netlists -----------------------------------------------------------
