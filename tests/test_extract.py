@@ -318,18 +318,25 @@ def test_resistor_reference_solved_and_matches_ngspice(ngspice: None, tmp_path: 
         assert op.l_current[j, 1] == pytest.approx(abs(float(sim[f"i({ammeter})"][0])), rel=1e-6), load
 
 
-SKY130_NETLIST = """sky130 bias mirrors: X instances of the PDK's device subcircuits (invented sizes)
+SKY130_NETLIST = """sky130 bias tree: X instances of the PDK's device subcircuits (invented sizes)
 .lib "{root}/combined_models/sky130.lib.spice" tt
-.options filetype=ascii
+.options filetype=ascii reltol=1e-7 abstol=1e-16 vntol=1e-10 gmin=1e-18
 Vdd vdd 0 1.8
-Iref vdd nref 10u
-XM1 nref nref 0 0 sky130_fd_pr__nfet_01v8 w=2 l=1 m=1 nf=1
-XM2 pin nref 0 0 sky130_fd_pr__nfet_01v8 w=2 l=1 m=2
-XM3 out_n nref 0 0 sky130_fd_pr__nfet_01v8 w=2 l=1 m=1
-Vn out_n 0 0.9
+* npn master fed by the reference current
+Iref vdd nq 5u
+XQ1 nq nq 0 0 sky130_fd_pr__npn_05v5_W1p00L1p00 m=1
+XQ2 out_q nq 0 0 sky130_fd_pr__npn_05v5_W1p00L1p00 m=1
+Vq out_q 0 1.2
+XQ3 pin nq 0 0 sky130_fd_pr__npn_05v5_W1p00L1p00 m=2
+* pfet distribution
 XM4 pin pin vdd vdd sky130_fd_pr__pfet_01v8 w=4 l=1 m=1
 XM5 out_p pin vdd vdd sky130_fd_pr__pfet_01v8 w=4 l=1 m=4
 Vp out_p 0 0.9
+XM6 nref pin vdd vdd sky130_fd_pr__pfet_01v8 w=4 l=1 m=1
+* nfet sink
+XM1 nref nref 0 0 sky130_fd_pr__nfet_01v8 w=2 l=1 m=1 nf=1
+XM3 out_n nref 0 0 sky130_fd_pr__nfet_01v8 w=2 l=1 m=2
+Vn out_n 0 0.9
 .op
 .end
 """
@@ -337,11 +344,14 @@ Vp out_p 0 0.9
 
 @pytest.mark.sky130
 @pytest.mark.ngspice
-def test_sky130_netlist_extracted_and_simulated(sky130_root: Path, ngspice: None, tmp_path: Path) -> None:
-    """A netlist on the open 130 nm PDK's devices: the mirrors, ratios (m= copies of one unit device)
-    and card names are extracted; ngspice running the original netlist's BSIM4 devices delivers the
-    extracted ideal targets within 10 % (copies of one unit device mirror to a few per cent with
-    channel-length modulation at these drain voltages: common practice)."""
+def test_sky130_netlist_checked_with_its_own_models(sky130_root: Path, ngspice: None, card_tables: Path,
+                                                    tmp_path: Path) -> None:
+    """A netlist on the open 130 nm PDK's devices (package sky130), end to end with no stand-in
+    parameters: extracted plan (card devices: the netlist's `.lib` file and section, the PDK
+    subcircuit, unit W/L) -> check -> the solved load currents against ngspice 39 running the
+    ORIGINAL netlist: within 1e-4 for the MOS loads (the bar of the MOS tables), 1e-5 for the
+    bipolar load (full Gummel–Poon both sides).  The same unit devices as samples/sky130_bias.yaml,
+    so the MOS tables are characterised once for this module."""
     import subprocess
 
     from biastree.sim.verify import parse_raw
@@ -349,26 +359,31 @@ def test_sky130_netlist_extracted_and_simulated(sky130_root: Path, ngspice: None
     netlist = tmp_path / "sky.spice"
     netlist.write_text(SKY130_NETLIST.format(root=sky130_root), encoding="utf-8")
     result = runner.invoke(app, ["extract", str(netlist)])
-    assert result.exit_code == 2  # the BSIM4 cards have no square-law parameters: listed, not guessed
-    assert [line.split(": ")[2] for line in result.output.strip().splitlines()] == [
-        "out_p", "out_n", "sky130_fd_pr__nfet_01v8", "sky130_fd_pr__pfet_01v8"]  # 2 tolerances, 2 devices
-    notes = _annotation(tmp_path, "defaults: {tolerance: 10%}\ndevices:\n"  # invented square-law stand-ins
-                        "  sky130_fd_pr__nfet_01v8: {kp: 250uA/V^2, vth: 0.5V, lambda: 0.05/V}\n"
-                        "  sky130_fd_pr__pfet_01v8: {kp: 50uA/V^2, vth: 0.9V, lambda: 0.05/V}\n")
+    assert result.exit_code == 2  # budgets are not in a netlist: listed, not guessed; no device parameters asked
+    assert [line.split(": ")[2] for line in result.output.strip().splitlines()] == ["out_q", "out_p", "out_n"]
+    notes = _annotation(tmp_path, "defaults: {tolerance: 10%}\n")
     tree, found = _extracted(netlist, notes)
     assert found == []
-    assert _tree_shape(tree) == {"nref": ("simple", "nmos", [("pin", 2.0), ("out_n", 1.0)]),
-                                 "pin": ("simple", "pmos", [("out_p", 4.0)])}
-    assert tree.plan.devices["sky130_fd_pr__nfet_01v8"].w == pytest.approx(2e-6)  # the library's scale=1e-6
-    assert biastree.check(tree).summary()["loads"] == 2  # the audit runs on the extracted tree
+    assert _tree_shape(tree) == {"nq": ("simple", "npn", [("out_q", 1.0), ("pin", 2.0)]),
+                                 "pin": ("simple", "pmos", [("out_p", 4.0), ("nref", 1.0)]),
+                                 "nref": ("simple", "nmos", [("out_n", 2.0)])}
+    lib = (sky130_root / "combined_models" / "sky130.lib.spice").resolve()
+    for dev in tree.plan.devices.values():
+        assert (Path(dev.library).resolve(), dev.section) == (lib, "tt")
+    nfet = tree.plan.devices["sky130_fd_pr__nfet_01v8"]
+    assert (nfet.model, nfet.w, nfet.l) == ("sky130_fd_pr__nfet_01v8", pytest.approx(2e-6), pytest.approx(1e-6))
+    result = runner.invoke(app, ["check", str(netlist), "--annotate", str(notes)])
+    assert "3 loads" in result.output, result.output  # the audit runs on the designer's own models
+    op = solve(tree, None, output_resistance=False)
 
     (tmp_path / ".spiceinit").write_text("set ngbehavior=hsa\nset ng_nomodcheck\n", encoding="utf-8")
     proc = subprocess.run(["ngspice", "-b", "-r", "out.raw", netlist.name], cwd=tmp_path, capture_output=True,
                           text=True, timeout=300, stdin=subprocess.DEVNULL, check=False)
     assert proc.returncode == 0, proc.stderr[-2000:]
     sim = parse_raw((tmp_path / "out.raw").read_text())[0]
-    for load, ammeter in (("out_n", "vn"), ("out_p", "vp")):
-        assert abs(float(sim[f"i({ammeter})"][0])) == pytest.approx(tree.plan.loads[load].current, rel=0.10)
+    for load, ammeter, rel in (("out_q", "vq", 1e-5), ("out_p", "vp", 1e-4), ("out_n", "vn", 1e-4)):
+        j = tree.loads.index(load)
+        assert op.l_current[j, 1] == pytest.approx(abs(float(sim[f"i({ammeter})"][0])), rel=rel), load
 
 
 def test_multiplicity_down_the_hierarchy_and_four_terminal_bipolars(tmp_path: Path) -> None:
