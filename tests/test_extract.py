@@ -22,6 +22,7 @@ from biastree.analysis.solve import solve
 from biastree.cli import app
 from biastree.cli.extract import extract_text
 from biastree.errors import BiasTreeError, PlanError
+from biastree.input.model import BjtModel
 from biastree.input.netlist.annotate import read_annotations
 from biastree.output.spice import to_spice
 
@@ -384,6 +385,36 @@ def test_sky130_netlist_checked_with_its_own_models(sky130_root: Path, ngspice: 
     for load, ammeter, rel in (("out_q", "vq", 1e-5), ("out_p", "vp", 1e-4), ("out_n", "vn", 1e-4)):
         j = tree.loads.index(load)
         assert op.l_current[j, 1] == pytest.approx(abs(float(sim[f"i({ammeter})"][0])), rel=rel), load
+
+
+def test_full_gummel_poon_cards_become_card_devices(ngspice: None, tmp_path: Path) -> None:
+    """Cards with DC parameters beyond the simple model (IKF, ISE/NE, RB, …) become card devices: the
+    included file's card points at that file, the netlist's own card is carried inline, a plain card keeps
+    the simple parameters. Oracle: ngspice 39 running the original netlist (full Gummel–Poon both
+    sides), within the bipolar bar 1e-5."""
+    import shutil
+    import subprocess
+
+    from biastree.sim.verify import parse_raw
+
+    for name in ("gp_cards.spice", "gp_models.lib"):
+        shutil.copy(NETLISTS / name, tmp_path / name)
+    netlist = tmp_path / "gp_cards.spice"
+    tree, found = _extracted(netlist, _annotation(tmp_path, "defaults: {tolerance: 10%}\n"))
+    assert found == []
+    devices = tree.plan.devices
+    assert (devices["qfull"].model, Path(devices["qfull"].include)) == ("qfull", tmp_path / "gp_models.lib")
+    assert devices["qlat"].card.startswith(".model qlat pnp (is=5e-17 bf=40.0")
+    assert isinstance(devices["qplain"], BjtModel) and devices["qplain"].early == 80.0
+    op = solve(tree, None, output_resistance=False)
+    proc = subprocess.run(["ngspice", "-b", "-r", "out.raw", netlist.name], cwd=tmp_path, capture_output=True,
+                          text=True, timeout=300, stdin=subprocess.DEVNULL, check=False)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    sim = parse_raw((tmp_path / "out.raw").read_text())[0]
+    for load, ammeter in (("out_a", "va"), ("out_b", "vb"), ("out_c", "vc")):
+        j = tree.loads.index(load)
+        got = op.l_current[j, 1] * tree.l_mult[j]
+        assert got == pytest.approx(abs(float(sim[f"i({ammeter})"][0])), rel=1e-5), load
 
 
 def test_multiplicity_down_the_hierarchy_and_four_terminal_bipolars(tmp_path: Path) -> None:

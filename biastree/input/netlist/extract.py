@@ -304,9 +304,9 @@ class _Builder:
                                                f"device subcircuit {card_name} (first used {s.input.where})"]
         given, source = self.notes.devices.get(card_name), self.flat.sources.get(card_name)
         if wants_card(s.kind, card, source, given):
-            at = source.get("library") or source.get("include") or "inline"  # type: ignore[union-attr]
-            self.origins[f"devices.{card_name}"].append(f"model from {at}"
-                                                        + (f" section {source['section']}" if "section" in source else ""))  # type: ignore[operator]
+            at = source.get("library") or source.get("include")  # type: ignore[union-attr]
+            section = f" section {source['section']}" if "section" in source else ""  # type: ignore[operator]
+            self.origins[f"devices.{card_name}"].append(f"model from {at}{section}" if at else "card text as written")
             return card_entry(s.kind, card_name, source, s.input)  # type: ignore[arg-type]
         dev, findings, missing = device_entry(s.kind, card_name, card, given, s.input)
         self.findings += findings
