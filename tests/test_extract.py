@@ -417,6 +417,23 @@ def test_full_gummel_poon_cards_become_card_devices(ngspice: None, tmp_path: Pat
         assert got == pytest.approx(abs(float(sim[f"i({ammeter})"][0])), rel=1e-5), load
 
 
+def test_remote_offsets_on_card_devices_are_reported(tmp_path: Path) -> None:
+    """The plan applies floorplan offsets to simple devices only: on a card device they are said, not
+    dropped silently, and the rest is audited (the line of the offset device is named)."""
+    import shutil
+
+    shutil.copy(NETLISTS / "gp_models.lib", tmp_path / "gp_models.lib")
+    text = (NETLISTS / "gp_cards.spice").read_text(encoding="utf-8")
+    text = text.replace("Q5 out_b np vcc QLAT area=2", "Vcc2 vcc2 0 3.28\nQ5 out_b np vcc2 QLAT area=2 dtemp=5")
+    netlist = tmp_path / "remote.spice"
+    netlist.write_text(text, encoding="utf-8")
+    tree, found = _extracted(netlist, _annotation(tmp_path))
+    assert found == [f"{netlist}:16: q5: rail offset or dtemp on a device given by its model card: the plan "
+                     "cannot apply it to card devices yet, ignored (audited as a local output)"]
+    assert tree.plan.floorplan is None or not tree.plan.floorplan.remote
+    assert biastree.check(tree).summary()["loads"] == 3
+
+
 def test_multiplicity_down_the_hierarchy_and_four_terminal_bipolars(tmp_path: Path) -> None:
     """X-instance m= multiplies every device inside; Q with a substrate node; .global nets; dummies listed."""
     netlist = tmp_path / "cells.spice"

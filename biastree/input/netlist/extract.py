@@ -221,6 +221,7 @@ class _Builder:
                 fp["remote"].append(to)
                 fp["offsets"][to] = {"temperature": out.dtemp, "rail": out.rail_offset}
                 spec.setdefault("_hot", []).append(out)
+                spec.setdefault("_remote", []).append((to, out))
             elif out.rail_offset or out.dtemp:
                 self.findings.append(Finding(devs[0].where, devs[0].path, "offset rail or temperature on an output "
                                              "into a mirror: the plan cannot hold it, ignored"))
@@ -295,8 +296,25 @@ class _Builder:
                 spec[key] = value / (units[name] if key == "helper_size" else 1.0)
             if s.topology == "wide_swing":
                 spec["swing_n"] = s.params["swing_n"]
+            remote = spec.pop("_remote", [])
+            if "model" in plan["devices"][name]:  # card devices take no floorplan offsets yet
+                spec.pop("_hot", None)
+                self._drop_offsets(plan, remote)
             for out in spec.pop("_hot", []):
                 self._hot_card(s, out, plan["devices"][name])
+
+    def _drop_offsets(self, plan: dict[str, Any], remote: list[tuple[str, Any]]) -> None:
+        fp = plan.get("floorplan")
+        for to, out in remote:
+            if fp is None:
+                break
+            fp["remote"].remove(to)
+            fp["offsets"].pop(to, None)
+            self.findings.append(Finding(out.devices[0].where, out.devices[0].path, "rail offset or dtemp on a "
+                                         "device given by its model card: the plan cannot apply it to card "
+                                         "devices yet, ignored (audited as a local output)"))
+        if fp is not None and not fp["remote"]:
+            del plan["floorplan"]
 
     def _device(self, s: Stage, card_name: str) -> dict[str, Any]:
         card = self.flat.cards.get(card_name)
