@@ -417,6 +417,29 @@ def test_full_gummel_poon_cards_become_card_devices(ngspice: None, tmp_path: Pat
         assert got == pytest.approx(abs(float(sim[f"i({ammeter})"][0])), rel=1e-5), load
 
 
+@pytest.mark.ngspice
+def test_level3_mos_card_becomes_a_card_device(ngspice: None, card_tables: Path, tmp_path: Path) -> None:
+    """A MOS card of level 3 is no square-law card: it becomes an inline card device (unit W/L of the input
+    device), solved through ngspice characterisation tables. Oracle: ngspice 39 running the original
+    netlist, within the MOS tables' bar 1e-4."""
+    import subprocess
+
+    from biastree.sim.verify import parse_raw
+
+    netlist = NETLISTS / "level3.spice"
+    tree, found = _extracted(netlist, _annotation(tmp_path))
+    assert found == []
+    dev = tree.plan.devices["n3"]
+    assert dev.card.startswith(".model n3 nmos (level=3.0 kp=0.00015") and (dev.w, dev.l) == (1e-5, 2e-6)
+    op = solve(tree, None, output_resistance=False)
+    proc = subprocess.run(["ngspice", "-b", "-r", str(tmp_path / "out.raw"), str(netlist)], cwd=tmp_path,
+                          capture_output=True, text=True, timeout=300, stdin=subprocess.DEVNULL, check=False)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    sim = parse_raw((tmp_path / "out.raw").read_text())[0]
+    j = tree.loads.index("out")
+    assert op.l_current[j, 1] * tree.l_mult[j] == pytest.approx(abs(float(sim["i(vo)"][0])), rel=1e-4)
+
+
 def test_remote_offsets_on_card_devices_are_reported(tmp_path: Path) -> None:
     """The plan applies floorplan offsets to simple devices only: on a card device they are said, not
     dropped silently, and the rest is audited (the line of the offset device is named)."""
