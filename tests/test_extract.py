@@ -63,16 +63,10 @@ CARD_SAMPLES = [p for p in SAMPLES if "model:" in p.read_text()]
 def card_tables(tmp_path_factory):  # type: ignore[no-untyped-def]
     """One MOS table cache for this module's sky130 tests: the round trip and the netlist check use the
     same unit devices (nfet 2/1 µm, pfet 4/1 µm, tt, 27 °C), so each is characterised once."""
-    import os
-
-    folder = tmp_path_factory.mktemp("tables")
-    old = os.environ.get("BIASTREE_TABLES")
-    os.environ["BIASTREE_TABLES"] = str(folder)
-    yield folder
-    if old is None:
-        os.environ.pop("BIASTREE_TABLES", None)
-    else:
-        os.environ["BIASTREE_TABLES"] = old
+    with pytest.MonkeyPatch.context() as patch:
+        folder = tmp_path_factory.mktemp("tables")
+        patch.setenv("BIASTREE_TABLES", str(folder))
+        yield folder
 
 
 @pytest.mark.parametrize("sample", PARAMETER_SAMPLES, ids=lambda p: p.stem)
