@@ -52,14 +52,44 @@ def _tree_shape(tree: biastree.Tree) -> dict[str, tuple[str, str, list[tuple[str
 # --- round trip: every sample's exported netlist ----------------------------------
 
 
-# Plans whose devices are SPICE model cards export PDK subcircuits that extraction maps
-# only to square-law stand-ins so far (see "Auditing an existing netlist" in the README):
-# the round trip covers the plans with the plan's own device parameters.
+# Plans whose devices are SPICE model cards (samples/sky130_bias.yaml) export PDK subcircuits
+# and a `.lib` line; extraction points card devices at the same library and section, so those
+# round trip too (below, with the sky130 models and ngspice for the MOS tables).
 PARAMETER_SAMPLES = [p for p in SAMPLES if "model:" not in p.read_text()]
+CARD_SAMPLES = [p for p in SAMPLES if "model:" in p.read_text()]
+
+
+@pytest.fixture(scope="module")
+def card_tables(tmp_path_factory):  # type: ignore[no-untyped-def]
+    """One MOS table cache for this module's sky130 tests: the round trip and the netlist check use the
+    same unit devices (nfet 2/1 µm, pfet 4/1 µm, tt, 27 °C), so each is characterised once."""
+    with pytest.MonkeyPatch.context() as patch:
+        folder = tmp_path_factory.mktemp("tables")
+        patch.setenv("BIASTREE_TABLES", str(folder))
+        yield folder
 
 
 @pytest.mark.parametrize("sample", PARAMETER_SAMPLES, ids=lambda p: p.stem)
 def test_round_trip_same_currents_and_structure(sample: Path, tmp_path: Path) -> None:
+    _round_trip(sample, tmp_path)
+
+
+@pytest.mark.sky130
+@pytest.mark.ngspice
+@pytest.mark.parametrize("sample", CARD_SAMPLES, ids=lambda p: p.stem)
+def test_round_trip_of_card_samples(sample: Path, tmp_path: Path, sky130_root: Path, ngspice: None,
+                                    card_tables: Path) -> None:
+    """The exported netlist's `.lib` line and PDK subcircuits come back as card devices with the same
+    library, section, model and unit W/L: the same solution (1e-9), no stand-in parameters."""
+    back = _round_trip(sample, tmp_path)
+    original = biastree.load(sample)
+    cards = {(d.kind, d.model.lower(), Path(d.library).resolve(), d.section, d.w, d.l)
+             for d in original.plan.devices.values()}
+    assert {(d.kind, d.model, Path(d.library).resolve(), d.section, d.w, d.l)
+            for d in back.plan.devices.values()} == cards
+
+
+def _round_trip(sample: Path, tmp_path: Path) -> biastree.Tree:
     original = biastree.load(sample)
     net = to_spice(original, "nominal", str(sample))
     path = tmp_path / f"{sample.stem}.cir"
@@ -85,13 +115,14 @@ def test_round_trip_same_currents_and_structure(sample: Path, tmp_path: Path) ->
         dev, bdev = plan.devices[spec.device], bplan.devices[got.device]
         mult = float(original.m_mult[i])
         assert (got.topology, bdev.kind) == (spec.topology, dev.kind), name
-        unit = 1.0 if isinstance(dev, BjtModel) else dev.w
-        bunit = 1.0 if isinstance(bdev, BjtModel) else bdev.w
+        unit = 1.0 if dev.kind in ("npn", "pnp") else dev.w
+        bunit = 1.0 if bdev.kind in ("npn", "pnp") else bdev.w
         assert got.input_size * bunit == pytest.approx(spec.input_size * unit * mult, rel=1e-12), name
         targets = [net.mirror_nodes.get(b.to) or node_of_load[b.to] for b in spec.branches]
         assert [b.to for b in got.branches] == targets, name
         for b, bb in zip(spec.branches, got.branches):
             assert bb.ratio == pytest.approx(b.ratio * b.count, rel=1e-12), name
+    return back
 
 
 # --- hand-written netlists -----------------------------------------------------------
@@ -282,18 +313,25 @@ def test_resistor_reference_solved_and_matches_ngspice(ngspice: None, tmp_path: 
         assert op.l_current[j, 1] == pytest.approx(abs(float(sim[f"i({ammeter})"][0])), rel=1e-6), load
 
 
-SKY130_NETLIST = """sky130 bias mirrors: X instances of the PDK's device subcircuits (invented sizes)
+SKY130_NETLIST = """sky130 bias tree: X instances of the PDK's device subcircuits (invented sizes)
 .lib "{root}/combined_models/sky130.lib.spice" tt
-.options filetype=ascii
+.options filetype=ascii reltol=1e-7 abstol=1e-16 vntol=1e-10 gmin=1e-18
 Vdd vdd 0 1.8
-Iref vdd nref 10u
-XM1 nref nref 0 0 sky130_fd_pr__nfet_01v8 w=2 l=1 m=1 nf=1
-XM2 pin nref 0 0 sky130_fd_pr__nfet_01v8 w=2 l=1 m=2
-XM3 out_n nref 0 0 sky130_fd_pr__nfet_01v8 w=2 l=1 m=1
-Vn out_n 0 0.9
+* npn master fed by the reference current
+Iref vdd nq 5u
+XQ1 nq nq 0 0 sky130_fd_pr__npn_05v5_W1p00L1p00 m=1
+XQ2 out_q nq 0 0 sky130_fd_pr__npn_05v5_W1p00L1p00 m=1
+Vq out_q 0 1.2
+XQ3 pin nq 0 0 sky130_fd_pr__npn_05v5_W1p00L1p00 m=2
+* pfet distribution
 XM4 pin pin vdd vdd sky130_fd_pr__pfet_01v8 w=4 l=1 m=1
 XM5 out_p pin vdd vdd sky130_fd_pr__pfet_01v8 w=4 l=1 m=4
 Vp out_p 0 0.9
+XM6 nref pin vdd vdd sky130_fd_pr__pfet_01v8 w=4 l=1 m=1
+* nfet sink
+XM1 nref nref 0 0 sky130_fd_pr__nfet_01v8 w=2 l=1 m=1 nf=1
+XM3 out_n nref 0 0 sky130_fd_pr__nfet_01v8 w=2 l=1 m=2
+Vn out_n 0 0.9
 .op
 .end
 """
@@ -301,11 +339,14 @@ Vp out_p 0 0.9
 
 @pytest.mark.sky130
 @pytest.mark.ngspice
-def test_sky130_netlist_extracted_and_simulated(sky130_root: Path, ngspice: None, tmp_path: Path) -> None:
-    """A netlist on the open 130 nm PDK's devices: the mirrors, ratios (m= copies of one unit device)
-    and card names are extracted; ngspice running the original netlist's BSIM4 devices delivers the
-    extracted ideal targets within 10 % (copies of one unit device mirror to a few per cent with
-    channel-length modulation at these drain voltages: common practice)."""
+def test_sky130_netlist_checked_with_its_own_models(sky130_root: Path, ngspice: None, card_tables: Path,
+                                                    tmp_path: Path) -> None:
+    """A netlist on the open 130 nm PDK's devices (package sky130), end to end with no stand-in
+    parameters: extracted plan (card devices: the netlist's `.lib` file and section, the PDK
+    subcircuit, unit W/L) -> check -> the solved load currents against ngspice 39 running the
+    ORIGINAL netlist: within 1e-4 for the MOS loads (the bar of the MOS tables), 1e-5 for the
+    bipolar load (full Gummel–Poon both sides).  The same unit devices as samples/sky130_bias.yaml,
+    so the MOS tables are characterised once for this module."""
     import subprocess
 
     from biastree.sim.verify import parse_raw
@@ -313,26 +354,101 @@ def test_sky130_netlist_extracted_and_simulated(sky130_root: Path, ngspice: None
     netlist = tmp_path / "sky.spice"
     netlist.write_text(SKY130_NETLIST.format(root=sky130_root), encoding="utf-8")
     result = runner.invoke(app, ["extract", str(netlist)])
-    assert result.exit_code == 2  # the BSIM4 cards have no square-law parameters: listed, not guessed
-    assert [line.split(": ")[2] for line in result.output.strip().splitlines()] == [
-        "out_p", "out_n", "sky130_fd_pr__nfet_01v8", "sky130_fd_pr__pfet_01v8"]  # 2 tolerances, 2 devices
-    notes = _annotation(tmp_path, "defaults: {tolerance: 10%}\ndevices:\n"  # invented square-law stand-ins
-                        "  sky130_fd_pr__nfet_01v8: {kp: 250uA/V^2, vth: 0.5V, lambda: 0.05/V}\n"
-                        "  sky130_fd_pr__pfet_01v8: {kp: 50uA/V^2, vth: 0.9V, lambda: 0.05/V}\n")
+    assert result.exit_code == 2  # budgets are not in a netlist: listed, not guessed; no device parameters asked
+    assert [line.split(": ")[2] for line in result.output.strip().splitlines()] == ["out_q", "out_p", "out_n"]
+    notes = _annotation(tmp_path, "defaults: {tolerance: 10%}\n")
     tree, found = _extracted(netlist, notes)
     assert found == []
-    assert _tree_shape(tree) == {"nref": ("simple", "nmos", [("pin", 2.0), ("out_n", 1.0)]),
-                                 "pin": ("simple", "pmos", [("out_p", 4.0)])}
-    assert tree.plan.devices["sky130_fd_pr__nfet_01v8"].w == pytest.approx(2e-6)  # the library's scale=1e-6
-    assert biastree.check(tree).summary()["loads"] == 2  # the audit runs on the extracted tree
+    assert _tree_shape(tree) == {"nq": ("simple", "npn", [("out_q", 1.0), ("pin", 2.0)]),
+                                 "pin": ("simple", "pmos", [("out_p", 4.0), ("nref", 1.0)]),
+                                 "nref": ("simple", "nmos", [("out_n", 2.0)])}
+    lib = (sky130_root / "combined_models" / "sky130.lib.spice").resolve()
+    for dev in tree.plan.devices.values():
+        assert (Path(dev.library).resolve(), dev.section) == (lib, "tt")
+    nfet = tree.plan.devices["sky130_fd_pr__nfet_01v8"]
+    assert (nfet.model, nfet.w, nfet.l) == ("sky130_fd_pr__nfet_01v8", pytest.approx(2e-6), pytest.approx(1e-6))
+    result = runner.invoke(app, ["check", str(netlist), "--annotate", str(notes)])
+    assert "3 loads" in result.output, result.output  # the audit runs on the designer's own models
+    op = solve(tree, None, output_resistance=False)
 
     (tmp_path / ".spiceinit").write_text("set ngbehavior=hsa\nset ng_nomodcheck\n", encoding="utf-8")
     proc = subprocess.run(["ngspice", "-b", "-r", "out.raw", netlist.name], cwd=tmp_path, capture_output=True,
                           text=True, timeout=300, stdin=subprocess.DEVNULL, check=False)
     assert proc.returncode == 0, proc.stderr[-2000:]
     sim = parse_raw((tmp_path / "out.raw").read_text())[0]
-    for load, ammeter in (("out_n", "vn"), ("out_p", "vp")):
-        assert abs(float(sim[f"i({ammeter})"][0])) == pytest.approx(tree.plan.loads[load].current, rel=0.10)
+    for load, ammeter, rel in (("out_q", "vq", 1e-5), ("out_p", "vp", 1e-4), ("out_n", "vn", 1e-4)):
+        j = tree.loads.index(load)
+        assert op.l_current[j, 1] == pytest.approx(abs(float(sim[f"i({ammeter})"][0])), rel=rel), load
+
+
+def test_full_gummel_poon_cards_become_card_devices(ngspice: None, tmp_path: Path) -> None:
+    """Cards with DC parameters beyond the simple model (IKF, ISE/NE, RB, …) become card devices: the
+    included file's card points at that file, the netlist's own card is carried inline, a plain card keeps
+    the simple parameters. Oracle: ngspice 39 running the original netlist (full Gummel–Poon both
+    sides), within the bipolar bar 1e-5."""
+    import shutil
+    import subprocess
+
+    from biastree.sim.verify import parse_raw
+
+    for name in ("gp_cards.spice", "gp_models.lib"):
+        shutil.copy(NETLISTS / name, tmp_path / name)
+    netlist = tmp_path / "gp_cards.spice"
+    tree, found = _extracted(netlist, _annotation(tmp_path, "defaults: {tolerance: 10%}\n"))
+    assert found == []
+    devices = tree.plan.devices
+    assert (devices["qfull"].model, Path(devices["qfull"].include)) == ("qfull", tmp_path / "gp_models.lib")
+    assert devices["qlat"].card.startswith(".model qlat pnp (is=5e-17 bf=40.0")
+    assert isinstance(devices["qplain"], BjtModel) and devices["qplain"].early == 80.0
+    op = solve(tree, None, output_resistance=False)
+    proc = subprocess.run(["ngspice", "-b", "-r", "out.raw", netlist.name], cwd=tmp_path, capture_output=True,
+                          text=True, timeout=300, stdin=subprocess.DEVNULL, check=False)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    sim = parse_raw((tmp_path / "out.raw").read_text())[0]
+    for load, ammeter in (("out_a", "va"), ("out_b", "vb"), ("out_c", "vc")):
+        j = tree.loads.index(load)
+        got = op.l_current[j, 1] * tree.l_mult[j]
+        assert got == pytest.approx(abs(float(sim[f"i({ammeter})"][0])), rel=1e-5), load
+
+
+@pytest.mark.ngspice
+def test_level3_mos_card_becomes_a_card_device(ngspice: None, card_tables: Path, tmp_path: Path) -> None:
+    """A MOS card of level 3 is no square-law card: it becomes an inline card device (unit W/L of the input
+    device), solved through ngspice characterisation tables. Oracle: ngspice 39 running the original
+    netlist, within the MOS tables' bar 1e-4."""
+    import subprocess
+
+    from biastree.sim.verify import parse_raw
+
+    netlist = NETLISTS / "level3.spice"
+    tree, found = _extracted(netlist, _annotation(tmp_path))
+    assert found == []
+    dev = tree.plan.devices["n3"]
+    assert dev.card.startswith(".model n3 nmos (level=3.0 kp=0.00015") and (dev.w, dev.l) == (1e-5, 2e-6)
+    op = solve(tree, None, output_resistance=False)
+    proc = subprocess.run(["ngspice", "-b", "-r", str(tmp_path / "out.raw"), str(netlist)], cwd=tmp_path,
+                          capture_output=True, text=True, timeout=300, stdin=subprocess.DEVNULL, check=False)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    sim = parse_raw((tmp_path / "out.raw").read_text())[0]
+    j = tree.loads.index("out")
+    assert op.l_current[j, 1] * tree.l_mult[j] == pytest.approx(abs(float(sim["i(vo)"][0])), rel=1e-4)
+
+
+def test_remote_offsets_on_card_devices_are_reported(tmp_path: Path) -> None:
+    """The plan applies floorplan offsets to simple devices only: on a card device they are said, not
+    dropped silently, and the rest is audited (the line of the offset device is named)."""
+    import shutil
+
+    shutil.copy(NETLISTS / "gp_models.lib", tmp_path / "gp_models.lib")
+    text = (NETLISTS / "gp_cards.spice").read_text(encoding="utf-8")
+    text = text.replace("Q5 out_b np vcc QLAT area=2", "Vcc2 vcc2 0 3.28\nQ5 out_b np vcc2 QLAT area=2 dtemp=5")
+    netlist = tmp_path / "remote.spice"
+    netlist.write_text(text, encoding="utf-8")
+    tree, found = _extracted(netlist, _annotation(tmp_path))
+    assert found == [f"{netlist}:16: q5: rail offset or dtemp on a device given by its model card: the plan "
+                     "cannot apply it to card devices yet, ignored (audited as a local output)"]
+    assert tree.plan.floorplan is None or not tree.plan.floorplan.remote
+    assert biastree.check(tree).summary()["loads"] == 3
 
 
 def test_multiplicity_down_the_hierarchy_and_four_terminal_bipolars(tmp_path: Path) -> None:

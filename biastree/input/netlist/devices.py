@@ -6,6 +6,17 @@ TNOM 27 °C); a level-1 MOS card gives KP, |VTO| and LAMBDA.  Parameters the
 plan's model does not have are named, not silently dropped; a card the plan
 cannot read (a PDK's BSIM4 device subcircuit, another MOS level) needs the
 annotation's ``devices:`` entry, or it is listed as missing.
+
+Card devices (``card_entry``): where the netlist gives the models itself, the
+plan points at them instead.  The rule: a PDK device subcircuit, a MOS card
+of level ≠ 1, or a Gummel–Poon card with DC parameters beyond IS, BF, VAF,
+XTI, EG, XTB and TNOM becomes a card device with the same ``library`` +
+``section`` or ``include`` file as the netlist's top-level ``.lib`` /
+``.include`` line (or the card's text inline, when the netlist writes it),
+the unit device's W and L for MOS.  Plain level-1 and simple bipolar cards
+keep the simple mapping (the same equations, and no characterisation run),
+and an annotation ``devices:`` entry always wins: its stand-in parameters are
+used as given.
 """
 
 from __future__ import annotations
@@ -15,6 +26,7 @@ from typing import Any
 
 from biastree.input.netlist.annotate import DeviceNote
 from biastree.input.netlist.flat import Card, Device, Finding, family
+from biastree.physics.gummel_poon import ALIASES, DC_IRRELEVANT
 
 SPICE_TNOM_C = 27.0  # SPICE's default temperature and TNOM, °C
 _BJT_CARD = {"is": ("is", 1e-16), "bf": ("beta", 100.0), "xti": ("xti", 3.0), "eg": ("eg", 1.11), "xtb": ("xtb", 0.0)}
@@ -22,6 +34,40 @@ _BJT_CARD = {"is": ("is", 1e-16), "bf": ("beta", 100.0), "xti": ("xti", 3.0), "e
 _BJT_UNMODELLED = {"nf": 1.0, "var": 0.0, "ikf": 0.0, "ise": 0.0, "ikr": 0.0, "isc": 0.0, "rb": 0.0, "re": 0.0,
                    "rc": 0.0, "br": 1.0}
 _MOS_UNMODELLED = {"gamma": 0.0, "rd": 0.0, "rs": 0.0}
+
+
+_BJT_SIMPLE = {"is", "bf", "vaf", "xti", "eg", "xtb", "tnom", "level"}
+
+
+def wants_card(kind: str, card: Card | None, source: dict[str, str] | None, given: DeviceNote | None) -> bool:
+    """Whether the plan device should be the netlist's own card (see the module text for the rule).
+
+    >>> wants_card("npn", Card("qn", "npn", {"is": 1e-16, "ikf": 0.01}), {"card": "…"}, None)
+    True
+    >>> wants_card("npn", Card("qn", "npn", {"is": 1e-16, "bf": 80, "cje": 1e-15}), {"card": "…"}, None)
+    False
+    """
+    if source is None or given is not None:
+        return False
+    if card is None:  # a PDK device subcircuit found in the model files
+        return True
+    p = card.params
+    if family(kind) == "mos":
+        return p.get("level", 1.0) != 1
+    extra = {ALIASES.get(k, k) for k in p} - _BJT_SIMPLE - DC_IRRELEVANT
+    return any(not (k in _BJT_UNMODELLED and p.get(k) == _BJT_UNMODELLED[k]) for k in extra)
+
+
+def card_entry(kind: str, name: str, source: dict[str, str], first: Device) -> dict[str, Any]:
+    """A plan card device: the netlist's model ``name`` from ``source``, MOS with the unit device's W and L.
+
+    >>> card_entry("nmos", "nch", {"include": "/m/x.spi"}, Device("m1", "nmos", ("n", "n", "0", "0"), w=2e-6, l=1e-6))
+    {'kind': 'nmos', 'model': 'nch', 'include': '/m/x.spi', 'w': 2e-06, 'l': 1e-06}
+    """
+    dev: dict[str, Any] = {"kind": kind, "model": name, **source}
+    if family(kind) == "mos":
+        dev.update(w=first.w, l=first.l)
+    return dev
 
 
 def device_entry(kind: str, name: str, card: Card | None, given: DeviceNote | None,

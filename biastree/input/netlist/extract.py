@@ -17,7 +17,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from biastree.input.netlist.annotate import Annotations
-from biastree.input.netlist.devices import SPICE_TNOM_C, device_entry, temperature_law
+from biastree.input.netlist.devices import SPICE_TNOM_C, card_entry, device_entry, temperature_law, wants_card
 from biastree.input.netlist.flat import SINKS, TRANSISTORS, Device, Finding, Flat, family
 from biastree.input.netlist.recognise import Recogniser, Stage
 
@@ -221,6 +221,7 @@ class _Builder:
                 fp["remote"].append(to)
                 fp["offsets"][to] = {"temperature": out.dtemp, "rail": out.rail_offset}
                 spec.setdefault("_hot", []).append(out)
+                spec.setdefault("_remote", []).append((to, out))
             elif out.rail_offset or out.dtemp:
                 self.findings.append(Finding(devs[0].where, devs[0].path, "offset rail or temperature on an output "
                                              "into a mirror: the plan cannot hold it, ignored"))
@@ -295,14 +296,37 @@ class _Builder:
                 spec[key] = value / (units[name] if key == "helper_size" else 1.0)
             if s.topology == "wide_swing":
                 spec["swing_n"] = s.params["swing_n"]
+            remote = spec.pop("_remote", [])
+            if "model" in plan["devices"][name]:  # card devices take no floorplan offsets yet
+                spec.pop("_hot", None)
+                self._drop_offsets(plan, remote)
             for out in spec.pop("_hot", []):
                 self._hot_card(s, out, plan["devices"][name])
+
+    def _drop_offsets(self, plan: dict[str, Any], remote: list[tuple[str, Any]]) -> None:
+        fp = plan.get("floorplan")
+        for to, out in remote:
+            if fp is None:
+                break
+            fp["remote"].remove(to)
+            fp["offsets"].pop(to, None)
+            self.findings.append(Finding(out.devices[0].where, out.devices[0].path, "rail offset or dtemp on a "
+                                         "device given by its model card: the plan cannot apply it to card "
+                                         "devices yet, ignored (audited as a local output)"))
+        if fp is not None and not fp["remote"]:
+            del plan["floorplan"]
 
     def _device(self, s: Stage, card_name: str) -> dict[str, Any]:
         card = self.flat.cards.get(card_name)
         self.origins[f"devices.{card_name}"] = [f".model {card_name} ({card.where})" if card else
                                                f"device subcircuit {card_name} (first used {s.input.where})"]
-        dev, findings, missing = device_entry(s.kind, card_name, card, self.notes.devices.get(card_name), s.input)
+        given, source = self.notes.devices.get(card_name), self.flat.sources.get(card_name)
+        if wants_card(s.kind, card, source, given):
+            at = source.get("library") or source.get("include")  # type: ignore[union-attr]
+            section = f" section {source['section']}" if "section" in source else ""  # type: ignore[operator]
+            self.origins[f"devices.{card_name}"].append(f"model from {at}{section}" if at else "card text as written")
+            return card_entry(s.kind, card_name, source, s.input)  # type: ignore[arg-type]
+        dev, findings, missing = device_entry(s.kind, card_name, card, given, s.input)
         self.findings += findings
         self.missing += missing
         return dev
@@ -310,7 +334,7 @@ class _Builder:
     def _hot_card(self, s: Stage, out: Any, dev: dict[str, Any]) -> None:
         """A warmer MOS output device with its own card: the pair of cards gives the temperature law."""
         card = out.devices[0].card
-        if family(s.kind) != "mos" or card == s.input.card or card not in self.flat.cards:
+        if family(s.kind) != "mos" or card == s.input.card or card not in self.flat.cards or "model" in dev:
             return
         for key, value in temperature_law(dev, self.flat.cards[card].params, self.temperature_k, out.dtemp).items():
             if key in dev and abs(dev[key] - value) > 1e-6 * max(1.0, abs(value)):

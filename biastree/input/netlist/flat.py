@@ -107,6 +107,9 @@ class Flat:
     temperature: float | None = None  # °C from .temp
     source: str = "netlist"
     notes: list[Finding] = field(default_factory=list)  # elements skipped by the flattener
+    # card or PDK device subcircuit name -> where the netlist gets it, as a plan card device's source
+    # fields: {"library": path, "section": s}, {"include": path} or {"card": text} (see flatten.model_source)
+    sources: dict[str, dict[str, str]] = field(default_factory=dict)
 
     def by_node(self) -> dict[str, list[tuple[Device, int]]]:
         """node → [(device, terminal index)]."""

@@ -10,6 +10,11 @@ multiplies down the hierarchy.  An X instance of a PDK device subcircuit
 ``npn`` or ``pnp`` after ``__``) is one MOS or bipolar device whose card is
 the subcircuit's name.  Capacitors are open at DC and are left out;
 every other element kind is kept as ``other`` so that it is reported.
+
+Where each card and device subcircuit comes from is recorded too
+(``Flat.sources``): the top-level ``.include FILE`` or ``.lib FILE SECTION``
+that brought it in, or the card's own text when the netlist writes it inline.
+Extraction then points a plan's card device at the same file and section.
 """
 
 from __future__ import annotations
@@ -19,7 +24,18 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from biastree.input.netlist.flat import GROUND, Card, Device, Finding, Flat
-from biastree.input.spice_text import Deck, Line, Scope, SpiceError, Subckt, evaluate, parse_text, split_params, tokens
+from biastree.input.spice_text import (
+    Deck,
+    Line,
+    Scope,
+    SpiceError,
+    Subckt,
+    evaluate,
+    logical_lines,
+    parse_text,
+    split_params,
+    tokens,
+)
 
 _PDK_DEVICE = re.compile(r"__(n|p)fet|__(npn|pnp)")
 _GROUNDS = ("0", "gnd", "gnd!")
@@ -240,6 +256,66 @@ class _Flattener:
         self.run(sub.lines, _Frame(path + ".", ports, scope, mult, frame.chain + (sub.name,)))
 
 
+def model_directives(text: str, file: str) -> list[dict[str, str]]:
+    """The top-level ``.include FILE`` / ``.lib FILE SECTION`` lines of a netlist, as card source fields
+    (absolute paths, relative ones taken from the netlist's folder, as ngspice does).
+
+    >>> model_directives("t\\n.lib '/m/x.lib' tt\\n.include /m/y.spi\\n", "/d/a.sp")
+    [{'library': '/m/x.lib', 'section': 'tt'}, {'include': '/m/y.spi'}]
+    """
+    out: list[dict[str, str]] = []
+    depth = 0
+    for line in logical_lines(text, file, title=True):
+        words = line.text.split()
+        head = words[0].lower()
+        depth += (head == ".subckt") - (head == ".ends")
+        if depth or head not in (".include", ".inc", ".lib") or len(words) < 2:
+            continue
+        target = Path(words[1].strip("'\""))
+        target = target if target.is_absolute() else (Path(file).parent / target).resolve()
+        if head == ".lib" and len(words) >= 3:
+            out.append({"library": str(target), "section": words[2].lower()})
+        elif head != ".lib":
+            out.append({"include": str(target)})
+    return out
+
+
+def model_source(defined_in: str, deck: Deck, directives: list[dict[str, str]]) -> dict[str, str] | None:
+    """The directive that brought in the file ``defined_in``: the last one read before it (files are read
+    depth first, in order); None when the netlist itself defines it."""
+    order = {str(Path(f).resolve()): i for i, f in enumerate(deck.files)}
+    at = order.get(str(Path(defined_in).resolve()))
+    if at is None:
+        return None
+    best = None
+    for d in directives:
+        k = order.get(d.get("library") or d.get("include") or "")
+        if k is not None and k <= at and (best is None or k >= best[0]):
+            best = (k, d)
+    return best[1] if best else None
+
+
+def _inline_card(name: str, card: Card) -> str:
+    values = " ".join(f"{k}={v!r}" for k, v in card.params.items())
+    return f".model {name} {card.kind} ({values})"
+
+
+def _sources(flat: Flat, deck: Deck, directives: list[dict[str, str]]) -> None:
+    for dev in flat.devices:
+        if dev.card is None or dev.card in flat.sources:
+            continue
+        found = deck.subckts.get(dev.card) if pdk_kind(dev.card) and dev.card not in flat.cards else None
+        card = flat.cards.get(dev.card)
+        defined = found.file if found is not None else deck.models[dev.card].file if card is not None else None
+        if defined is None:
+            continue
+        source = model_source(defined, deck, directives)
+        if source is not None:
+            flat.sources[dev.card] = dict(source)
+        elif card is not None:
+            flat.sources[dev.card] = {"card": _inline_card(dev.card, card)}
+
+
 def flatten(deck: Deck, source: str, top: str | None = None) -> Flat:
     """Every device of ``deck`` (or of its subcircuit ``top``), with full instance paths."""
     f = _Flattener(deck, source)
@@ -264,4 +340,6 @@ def read_netlist(path: str | Path, top: str | None = None) -> Flat:
     except OSError as err:
         raise SpiceError(str(path), f"cannot read ({err.strerror or err})") from None
     deck = parse_text(text, str(path), title=True)
-    return flatten(deck, str(path), top)
+    flat = flatten(deck, str(path), top)
+    _sources(flat, deck, model_directives(text, str(path)))
+    return flat

@@ -13,7 +13,7 @@ from typing import Any
 
 from biastree.input.netlist.extract import Extraction
 
-_ORDER = ("kind", "is", "beta", "early", "xti", "eg", "xtb", "kp", "vth", "lambda", "w", "l", "tnom", "vth_tc",
+_ORDER = ("kind", "model", "library", "section", "include", "card", "is", "beta", "early", "xti", "eg", "xtb", "kp", "vth", "lambda", "w", "l", "tnom", "vth_tc",
           "mobility_exp")
 _MIRROR_KEYS = ("device", "topology", "input_size", "helper_size", "bleed", "degeneration", "bias_current", "swing_n")
 
