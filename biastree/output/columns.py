@@ -50,8 +50,8 @@ class Column:
 def _raw(v: float | str | None) -> str:
     if v is None:
         return ""
-    if isinstance(v, str):
-        return v
+    if isinstance(v, (str, int)):  # a count stays a whole number
+        return str(v)
     return repr(float(v))
 
 
@@ -127,7 +127,7 @@ COLUMNS: tuple[Column, ...] = (
     Column("load", "load", "text", "the load's name", lambda r, i: r.tree.loads[i], lambda r, i: r.tree.loads[i],
            right=False),
     Column("count", "×", "", "instances of the load (product of the counts on its path)",
-           lambda r, i: float(r.tree.l_mult[i]), lambda r, i: str(int(r.tree.l_mult[i]))),
+           lambda r, i: int(r.tree.l_mult[i]), lambda r, i: str(int(r.tree.l_mult[i]))),
     Column("path", "path", "text", "the mirrors from the reference to the load", _path, _path, right=False),
     Column("voltage", "node V", "V", "the load's node voltage (value, or min..max)", _voltage, _voltage_text),
     Column("target", "target", "A", "target current of one instance",
