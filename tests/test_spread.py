@@ -300,7 +300,8 @@ def test_sweep_and_corners_cli(tmp_path) -> None:  # type: ignore[no-untyped-def
     path = ROOT / "samples" / "die_spread.yaml"
     out = runner.invoke(app, ["sweep", str(path), "--temperature=-40C:125C:5C", "--csv", str(tmp_path / "t.csv")])
     assert out.exit_code == 1, out.output  # amp_far fails its budget (as in `check`)
-    assert "34 conditions solved" in out.output
-    assert len((tmp_path / "t.csv").read_text().splitlines()) == 1 + 34 * 6
+    # 34 temperatures × the 3 ends of each load's voltage range (judged like `check`)
+    assert "102 conditions solved" in out.output
+    assert len((tmp_path / "t.csv").read_text().splitlines()) == 1 + 102 * 6
     assert runner.invoke(app, ["corners", str(path)]).exit_code == 1
     assert runner.invoke(app, ["sweep", str(path), "--temperature", "nonsense"]).exit_code == 2
