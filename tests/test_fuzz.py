@@ -279,7 +279,8 @@ def run_extra(path: Path, body: bytes, name: str) -> None:
         _clean_errors(path, errors, body)
         assert written is None or not written.exists(), f"{name}: output written although it failed"
     else:
-        assert not errors or name == "draw", f"{name}: {errors}"  # draw may add a note on what it fitted
+        # notes (what draw fitted, model card parameters ignored) are fine; nothing else on stderr
+        assert all(line.startswith("note: ") for line in errors), f"{name}: {errors}"
         if written is not None:
             text = written.read_text(encoding="utf-8")
             assert text.rstrip().endswith("}" if name == "draw" else "</html>"), f"{name}: output not whole"
@@ -308,7 +309,7 @@ def test_broken_plans_fail_cleanly(tmp_path_factory: pytest.TempPathFactory, dat
     if code == 2:
         _clean_errors(path, errors, body)
     else:
-        assert not errors, errors
+        assert all(line.startswith("note: ") for line in errors), errors  # e.g. card parameters ignored
         if "--json" in command:
             json.loads(out, parse_constant=lambda c: pytest.fail(f"{c} in the JSON results"))
         if command[0] == "netlist":
