@@ -259,3 +259,84 @@ def test_merge_keys_feeds_and_bom(tmp_path: Path) -> None:
         body = json.dumps(BASE_JSON) if name.endswith("json") else BASE
         code, lines = run(["check", str(write(tmp_path, b"\xef\xbb\xbf" + body.encode(), name))])
         assert code == 0, lines
+
+
+# --- extreme values under allow_unusual (the systematic sweep of issue 15) ------------
+
+SECTIONS = ["devices", "mirrors", "loads", "reference", "supply", "temperature", "conditions", "spread",
+            "floorplan", "compliance", "matched"]
+
+
+def sample_with(tmp_path: Path, sample: str, path: tuple[object, ...], value: object) -> Path:
+    """A shipped sample with one value set to an extreme, every section under allow_unusual, as JSON."""
+    import yaml
+
+    data = yaml.safe_load((ROOT / "samples" / f"{sample}.yaml").read_text())
+    node = data
+    for key in path[:-1]:
+        node = node[key]
+    node[path[-1]] = value
+    data["allow_unusual"] = SECTIONS
+    return as_json(tmp_path, data, f"{sample}.json")
+
+
+@pytest.mark.parametrize("path, value, mirror", [
+    (("devices", "mn", "kp"), 1e30, "m_dac"),      # KP·W/L so large that V_GS − V_th is below a float's resolution
+    (("devices", "mn", "l"), 1e-59, "m_dac"),      # the same through W/L
+    (("devices", "mp", "lambda"), 1e300, "p_ota"),  # λ·V_GS overflows the square law
+    (("mirrors", "n_master", "branches", 1, "ratio"), 1e-59, "p_ota"),  # an input current of 1e-64 A
+])
+def test_mos_square_law_beyond_the_numbers_is_refused(tmp_path: Path, path: tuple[object, ...], value: float,
+                                                       mirror: str) -> None:
+    # these ended in exit 3 (a numpy warning from the audit's regulation) before
+    plan = sample_with(tmp_path, "mixed_topologies", path, value)
+    for command in ("check", "report"):
+        code, lines = run([command, str(plan), *(["-o", str(tmp_path / "r.html")] if command == "report" else [])])
+        assert code == 2, lines
+        assert re.match(rf"^error: {re.escape(str(plan))}:\d+: mirrors\.{mirror}\.device: implausible result: "
+                        rf"the square law of mirror '{mirror}' has no V_GS", lines[0]), lines
+    assert not (tmp_path / "r.html").exists()
+
+
+def test_regulation_with_no_nominal_current_is_guarded() -> None:
+    """A load the model extrapolates to exactly no current: ΔI/I_nominal is 0, not 0/0 (no warning);
+    a nominal of exactly 0 with current at the ends of the range is refused with the load's place."""
+    import dataclasses
+
+    import numpy as np
+
+    import biastree
+    from biastree.analysis.plausible import check_result
+    from biastree.errors import SolveError
+
+    result = biastree.check(str(ROOT / "samples" / "bipolar_small.yaml"))
+    delivered = result.delivered.copy()
+    delivered[0] = 0.0
+    none = dataclasses.replace(result, delivered=delivered)
+    delta, fraction, per_volt = none.regulation
+    assert (delta[0], fraction[0], per_volt[0]) == (0.0, 0.0, 0.0)
+    assert np.array_equal(fraction[1:], result.regulation[1][1:])
+    check_result(none)  # no current anywhere is a (failing) verdict, not nonsense
+    delivered[0] = [1e-6, 0.0, 2e-6]
+    with pytest.raises(SolveError, match=r"receives exactly no current at its nominal voltage") as info:
+        check_result(dataclasses.replace(result, delivered=delivered))
+    assert info.value.path == ("loads", result.tree.loads[0])
+
+
+@pytest.mark.parametrize("command", [
+    ["corners"], ["sweep", "--temperature", "-40C:125C:55C"], ["spread", "--samples", "20"]])
+@pytest.mark.parametrize("path, value", [
+    (("devices", "qn", "a_is_pair"), 1e300),      # σ squared overflows
+    (("floorplan", "rail_gradient"), 1e30),
+    (("devices", "mn", "kp"), 1e30),
+])
+def test_condition_commands_refuse_what_check_refuses(tmp_path: Path, command: list[str], path: tuple[object, ...],
+                                                      value: float) -> None:
+    # corners, sweep and spread solve outside check_tree: they run the same plausibility checks
+    plan = sample_with(tmp_path, "die_spread", path, value)
+    code, lines = run(["check", str(plan)])
+    assert code == 2 and re.search("implausible result|no operating point", lines[0]), lines
+    code, lines = run([command[0], str(plan), *command[1:]])
+    assert code == 2, lines
+    assert re.match(rf"^error: {re.escape(str(plan))}:\d+: (loads|mirrors)\.\S+: (implausible result|no operating "
+                    "point): ", lines[0]), lines

@@ -16,6 +16,14 @@ Half the cases list every section under ``allow_unusual`` so that extreme
 values get past the input ranges and reach the solver and the plausibility
 check of its result.
 
+When the plan is accepted (exit 0/1; about one case in six), the case also
+runs one other command on it in-process, picked by a checksum of the plan
+text (so a replayed case runs the same one): ``draw`` to a .dot file (no Graphviz needed), ``report`` to an
+HTML file, ``corners``, ``sweep`` over a short temperature range and
+``spread`` with few samples.  They must end in exit 0/1 with their output
+written whole, or exit 2 with located one-line errors and no output file;
+never exit 3 or a numpy warning.
+
 CI runs ``BIASTREE_FUZZ_CASES`` cases (default 150, derandomised so a CI
 failure reproduces); set it higher for a long run, e.g.
 ``BIASTREE_FUZZ_CASES=5000 python3 -m pytest tests/test_fuzz.py``.
@@ -28,6 +36,7 @@ import json
 import os
 import re
 import signal
+import zlib
 from pathlib import Path
 from typing import Any
 
@@ -231,13 +240,52 @@ def run_case(path: Path, body: bytes, command: list[str]) -> tuple[int, list[str
     return result.exit_code, errors, result.stdout
 
 
-def _record(code: int, errors: list[str]) -> None:
+def _record(code: int, errors: list[str], command: str = "check") -> None:
     """With BIASTREE_FUZZ_REPORT=FILE, append each case's exit status and first message (for the counts in notes)."""
     report = os.environ.get("BIASTREE_FUZZ_REPORT")
     if report:
         first = LINE.match(errors[0])["rest"] if errors and LINE.match(errors[0]) else ""
         with open(report, "a", encoding="utf-8") as handle:
-            handle.write(f"{code}\t{len(errors)}\t{first[:160]}\n")
+            handle.write(f"{code}\t{len(errors)}\t{command}\t{first[:160]}\n")
+
+
+def _clean_errors(path: Path, errors: list[str], body: bytes) -> None:
+    assert errors, f"exit 2 without a message on {body[:2000]!r}"
+    for line in errors:
+        match = LINE.match(line)
+        assert match and match["file"] == str(path), f"not 'error: FILE[:LINE]: message': {line[:300]!r}"
+        assert len(line) <= 700 and line.isprintable(), f"message too long or not printable: {line[:300]!r}"
+
+
+EXTRA_COMMANDS = {  # name → (arguments after the plan, output file the command must write whole, or None)
+    "draw": (["-o", "{out}.dot"], "{out}.dot"),
+    "report": (["-o", "{out}.html"], "{out}.html"),
+    "corners": ([], None),
+    "sweep": (["--temperature", "-40C:125C:55C", "--json"], None),
+    "spread": (["--samples", "20", "--seed", "3"], None),
+}
+
+
+def run_extra(path: Path, body: bytes, name: str) -> None:
+    """One of the other commands on an accepted plan: exit 0/1 with its output whole, or clean errors."""
+    args, out = EXTRA_COMMANDS[name]
+    stem = str(path.with_name("out"))
+    args = [a.format(out=stem) for a in args]
+    code, errors, stdout = run_case(path, body, [name, *args])
+    _record(code, errors, name)
+    assert code in (0, 1, 2), f"{name}: exit {code}: {errors}\non {body[:2000]!r}"
+    written = Path(out.format(out=stem)) if out else None
+    if code == 2:
+        _clean_errors(path, errors, body)
+        assert written is None or not written.exists(), f"{name}: output written although it failed"
+    else:
+        # notes (what draw fitted, model card parameters ignored) are fine; nothing else on stderr
+        assert all(line.startswith("note: ") for line in errors), f"{name}: {errors}"
+        if written is not None:
+            text = written.read_text(encoding="utf-8")
+            assert text.rstrip().endswith("}" if name == "draw" else "</html>"), f"{name}: output not whole"
+        if name == "sweep":
+            json.loads(stdout, parse_constant=lambda c: pytest.fail(f"{c} in the sweep JSON"))
 
 
 @settings(max_examples=CASES, deadline=None, database=None, derandomize=os.environ.get("CI", "").lower() == "true",
@@ -259,13 +307,9 @@ def test_broken_plans_fail_cleanly(tmp_path_factory: pytest.TempPathFactory, dat
     _record(code, errors)
     assert code in (0, 1, 2), f"exit {code}: {errors}\non {body[:2000]!r}"
     if code == 2:
-        assert errors, f"exit 2 without a message on {body[:2000]!r}"
-        for line in errors:
-            match = LINE.match(line)
-            assert match and match["file"] == str(path), f"not 'error: FILE[:LINE]: message': {line[:300]!r}"
-            assert len(line) <= 700 and line.isprintable(), f"message too long or not printable: {line[:300]!r}"
+        _clean_errors(path, errors, body)
     else:
-        assert not errors, errors
+        assert all(line.startswith("note: ") for line in errors), errors  # e.g. card parameters ignored
         if "--json" in command:
             json.loads(out, parse_constant=lambda c: pytest.fail(f"{c} in the JSON results"))
         if command[0] == "netlist":
@@ -273,3 +317,5 @@ def test_broken_plans_fail_cleanly(tmp_path_factory: pytest.TempPathFactory, dat
             assert not re.search(r"\b(nan|inf)\b", cards, re.IGNORECASE), "non-finite number in the netlist"
         result = biastree.check(str(path))
         assert _finite(result), f"non-finite numbers in the verdict of {body[:2000]!r}"
+        names = sorted(EXTRA_COMMANDS)
+        run_extra(path, body, names[zlib.crc32(body) % len(names)])

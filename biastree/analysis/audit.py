@@ -347,13 +347,18 @@ class Audit:
     @cached_property
     def regulation(self) -> tuple[Array, Array, Array]:
         """Load regulation over each load's voltage range: (ΔI in A, ΔI/I_nominal,
-        ΔI/ΔV in A/V; 0 for a fixed voltage).  ΔI = I(max voltage) − I(min voltage)."""
+        ΔI/ΔV in A/V; 0 for a fixed voltage).  ΔI = I(max voltage) − I(min voltage).
+        ΔI/I_nominal is 0 where the nominal current is exactly 0 (the model extrapolated
+        to no current; the load's reasons say so, and ``analysis.plausible`` refuses a
+        nonzero ΔI there)."""
         plan = self.tree.plan
         delta = self.delivered[:, 2] - self.delivered[:, 0]
         span = np.array([plan.loads[n].v_range[2] - plan.loads[n].v_range[0] for n in self.tree.loads])
         with np.errstate(invalid="ignore", divide="ignore"):
             per_volt = np.where(span > 0, delta / np.where(span > 0, span, 1.0), 0.0)
-        return delta, delta / self.delivered[:, 1], per_volt
+        nominal = self.delivered[:, 1]
+        fraction = np.divide(delta, nominal, out=np.zeros_like(delta), where=nominal != 0)
+        return delta, fraction, per_volt
 
     @cached_property
     def rout(self) -> Array:

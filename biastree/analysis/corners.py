@@ -9,6 +9,7 @@ from functools import cached_property
 import numpy as np
 
 from biastree.analysis.conditions import ENDS, Columns, condition_columns
+from biastree.analysis.plausible import check_conditions
 from biastree.analysis.solve import OperatingPoint, solve
 from biastree.physics.devices import Array
 from biastree.tree.arrays import Tree
@@ -142,9 +143,14 @@ def has_conditions(tree: Tree) -> bool:
 
 
 def evaluate(tree: Tree, columns: Columns | None = None) -> ConditionResult:
-    """Solve the plan over ``columns`` (default: the plan's conditions × voltage ends)."""
+    """Solve the plan over ``columns`` (default: the plan's conditions × voltage ends).
+    A result that is not physical raises ``SolveError`` (``analysis.plausible``), as in
+    ``check``: values under allow_unusual may overflow on the way, and the non-finite
+    result is refused with its place instead of numpy warning."""
     cols = condition_columns(tree) if columns is None else columns
-    return ConditionResult(tree, cols, solve(tree, cols, output_resistance=False))
+    with np.errstate(all="ignore"):
+        op = solve(tree, cols, output_resistance=False)
+    return check_conditions(ConditionResult(tree, cols, op))
 
 
 def sweep_columns(tree: Tree, temperatures: list[float] | None = None, supplies: list[float] | None = None,

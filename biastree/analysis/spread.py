@@ -29,6 +29,7 @@ import numpy as np
 
 from biastree.analysis.conditions import default_columns
 from biastree.analysis.corners import path_headroom
+from biastree.analysis.plausible import check_samples, check_sigma
 from biastree.analysis.solve import solve
 from biastree.physics.devices import Array
 from biastree.tree.arrays import Tree
@@ -176,19 +177,24 @@ def analytic(tree: Tree, base: Analytic | None = None, only: Array | None = None
     vt_shift[:, 2] = _H
     k_scale[:, 3] = 1.0 + _H
     cols = replace(nominal, names=("nominal", "is", "vt", "k"), is_scale=is_scale, vt_shift=vt_shift, k_scale=k_scale)
-    op = solve(tree, cols, output_resistance=False, base=None if base is None else base.op, only=only)
-    gain = op.b_current / op.m_i_in[tree.b_parent]
-    s_is = (gain[:, 1] / gain[:, 0] - 1.0) / _H
-    s_vt = (gain[:, 2] / gain[:, 0] - 1.0) / _H
-    s_k = (gain[:, 3] / gain[:, 0] - 1.0) / _H
-    result = Analytic(tree, device_sigmas(tree), s_is, s_vt, s_k, np.zeros(n_b), tree.plan.reference.tolerance / 3.0)
-    local = result.local_var(np.arange(n_b))
-    # variance carried by each mirror's input current, generation by generation
-    m_var = np.zeros(len(tree.mirrors))
-    for gen in tree.generations[1:]:
-        b = tree.m_in_branch[gen]
-        m_var[gen] = m_var[tree.b_parent[b]] + local[b]
-    return replace(result, b_var=local + m_var[tree.b_parent], op=op)
+    # values under allow_unusual may overflow here (a coefficient squared): the σ is then
+    # refused with its load by check_sigma below, instead of numpy warning
+    with np.errstate(all="ignore"):
+        op = solve(tree, cols, output_resistance=False, base=None if base is None else base.op, only=only)
+        gain = op.b_current / op.m_i_in[tree.b_parent]
+        s_is = (gain[:, 1] / gain[:, 0] - 1.0) / _H
+        s_vt = (gain[:, 2] / gain[:, 0] - 1.0) / _H
+        s_k = (gain[:, 3] / gain[:, 0] - 1.0) / _H
+        result = Analytic(tree, device_sigmas(tree), s_is, s_vt, s_k, np.zeros(n_b), tree.plan.reference.tolerance / 3.0)
+        local = result.local_var(np.arange(n_b))
+        # variance carried by each mirror's input current, generation by generation
+        m_var = np.zeros(len(tree.mirrors))
+        for gen in tree.generations[1:]:
+            b = tree.m_in_branch[gen]
+            m_var[gen] = m_var[tree.b_parent[b]] + local[b]
+        b_var = local + m_var[tree.b_parent]
+        check_sigma(tree, np.sqrt(b_var[tree.l_branch]))
+    return replace(result, b_var=b_var, op=op)
 
 
 # --- Monte Carlo -----------------------------------------------------------------
@@ -277,10 +283,11 @@ def monte_carlo(tree: Tree, samples: int, seed: int = 1, include_reference: bool
             shifts["kp"] = rng.standard_normal(c) * spread.kp
         cols = replace(cols, names=tuple(f"s{done + j}" for j in range(c)), i_ref=i_ref, shifts=shifts,
                        is_scale=np.exp(d_is), vt_shift=d_vt, k_scale=k_out / k_in[parent])
-        op = solve(tree, cols, output_resistance=False)
-        currents[:, done:done + c] = op.l_current
-        comp = op.b_compliance
-        active[:, done:done + c] = (comp[tree.l_branch] >= 0) & (path_headroom(tree, comp) >= 0)
+        with np.errstate(all="ignore"):  # extreme samples are refused by check_samples, not warned about
+            op = solve(tree, cols, output_resistance=False)
+            comp = op.b_compliance
+            active[:, done:done + c] = (comp[tree.l_branch] >= 0) & (path_headroom(tree, comp) >= 0)
+        currents[:, done:done + c] = check_samples(tree, op.l_current)
         done += c
         if progress:
             progress(done, samples)
