@@ -276,14 +276,18 @@ def _title(result: Audit, notes: list[str]) -> str:
     return head + "".join(f"\n{n}" for n in notes)
 
 
+def _range_text(result: Audit, i: int) -> str:
+    """' (low..high)' of the error over the voltage range, when it shows as a range at all."""
+    lo, hi = sorted((float(result.error[i, 0]), float(result.error[i, 2])))
+    return f" ({_pct(lo)}..{_pct(hi)})" if _pct(lo) != _pct(hi) else ""
+
+
 def _load_rows(result: Audit, i: int) -> list[str]:
     ok = bool(result.passed[i])
     rows = [
         f"target {escape(format_si(result.target[i], 'A'))}",
         f"delivered {escape(format_si(result.delivered[i, 1], 'A', 4))}",
-        f"error {_pct(result.error[i, 1])}"
-        + (f" ({_pct(min(result.error[i, 0], result.error[i, 2]))}..{_pct(max(result.error[i, 0], result.error[i, 2]))})"
-           if result.error[i, 0] != result.error[i, 2] else ""),
+        f"error {_pct(result.error[i, 1])}" + _range_text(result, i),
         f"budget ±{result.tolerance[i] * 100:.3g}%, margin {_pct(result.margin[i])}",
         f"compliance {escape(format_si(result.worst_compliance[i], 'V'))}",
     ]
