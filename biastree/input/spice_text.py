@@ -67,17 +67,25 @@ def spice_number(text: str) -> float | None:
     return _scaled(number, 0)  # unit letters only ('V', 'ohm') are ignored
 
 
-@dataclass(frozen=True)
-class Line:
-    """One logical line (continuations joined, comments removed) and where it starts."""
+class _Located:
+    """``where`` = 'file:line' for the records below, which all carry ``file`` and ``line``."""
 
-    text: str
     file: str
     line: int
 
     @property
     def where(self) -> str:
         return f"{self.file}:{self.line}"
+
+
+@dataclass(frozen=True)
+class Line(_Located):
+    """One logical line (continuations joined, comments removed) and where it starts."""
+
+    text: str
+    file: str
+    line: int
+
 
     def error(self, message: str) -> SpiceError:
         return SpiceError(self.where, message)
@@ -326,7 +334,7 @@ def evaluate(expr: str, lookup: Callable[[str], float], where: str = "") -> floa
 # --- cards, subcircuits, decks ----------------------------------------------
 
 @dataclass
-class ModelCard:
+class ModelCard(_Located):
     """A ``.model NAME TYPE (params)`` card; values kept as text until asked for."""
 
     name: str  # lower case
@@ -336,9 +344,6 @@ class ModelCard:
     line: int
     scope: Scope
 
-    @property
-    def where(self) -> str:
-        return f"{self.file}:{self.line}"
 
     def value(self, key: str, default: float | None = None) -> float:
         text = self.params.get(key.lower())
@@ -354,7 +359,7 @@ class ModelCard:
 
 
 @dataclass
-class Subckt:
+class Subckt(_Located):
     """A ``.subckt`` with its ports, default parameters and body lines (as text)."""
 
     name: str
@@ -365,9 +370,6 @@ class Subckt:
     line: int
     scope: Scope
 
-    @property
-    def where(self) -> str:
-        return f"{self.file}:{self.line}"
 
 
 @dataclass
