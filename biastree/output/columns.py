@@ -105,7 +105,8 @@ def _rout(result: Audit, load: int) -> float | None:
 
 def _regulation(result: Audit, load: int) -> float | None:
     per_volt = float(result.regulation[2][load])
-    return per_volt / float(result.delivered[load, 1]) if per_volt else None
+    nominal = float(result.delivered[load, 1])
+    return per_volt / nominal if per_volt and nominal else None  # no relative figure without a nominal current
 
 
 def _tempco(result: Audit, load: int) -> float | None:
