@@ -15,6 +15,7 @@ import numpy as np
 
 from biastree.analysis.audit import Audit
 from biastree.errors import BiasTreeError
+from biastree.output.columns import BY_KEY
 from biastree.units import format_si, signed_percent
 
 PASS_COLOUR, PASS_FILL = "#00796b", "#e0f2ef"
@@ -278,8 +279,10 @@ def _title(result: Audit, notes: list[str]) -> str:
 
 def _range_text(result: Audit, i: int) -> str:
     """' (low..high)' of the error over the voltage range, when it shows as a range at all."""
-    lo, hi = sorted((float(result.error[i, 0]), float(result.error[i, 2])))
-    return f" ({_pct(lo)}..{_pct(hi)})" if _pct(lo) != _pct(hi) else ""
+    span = BY_KEY["error_range"].value(result, i)  # the tables' low..high range
+    if not isinstance(span, tuple) or _pct(span[0]) == _pct(span[1]):
+        return ""
+    return f" ({_pct(span[0])}..{_pct(span[1])})"
 
 
 def _load_rows(result: Audit, i: int) -> list[str]:
