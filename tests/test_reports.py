@@ -428,3 +428,17 @@ def test_diff_shows_values_in_their_units(tmp_path) -> None:  # type: ignore[no-
     out = runner.invoke(app, ["diff", str(old), str(new)]).output
     assert "loads.cmp_tail.tolerance: 10% → 4%" in out
     assert "reference.current: 20 µA → 25 µA" in out
+
+
+def test_device_table_shows_parameters_in_designer_units() -> None:
+    """The reports' device table writes each parameter with its SI prefix and unit
+    (the plan's own units), and leaves out entries the plan did not give."""
+    from biastree.output.breakdown import device_parameters
+
+    plan = biastree.load(ROOT / "samples" / "die_spread.yaml").plan
+    mn = device_parameters(plan.devices["mn"])
+    assert "kp=200 µA/V²" in mn and "w=20 µm" in mn and "l=5 µm" in mn
+    assert "vth_tc=-1 mV/K" in mn and "a_vt_pair=5 mV·µm" in mn and "a_beta_pair=1 %·µm" in mn
+    qn = device_parameters(plan.devices["qn"])
+    assert "is=10 aA" in qn and "early=80 V" in qn and "area=40 µm²" in qn
+    assert "e-" not in mn + qn  # no raw exponent left

@@ -5,11 +5,10 @@ from __future__ import annotations
 
 from typing import Any
 
-
 from biastree.analysis.audit import Audit
 from biastree.analysis.solve import CASES
 from biastree.physics.devices import Array
-from biastree.units import format_si
+from biastree.units import format_percent, format_si
 
 
 def breakdown(result: Audit, load: int) -> list[tuple[str, str, float]]:
@@ -42,10 +41,50 @@ def where_nominal(result: Audit, load: int) -> str:
     return f"nominal ({CASES[1]} voltage {format_si(spec.v_range[1], 'V')}, the plan's own conditions)"
 
 
+def _parameter(value: object, unit: str | None) -> str:
+    """One parameter in a designer's units: 300 µA/V², 2 µm, 1 %·µm, 5 mV·µm."""
+    if not isinstance(value, float) or unit is None:
+        return str(value)
+    if unit == "%":
+        return format_percent(value, 4)
+    if unit == "·m":  # a Pelgrom coefficient of a fraction: σ × √(area)
+        return f"{value * 1e8:.4g} %·µm"
+    if unit == "V·m":
+        return f"{value * 1e9:.4g} mV·µm"
+    if unit == "m²":
+        return f"{value * 1e12:.4g} µm²"
+    if unit in ("", "/V", "/K", "/K²", "eV"):
+        return f"{value:.4g}{' ' + unit if unit else ''}"
+    return format_si(value, unit, 4)
+
+
+_CARD_UNITS = {"w": "m", "l": "m", "area": "m²", "a_vt_pair": "V·m", "a_vt_single": "V·m",
+               "a_beta_pair": "·m", "a_beta_single": "·m", "a_is_pair": "·m", "a_is_single": "·m"}
+
+
+def _unit_of(annotation: object, metadata: list[object]) -> str | None:
+    """The unit a field's plausible range is stated in, looked for through Optional[...]."""
+    from typing import get_args
+
+    for m in metadata:
+        if hasattr(m, "unit") and hasattr(m, "low"):
+            return str(m.unit)
+    for arg in get_args(annotation):
+        found = _unit_of(arg, list(getattr(arg, "__metadata__", ())))
+        if found is not None:
+            return found
+    return None
+
+
 def device_parameters(dev: object) -> str:
-    """A device model's parameters as one line of text (reports)."""
+    """A device model's parameters as one line of text in SI units (reports); empty
+    entries are left out."""
+    fields = type(dev).model_fields  # type: ignore[attr-defined]
     data = dev.model_dump(by_alias=True, exclude={"kind"})  # type: ignore[attr-defined]
-    return ", ".join(f"{k}={v:.4g}" if isinstance(v, float) else f"{k}={v}" for k, v in data.items() if v is not None)
+    units = {info.alias or name: _unit_of(info.annotation, info.metadata) for name, info in fields.items()}
+    for key, unit in _CARD_UNITS.items():  # a card device's own fields carry no plausible range
+        units[key] = units.get(key) or unit
+    return ", ".join(f"{k}={_parameter(v, units.get(k))}" for k, v in data.items() if v not in (None, {}, [], ""))
 
 
 def budget_use(result: Audit, load: int) -> str:
