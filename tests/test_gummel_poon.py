@@ -197,3 +197,14 @@ def test_card_source_validation(write_plan) -> None:  # type: ignore[no-untyped-
     (write_plan("", "x.lib"))
     result = CliRunner().invoke(app, ["check", str(write_plan(json.dumps(plan), "d.json"))])
     assert result.exit_code == 2 and "library needs a section" in result.output
+
+
+def test_fractional_copies_of_a_card_device_are_noted(write_plan) -> None:  # type: ignore[no-untyped-def]
+    """A card device is m= copies of its unit device: an output of 1.5 units is said, whole ones are not."""
+    plan = _plan(_device("npn", BASE), "simple", "10uA")
+    result = CliRunner().invoke(app, ["check", str(write_plan(json.dumps(plan), "w.json"))])
+    assert "unit devices; a device of model card" not in result.output
+    plan["mirrors"]["m"]["input_size"] = 1.5
+    result = CliRunner().invoke(app, ["check", str(write_plan(json.dumps(plan), "f.json"))])
+    assert ("note: mirror m: input 1.5, output to b 1.5 unit devices; a device of model card q "
+            "is whole copies") in result.output

@@ -151,7 +151,26 @@ def notes(plan: object) -> list[str]:
             where = locate(dev).card.where
             if where in _NOTES:
                 wanted.append(_NOTES[where])
-    return list(dict.fromkeys(wanted))
+    return list(dict.fromkeys(wanted)) + fractional_copies(plan)
+
+
+def fractional_copies(plan: object) -> list[str]:
+    """One line per mirror whose card devices are not whole copies of the unit device.
+
+    A card's device is built from ``m=`` copies of its unit device (never a wider
+    W: real models depend on W), so an input of ``input_size`` units and an output
+    of ``input_size × ratio`` units should both be whole numbers; the simulator
+    accepts a fractional m, a layout does not."""
+    lines = []
+    for name, spec in getattr(plan, "mirrors", {}).items():
+        if not isinstance(plan.devices.get(spec.device), CardModel):  # type: ignore[attr-defined]
+            continue
+        sizes = [("input", spec.input_size)] + [(f"output to {b.to}", spec.input_size * b.ratio) for b in spec.branches]
+        odd = [f"{what} {size:.4g}" for what, size in sizes if abs(size - round(size)) > 1e-9 or round(size) < 1]
+        if odd:
+            lines.append(f"mirror {name}: {', '.join(odd)} unit devices; a device of model card {spec.device} "
+                         "is whole copies of its unit device (m=): choose input_size so that every size is whole")
+    return lines
 
 
 def gummel_poon(dev: CardModel, corner: str, kelvin: np.ndarray) -> gp.GummelPoon:
