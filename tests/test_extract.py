@@ -534,3 +534,22 @@ def test_reference_direction(tmp_path: Path, source: str, root_kind: str) -> Non
                        encoding="utf-8")
     tree, _ = _extracted(netlist, _annotation(tmp_path))
     assert tree.plan.reference.current == 10e-6 and tree.plan.loads["o"].current == pytest.approx(20e-6)
+
+
+def test_model_library_inside_a_package_is_written_portably(tmp_path: Path, monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    """An extracted plan names a model file inside an installed Python package as package:NAME/rest,
+    which resolves back to the same file (so the plan works on another machine); others stay as given."""
+    import importlib
+
+    from biastree.input.cards import portable_path, resolve_path
+
+    (tmp_path / "fakepdk" / "models").mkdir(parents=True)
+    (tmp_path / "fakepdk" / "__init__.py").write_text("", encoding="utf-8")
+    lib = tmp_path / "fakepdk" / "models" / "all.lib"
+    lib.write_text("* empty\n", encoding="utf-8")
+    monkeypatch.syspath_prepend(str(tmp_path))
+    importlib.invalidate_caches()
+    assert portable_path(str(lib)) == "package:fakepdk/models/all.lib"
+    assert resolve_path(portable_path(str(lib)), None).resolve() == lib.resolve()
+    outside = tmp_path / "elsewhere.lib"
+    assert portable_path(str(outside)) == str(outside)

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import importlib.util
 import os
+import sys
 from pathlib import Path
 from typing import Annotated, Literal, Optional
 
@@ -64,6 +65,31 @@ def resolve_path(text: str, base: Path | None) -> Path:
     if not path.is_absolute():
         path = (base or Path.cwd()) / path
     return path
+
+
+def portable_path(text: str) -> str:
+    """A model file's path as a plan should keep it: ``package:NAME/rest`` when the file lies
+    inside an installed Python package (so the plan works on another machine), else as given.
+
+    >>> portable_path("/no/such/place/x.lib")
+    '/no/such/place/x.lib'
+    """
+    path = Path(text)
+    if not path.is_absolute():
+        return text
+    for entry in sys.path:
+        try:
+            rest = path.relative_to(Path(entry).resolve()) if entry else None
+        except (ValueError, OSError):
+            continue
+        if rest is None or len(rest.parts) < 2:
+            continue
+        name = rest.parts[0]
+        spec = importlib.util.find_spec(name) if name.isidentifier() else None
+        if spec is not None and spec.submodule_search_locations and \
+                Path(list(spec.submodule_search_locations)[0]).resolve() == Path(entry).resolve() / name:
+            return PACKAGE_PREFIX + "/".join(rest.parts)
+    return text
 
 
 class CardModel(BaseModel):

@@ -11,6 +11,7 @@ from __future__ import annotations
 import json
 from typing import Any
 
+from biastree.input.cards import portable_path
 from biastree.input.netlist.extract import Extraction
 
 _ORDER = ("kind", "model", "library", "section", "include", "card", "is", "beta", "early", "xti", "eg", "xtb", "kp", "vth", "lambda", "w", "l", "tnom", "vth_tc",
@@ -52,6 +53,7 @@ def to_plan_yaml(ext: Extraction, header: list[str] | None = None) -> str:
     out.append(f"temperature: {_scalar(plan['temperature'])}")
     out.append("devices:")
     for name, dev in plan["devices"].items():
+        dev = {k: portable_path(v) if k in ("library", "include") else v for k, v in dev.items()}
         out.append(f"  {_scalar(name)}: {_flow(dev, _ORDER)}{_comment(origins.get(f'devices.{name}', []))}")
     out.append(f"reference: {_flow(plan['reference'])}{_comment(origins.get('reference', []))}")
     out.append("mirrors:")
