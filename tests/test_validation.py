@@ -46,7 +46,7 @@ def test_base_plan_is_valid(write_plan) -> None:  # type: ignore[no-untyped-def]
 
 CASES = [
     # (what is replaced, by what, expected message, line)
-    ("beta: 120", "betta: 120", r"plan.yaml:4: devices.qn.betta: unknown key \(did you mean 'beta'\?\)", 4),
+    ("beta: 120", "betta: 120", r"plan.yaml:4: devices.qn.betta: unknown key \(did you mean 'beta'\? it is required and missing\)", 4),
     ("beta: 120, ", "", r"plan.yaml:4: devices.qn.beta: required key is missing", 4),
     ("current: 10uA", "current: 10V", r"plan.yaml:7: reference.current: '10V' has unit V, expected A", 7),
     ("current: 40uA", "current: -40uA", r"plan.yaml:16: loads.adc_bias.current: must be > 0", 16),
@@ -98,7 +98,7 @@ def test_several_errors_all_reported(write_plan) -> None:  # type: ignore[no-unt
     code, out = run_check(write_plan(text))
     assert code == 2
     errors = [l for l in out.splitlines() if l.startswith("error:")]
-    assert len(errors) >= 4  # missing beta, unknown betta, wrong unit, count
+    assert len(errors) >= 3  # betta for the required beta (one slip, one line), wrong unit, count
 
 
 def test_yaml_syntax_error(write_plan) -> None:  # type: ignore[no-untyped-def]
@@ -220,3 +220,12 @@ def test_json_is_a_flag_in_help() -> None:
     lines = [line for line in result.output.splitlines()
              if line.split()[:1] in (["--json"], ["--failing"])]
     assert len(lines) == 2 and not any("<bool>" in line or "--no-json" in line for line in lines), lines
+
+
+def test_misspelt_required_key_is_one_line(write_plan) -> None:  # type: ignore[no-untyped-def]
+    """A misspelling of a required key is one slip: one line at the misspelling, not a second
+    'required key is missing' for the key it was meant to be."""
+    code, out = run_check(write_plan(GOOD.replace("tolerance: 30%, voltage: 1.5V", "tolerence: 30%, voltage: 1.5V")))
+    errors = [line for line in out.splitlines() if line.startswith("error:")]
+    assert code == 2 and len(errors) == 1, out
+    assert "loads.adc_bias.tolerence: unknown key (did you mean 'tolerance'? it is required and missing)" in errors[0]

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import difflib
 import json
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Union, get_args, get_origin
@@ -451,8 +452,17 @@ def validate(doc: Document, model: Any = Plan) -> Any:
         problems = []
         seen = set()
         errors = exc.errors(include_url=False)
-        for err in errors:
-            loc, message = _describe(err, doc.data, model)
+        described = [_describe(err, doc.data, model) for err in errors]
+        # a misspelt required key is one slip: said once, at the misspelling
+        missing = {loc for loc, message in described if message == _MESSAGES["missing"]}
+        for k, (loc, message) in enumerate(described):
+            close = re.search(r"\(did you mean '(.+)'\?\)$", message) if loc else None
+            if close and loc[:-1] + (close.group(1),) in missing:
+                missing.discard(loc[:-1] + (close.group(1),))
+                described[k] = loc, f"unknown key (did you mean '{close.group(1)}'? it is required and missing)"
+                described = [(lc, m) if not (lc == loc[:-1] + (close.group(1),) and m == _MESSAGES["missing"])
+                             else ((), "") for lc, m in described]
+        for loc, message in described:
             if not message:
                 continue
             key = (loc, message)
