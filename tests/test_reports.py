@@ -290,6 +290,22 @@ def test_markdown_and_csv_cli(tmp_path) -> None:  # type: ignore[no-untyped-def]
     assert len(table.read_text().splitlines()) == 1 + 5
 
 
+@pytest.mark.graphviz
+def test_markdown_report_carries_diagram_plots_and_diff(tmp_path, dot) -> None:  # type: ignore[no-untyped-def]
+    """The Markdown review holds what the HTML one does: the tree diagram and the condition plots
+    as SVG files beside it (linked), and with --against the plan's changes and the loads they moved."""
+    md = tmp_path / "r.md"
+    result = runner.invoke(app, ["report", str(ROOT / "samples" / "die_spread.yaml"), "-o", str(md),
+                                 "--against", str(ROOT / "samples" / "cmos_soc.yaml")])
+    assert result.exit_code == 0, result.output
+    text = md.read_text()
+    links = re.findall(r"!\[[^]]*\]\((r_figures/[^)]+\.svg)\)", text)
+    assert links and links[0] == "r_figures/tree.svg" and len(links) == 3  # tree, temperature, supply
+    for link in links:
+        ET.fromstring((tmp_path / link).read_text())  # each is a whole SVG document
+    assert "## What changed" in text and "newly failing" in text and "| what | key | old | new |" in text
+
+
 # --- diff ------------------------------------------------------------------
 
 

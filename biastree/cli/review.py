@@ -74,7 +74,7 @@ def report(
     csv: Annotated[Optional[Path], typer.Option("--csv", help="also write the load table as CSV")] = None,
     diagram: Annotated[bool, typer.Option(help="embed the tree diagram (needs Graphviz)")] = True,
     against: Annotated[Optional[Path], typer.Option("--against", help="an older plan: add what changed and what it "
-                                                    "did to every load (HTML)")] = None,
+                                                    "did to every load")] = None,
 ) -> None:
     """Write a review report: inputs, verdicts, tree diagram, load table, why loads fail."""
     from biastree.files import write_atomic
@@ -84,7 +84,30 @@ def report(
     if kind == "md":
         from biastree.output.markdown import to_markdown
 
-        text = to_markdown(result, str(plan))
+        figures = []
+        folder = output.with_name(output.stem + "_figures")  # the SVGs a Markdown viewer shows beside the text
+        pictures = list(report_plots(result))
+        if diagram:
+            from biastree.output.dot import to_dot
+            from biastree.output.render import render
+
+            picture = to_dot(result)
+            for note in picture.notes:
+                typer.echo(f"note: diagram: {note}", err=True)
+            pictures.insert(0, ("The audited tree (colour: verdict; the node shows the deciding case).",
+                                render(picture.text, "svg", picture.nodes).decode("utf-8")))
+        for k, (caption, svg_text) in enumerate(pictures):
+            folder.mkdir(parents=True, exist_ok=True)
+            name = "tree.svg" if diagram and k == 0 else f"plot{k}.svg"
+            write_atomic(folder / name, svg_text)
+            figures.append((caption, f"{folder.name}/{name}"))
+        changes = None
+        if against is not None:
+            from biastree.analysis.diff import compare
+            from biastree.output.diff_table import to_diff_markdown
+
+            changes = to_diff_markdown(compare(biastree.check(load_tree(against)), result), str(against))
+        text = to_markdown(result, str(plan), figures, changes)
     else:
         from biastree.output.dot import to_dot
         from biastree.output.html import to_html

@@ -95,3 +95,22 @@ def to_diff_html(d: PlanDiff, old_name: str = "old plan") -> str:
                                             for k, x in enumerate(r)) + "</tr>")
         h.append("</tbody></table>")
     return "".join(h)
+
+
+def to_diff_markdown(d: PlanDiff, old_name: str = "old plan") -> list[str]:
+    """Markdown lines: the plan's changes and the loads they moved (for the Markdown review)."""
+    cell = lambda text: text.replace("|", "\\|")  # noqa: E731
+    out = [f"Compared with `{old_name}`: {len(d.changes)} change(s) in the plan, "
+           f"{sum(1 for c in d.loads if c.status != 'same')} of {len(d.loads)} loads changed"
+           + (f", **{len(d.regressions)} newly failing**" if d.regressions else "") + ".", ""]
+    if d.changes:
+        out += ["| what | key | old | new |", "|---|---|---|---|"]
+        out += [f"| {c.kind} | `{cell(c.path)}` | {cell(_value(c.old, c.path))} | {cell(_value(c.new, c.path))} |"
+                for c in d.changes]
+        out.append("")
+    rows = [_row(c) for c in changed_loads(d)]
+    if rows:
+        out += ["| " + " | ".join(HEAD) + " |", "|" + "|".join("--:" if 0 < k < 8 else "---" for k in range(len(HEAD))) + "|"]
+        out += ["| " + " | ".join(cell(x) for x in r) + " |" for r in rows]
+        out.append("")
+    return out

@@ -20,7 +20,10 @@ def _cell(text: str) -> str:
     return text.replace("|", "\\|")
 
 
-def to_markdown(result: Audit, source: str | None = None) -> str:
+def to_markdown(result: Audit, source: str | None = None, figures: list[tuple[str, str]] | None = None,
+                diff: list[str] | None = None) -> str:
+    """The review as Markdown; ``figures`` are (caption, image path) pairs written beside it
+    (the tree diagram and the plots, as SVG files), ``diff`` the lines of a comparison."""
     tree = result.tree
     plan = tree.plan
     s = result.summary()
@@ -50,6 +53,10 @@ def to_markdown(result: Audit, source: str | None = None) -> str:
     for name, dev in plan.devices.items():
         params = device_parameters(dev)
         out.append(f"| {_cell(name)} | {dev.kind} | {_cell(params)} |")
+    if diff:
+        out += ["", "## What changed", ""] + diff
+    for caption, path in figures or []:
+        out += ["", f"![figure: {path.rsplit('/', 1)[-1]}]({path})", "", f"_{_cell(caption)}_"]
     cols = visible(result)
     out += ["", "## Loads", "",
             "| " + " | ".join(_cell(c.title) for c in cols) + " |",
