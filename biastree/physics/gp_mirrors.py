@@ -38,39 +38,55 @@ def diode_current(v: Array, p: gp.GummelPoon) -> Array:
     return ic + ib
 
 
+def _diode_g(v: Array, p: gp.GummelPoon) -> tuple[Array, Array]:
+    """I_C + I_B of a diode-connected unit device at V_BE = ``v`` (collector on the base:
+    V_BC = 0) and its slope d/dv."""
+    ic, ib, (a, b, c, d) = gp.terminal_g(v, np.zeros_like(v), p)
+    return ic + ib, a + c  # V_BC stays 0 as v moves: only the V_BE conductances count
+
+
 def diode_voltage(current: Array, p: gp.GummelPoon) -> Array:
     """V_BE of a diode-connected unit device carrying ``current``."""
-    return gp.solve_increasing(lambda v: diode_current(v, p) - current, gp.vbe_guess(current, p))
+    def resid(v: Array) -> tuple[Array, Array]:
+        i, g = _diode_g(v, p)
+        return i - current, g
+
+    return gp.solve_increasing(resid, gp.vbe_guess(current, p), slope=True)
 
 
 def emitter_voltage_for(base: Array, collector: Array, emitter_current: Array, p: gp.GummelPoon) -> Array:
     """Emitter voltage of a unit device whose base and collector sit at ``base`` and
     ``collector`` and whose emitter carries ``emitter_current`` (an emitter follower)."""
-    def resid(ve: Array) -> Array:
-        ic, ib = gp.terminal(base - ve, base - collector, p)
-        return emitter_current - (ic + ib)  # falls as V_E rises: negate for an increasing residual
+    def resid(ve: Array) -> tuple[Array, Array]:
+        ic, ib, (a, _, c, _) = gp.terminal_g(base - ve, base - collector, p)
+        # falls as V_E rises: negated for an increasing residual (dV_BE/dV_E = −1)
+        return emitter_current - (ic + ib), a + c
 
     start = base - gp.vbe_guess(emitter_current, p)
-    return gp.solve_increasing(resid, start)
+    return gp.solve_increasing(resid, start, slope=True)
 
 
 def simple(g: Any, p: gp.GummelPoon) -> Solution:
     """Simple mirror: diode-connected input (A0 units), outputs of m_k·A0 units on its base line.
 
-    KCL at the input node:  I_in = A0·(I_C1 + I_B1)(V) + Σ_k count_k·m_k·A0·I_B,k(V, V − d_k).
+    KCL at the input node:  I_in = A0·(I_C1 + I_B1)(V) + Σ_k count_k·m_k·A0·I_B,k(V, V − d_k),
+    solved for V by Newton's method with the analytic slope (the outputs' base currents
+    move with V through both of their junctions, V_BE = V and V_BC = V − d_k).
     """
     r = g.row
     a0 = g.dev.size_in
     out_p = _rows(p, r, g.is_scale)
     units = g.ratio * a0[r]
 
-    def resid(v: Array) -> Array:
+    def resid(v: Array) -> tuple[Array, Array]:
         vb = v[r]
-        _, ib = gp.terminal(vb, vb - g.distance, out_p)
-        return a0 * diode_current(v, p) + g.segment_sum(units * ib) - g.i_in
+        _, ib, (_, _, gbe, gbc) = gp.terminal_g(vb, vb - g.distance, out_p)
+        i_d, g_d = _diode_g(v, p)
+        return (a0 * i_d + g.segment_sum(units * ib) - g.i_in,
+                a0 * g_d + g.segment_sum(units * (gbe + gbc)))
 
     start = gp.vbe_guess(g.i_in / a0, p)
-    v = gp.solve_increasing(resid, start)
+    v = gp.solve_increasing(resid, start, slope=True)
     ic, _ = gp.terminal(v[r], v[r] - g.distance, out_p)
     current = units * ic
     return v, current, np.broadcast_to(v[r], current.shape).copy(), np.zeros_like(g.i_in)
