@@ -118,12 +118,17 @@ class GummelPoon:
         return self.flags["res"]
 
     @functools.cached_property
+    def n_vt(self) -> dict[str, Array]:
+        """N·V_T of the four junction diodes (F, R, E, C), formed once."""
+        return {"f": self.nf * self.vt, "r": self.nr * self.vt, "e": self.ne * self.vt, "c": self.nc * self.vt}
+
+    @functools.cached_property
     def flags(self) -> dict[str, bool]:
         """Which optional terms any row uses (looked up once, not at every evaluation)."""
         rb = bool(np.any(self.rb) or np.any(self.rbm))
         return {"ise": bool(np.any(self.ise)), "isc": bool(np.any(self.isc)),
                 "q2": bool(np.any(self.inv_ikf) or np.any(self.inv_ikr)), "rb": rb,
-                "irb": bool(np.any(self.irb > 0)),
+                "irb": bool(np.any(self.irb > 0)), "gmin": bool(np.any(self.gmin)),
                 "res": rb or bool(np.any(self.re) or np.any(self.rc))}
 
 
@@ -227,14 +232,14 @@ def _diode_g(v: Array, sat: Array, n_vt: Array) -> tuple[Array, Array]:
     I = −sat·(1 + a), a = (3nV_T/(v·e))³, g = 3·sat·a/v)."""
     x = v / n_vt
     with np.errstate(over="ignore"):
-        ex = np.exp(x)
+        em1 = np.expm1(x)
     if np.all(x >= -3.0):  # the usual case: no junction reverse-biased beyond 3·nV_T
-        return sat * np.expm1(x), sat * ex / n_vt
+        return sat * em1, sat * (em1 + 1.0) / n_vt
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
         a = (3.0 / (x * math.e)) ** 3
         fwd = x >= -3.0
-        return (np.where(fwd, sat * np.expm1(x), -sat * (1.0 + a)),
-                np.where(fwd, sat * ex / n_vt, 3.0 * sat * a / v))
+        return (np.where(fwd, sat * em1, -sat * (1.0 + a)),
+                np.where(fwd, sat * (em1 + 1.0) / n_vt, 3.0 * sat * a / v))
 
 
 def _junctions(vbe: Array, vbc: Array, p: GummelPoon) -> tuple[Array, Array, Array, Array]:
@@ -247,15 +252,19 @@ def _junctions_g(vbe: Array, vbc: Array, p: GummelPoon) -> tuple[Array, ...]:
     """(I_C, I_B, q_b, I_BE) of the intrinsic device and the partial derivatives
     (∂I_C/∂V_BE, ∂I_C/∂V_BC, ∂I_B/∂V_BE, ∂I_B/∂V_BC, ∂q_b/∂V_BE, ∂q_b/∂V_BC), analytic
     as ngspice's ``bjtload.c`` computes them."""
-    cbe, gbe = _diode_g(vbe, p.is_be, p.nf * p.vt)
-    cbc, gbc = _diode_g(vbc, p.is_bc, p.nr * p.vt)
-    cben, gben = p.gmin * vbe, p.gmin
-    cbcn, gbcn = p.gmin * vbc, p.gmin
+    nvt = p.n_vt
+    cbe, gbe = _diode_g(vbe, p.is_be, nvt["f"])
+    cbc, gbc = _diode_g(vbc, p.is_bc, nvt["r"])
+    if p.flags["gmin"]:
+        cben, gben = p.gmin * vbe, p.gmin
+        cbcn, gbcn = p.gmin * vbc, p.gmin
+    else:
+        cben = cbcn = gben = gbcn = 0.0
     if p.flags["ise"]:
-        i, g = _diode_g(vbe, p.ise, p.ne * p.vt)
+        i, g = _diode_g(vbe, p.ise, nvt["e"])
         cben, gben = cben + i, gben + g
     if p.flags["isc"]:
-        i, g = _diode_g(vbc, p.isc, p.nc * p.vt)
+        i, g = _diode_g(vbc, p.isc, nvt["c"])
         cbcn, gbcn = cbcn + i, gbcn + g
     # q_b = q_1·(1 + (1 + 4q_2)^NKF)/2
     q1 = 1.0 / (1.0 - p.inv_vaf * vbc - p.inv_var * vbe)
@@ -384,6 +393,46 @@ def terminal_g(vbe: Array, vbc: Array, p: GummelPoon, tol: float = 1e-13) -> tup
     cond = (gic_be * inv[0] + gic_bc * inv[2], gic_be * inv[1] + gic_bc * inv[3],
             gib_be * inv[0] + gib_bc * inv[2], gib_be * inv[1] + gib_bc * inv[3])
     return ic, ib, cond
+
+
+@dataclass
+class Linear:
+    """One device linearised at its internal junction voltages (x = V_B'E', y = V_B'C'):
+    currents, the residual f = terminal voltages implied − terminal voltages applied,
+    J⁻¹ (internal ← terminal) and the terminal conductances G = G_int·J⁻¹."""
+
+    ic: Array
+    ib: Array
+    f1: Array
+    f2: Array
+    inv: tuple[Array, Array, Array, Array]
+    g: tuple[Array, Array, Array, Array]  # ∂I_C/∂V_BE, ∂I_C/∂V_BC, ∂I_B/∂V_BE, ∂I_B/∂V_BC
+
+    def delta(self, dvbe: Array, dvbc: Array) -> tuple[Array, Array]:
+        """Newton step of the internal voltages when the terminals move by (dvbe, dvbc)."""
+        r1, r2 = dvbe - self.f1, dvbc - self.f2
+        i11, i12, i21, i22 = self.inv
+        return i11 * r1 + i12 * r2, i21 * r1 + i22 * r2
+
+    def currents_at(self, dvbe: Array | float, dvbc: Array | float) -> tuple[Array, Array]:
+        """(I_C, I_B) to first order after that step: I + G·(dV − f)."""
+        r1, r2 = dvbe - self.f1, dvbc - self.f2
+        a, b, c, d = self.g
+        return self.ic + a * r1 + b * r2, self.ib + c * r1 + d * r2
+
+
+def linearise(x: Array, y: Array, vbe: Array, vbc: Array, p: GummelPoon) -> Linear:
+    """The device at internal voltages (x, y) against terminal voltages (vbe, vbc): one
+    evaluation of the model, for a joint Newton step of a circuit's nodes and every
+    device's internal nodes together."""
+    if not p.flags["res"]:
+        ic, ib, _, _, a, b, c, d, _, _ = _junctions_g(x, y, p)
+        return Linear(ic, ib, x - vbe, y - vbc, (1.0, 0.0, 0.0, 1.0), (a, b, c, d))  # type: ignore[arg-type]
+    f1, f2, ic, ib, (j11, j12, j21, j22), (a, b, c, d) = _terminal_residual(x, y, vbe, vbc, p)
+    det = j11 * j22 - j12 * j21
+    inv = (j22 / det, -j12 / det, -j21 / det, j11 / det)
+    g = (a * inv[0] + b * inv[2], a * inv[1] + b * inv[3], c * inv[0] + d * inv[2], c * inv[1] + d * inv[3])
+    return Linear(ic, ib, f1, f2, inv, g)
 
 
 def vbe_guess(current: Array, p: GummelPoon) -> Array:
