@@ -217,25 +217,33 @@ def _simple_card(dev: BjtModel) -> dict[str, float]:
 
 def bipolar_cards(tree: Tree, cols: Columns, sh: dict[str, Array]) -> gp.GummelPoon | None:
     """Full Gummel–Poon parameters of every bipolar mirror, (n_mirrors, C), when the plan
-    has any bipolar card (simple models then join as the cards they stand for); else None."""
+    has any bipolar card (simple models then join as the cards they stand for); else None.
+    Each device model is evaluated once for all its columns (once per corner section present),
+    and its mirrors share that one parameter set."""
     plan = tree.plan
     if not any(isinstance(d, CardModel) and d.is_bipolar for d in plan.devices.values()):
         return None
-    rows = []
-    nan = gp.from_card({}, cols.temperature[None, :] * 0 + 300.15)
-    for name in tree.mirrors:
-        dev = plan.devices[plan.mirrors[name].device]
-        if isinstance(dev, CardModel) and dev.is_bipolar:
-            # one parameter set per column: its temperature and its corner's library section
-            per_col = []
-            for j, corner in enumerate(cols.corner):
-                per_col.append(model_cards.gummel_poon(dev, corner, cols.temperature[j:j + 1][None, :]))
-            rows.append(gp.concat_columns(per_col))
-        elif isinstance(dev, BjtModel):
-            rows.append(gp.from_card(_simple_card(dev), cols.temperature[None, :], gmin=0.0))
-        else:
-            rows.append(nan)
-    p = gp.stack(rows)
+    t = cols.temperature[None, :]
+    corners = sorted(set(cols.corner))
+    sets: list[gp.GummelPoon] = [gp.from_card({}, t * 0 + 300.15)]  # row 0: not bipolar (never read)
+    index: dict[str, int] = {}
+    which = np.zeros(len(tree.mirrors), dtype=np.int64)
+    for i, name in enumerate(tree.mirrors):
+        device = plan.mirrors[name].device
+        if device not in index:
+            dev = plan.devices[device]
+            if isinstance(dev, CardModel) and dev.is_bipolar:
+                # one parameter set per corner's library section, at that corner's columns' temperatures
+                by_corner = {c: model_cards.gummel_poon(dev, c, t) for c in corners}
+                picks = [by_corner[c].take((slice(None), slice(j, j + 1))) for j, c in enumerate(cols.corner)]
+                sets.append(by_corner[corners[0]] if len(corners) == 1 else gp.concat_columns(picks))
+            elif isinstance(dev, BjtModel):
+                sets.append(gp.from_card(_simple_card(dev), t, gmin=0.0))
+            else:
+                sets.append(sets[0])
+            index[device] = len(sets) - 1
+        which[i] = index[device]
+    p = gp.stack(sets).take(which)
     # the plan's own corner shifts apply on top of the cards
     return replace(p, is_be=p.is_be * (1.0 + sh["is"]), is_bc=p.is_bc * (1.0 + sh["is"]),
                     bf=p.bf * (1.0 + sh["beta"]), inv_vaf=p.inv_vaf / (1.0 + sh["early"]))

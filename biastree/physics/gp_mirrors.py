@@ -38,58 +38,129 @@ def diode_current(v: Array, p: gp.GummelPoon) -> Array:
     return ic + ib
 
 
+def _diode_g(v: Array, p: gp.GummelPoon) -> tuple[Array, Array]:
+    """I_C + I_B of a diode-connected unit device at V_BE = ``v`` (collector on the base:
+    V_BC = 0) and its slope d/dv."""
+    ic, ib, (a, b, c, d) = gp.terminal_g(v, np.zeros_like(v), p)
+    return ic + ib, a + c  # V_BC stays 0 as v moves: only the V_BE conductances count
+
+
 def diode_voltage(current: Array, p: gp.GummelPoon) -> Array:
     """V_BE of a diode-connected unit device carrying ``current``."""
-    return gp.solve_increasing(lambda v: diode_current(v, p) - current, gp.vbe_guess(current, p))
+    def resid(v: Array) -> tuple[Array, Array]:
+        i, g = _diode_g(v, p)
+        return i - current, g
+
+    return gp.solve_increasing(resid, gp.vbe_guess(current, p), slope=True)
 
 
 def emitter_voltage_for(base: Array, collector: Array, emitter_current: Array, p: gp.GummelPoon) -> Array:
     """Emitter voltage of a unit device whose base and collector sit at ``base`` and
     ``collector`` and whose emitter carries ``emitter_current`` (an emitter follower)."""
-    def resid(ve: Array) -> Array:
-        ic, ib = gp.terminal(base - ve, base - collector, p)
-        return emitter_current - (ic + ib)  # falls as V_E rises: negate for an increasing residual
+    def resid(ve: Array) -> tuple[Array, Array]:
+        ic, ib, (a, _, c, _) = gp.terminal_g(base - ve, base - collector, p)
+        # falls as V_E rises: negated for an increasing residual (dV_BE/dV_E = −1)
+        return emitter_current - (ic + ib), a + c
 
     start = base - gp.vbe_guess(emitter_current, p)
-    return gp.solve_increasing(resid, start)
+    return gp.solve_increasing(resid, start, slope=True)
 
 
 def simple(g: Any, p: gp.GummelPoon) -> Solution:
     """Simple mirror: diode-connected input (A0 units), outputs of m_k·A0 units on its base line.
 
     KCL at the input node:  I_in = A0·(I_C1 + I_B1)(V) + Σ_k count_k·m_k·A0·I_B,k(V, V − d_k).
+    V and every device's two internal junction voltages are solved together by one Newton
+    iteration (``_simple_joint``); where that does not settle, V alone by a bracketed Newton
+    iteration with each device's internal nodes solved inside it (``_simple_nested``).
     """
     r = g.row
     a0 = g.dev.size_in
     out_p = _rows(p, r, g.is_scale)
     units = g.ratio * a0[r]
-
-    def resid(v: Array) -> Array:
-        vb = v[r]
-        _, ib = gp.terminal(vb, vb - g.distance, out_p)
-        return a0 * diode_current(v, p) + g.segment_sum(units * ib) - g.i_in
-
-    start = gp.vbe_guess(g.i_in / a0, p)
-    v = gp.solve_increasing(resid, start)
-    ic, _ = gp.terminal(v[r], v[r] - g.distance, out_p)
-    current = units * ic
+    v, current = _simple_joint(g, p, out_p, units)
+    if v is None:
+        v = _simple_nested(g, p, out_p, units)
+        ic, _ = gp.terminal(v[r], v[r] - g.distance, out_p)
+        current = units * ic
     return v, current, np.broadcast_to(v[r], current.shape).copy(), np.zeros_like(g.i_in)
 
 
-def newton_system(residual, x0: Array, tol: float = 1e-13, iters: int = 100) -> Array:  # type: ignore[no-untyped-def]
+def _simple_joint(g: Any, p: gp.GummelPoon, out_p: gp.GummelPoon, units: Array,
+                  iters: int = 60) -> tuple[Array | None, Array]:
+    """Newton's method on (V, internal nodes of the input device, internal nodes of every
+    output) at once.  Each device's internal equations are linear in its own step once
+    linearised, so they are eliminated device by device (2×2, ``gp.Linear``) and what
+    remains is one scalar equation per mirror and column for δV:
+
+        R + Σ ∂I/∂(terminals)·(e·δV − f) = 0,  e = (1, 0) for the diode, (1, 1) for an output.
+
+    Steps are limited to 0.1 V as SPICE limits junction voltages.  Returns (None, …) when
+    it has not converged (the caller then uses the nested iteration)."""
+    r, a0, d = g.row, g.dev.size_in, g.distance
+    v = gp.vbe_guess(g.i_in / a0, p)
+    zero = np.zeros_like(v)
+    x0, y0 = v.copy(), zero.copy()
+    xk = np.broadcast_to(v[r], d.shape).copy()
+    yk = xk - d
+    for _ in range(iters):
+        vb = v[r]
+        lin_in = gp.linearise(x0, y0, v, zero, p)
+        lin_out = gp.linearise(xk, yk, vb, vb - d, out_p)
+        a, b, c, e = lin_in.g
+        ga, gb, gc, gd = lin_out.g
+        resid = (a0 * (lin_in.ic + lin_in.ib) + g.segment_sum(units * lin_out.ib) - g.i_in
+                 - a0 * ((a + c) * lin_in.f1 + (b + e) * lin_in.f2)
+                 - g.segment_sum(units * (gc * lin_out.f1 + gd * lin_out.f2)))
+        slope = a0 * (a + c) + g.segment_sum(units * (gc + gd))
+        dv = np.clip(-resid / slope, -0.1, 0.1)
+        dx0, dy0 = lin_in.delta(dv, 0.0 * dv)
+        dxk, dyk = lin_out.delta(dv[r], dv[r])
+        steps = [np.clip(s_, -0.1, 0.1) for s_ in (dx0, dy0, dxk, dyk)]
+        v = v + dv
+        x0, y0, xk, yk = x0 + steps[0], y0 + steps[1], xk + steps[2], yk + steps[3]
+        if not np.all(np.isfinite(dv)):
+            break
+        if (np.all(np.abs(dv) <= 1e-14 * np.maximum(1.0, np.abs(v)))
+                and max(float(np.max(np.abs(s_), initial=0.0)) for s_ in steps) <= 1e-13):
+            ic, _ = gp.intrinsic(xk, yk, out_p)
+            return v, units * ic
+    return None, zero
+
+
+def _simple_nested(g: Any, p: gp.GummelPoon, out_p: gp.GummelPoon, units: Array) -> Array:
+    r = g.row
+    a0 = g.dev.size_in
+
+    def resid(v: Array) -> tuple[Array, Array]:
+        vb = v[r]
+        _, ib, (_, _, gbe, gbc) = gp.terminal_g(vb, vb - g.distance, out_p)
+        i_d, g_d = _diode_g(v, p)
+        return (a0 * i_d + g.segment_sum(units * ib) - g.i_in,
+                a0 * g_d + g.segment_sum(units * (gbe + gbc)))
+
+    return gp.solve_increasing(resid, gp.vbe_guess(g.i_in / a0, p), slope=True)
+
+
+def newton_system(residual, x0: Array, tol: float = 1e-13, iters: int = 100,  # type: ignore[no-untyped-def]
+                  jacobian: bool = False) -> Array:
     """Solve residual(x) = 0 for x of shape (..., n), every leading index its own small
-    system: Newton's method with a finite-difference Jacobian and steps limited to
-    0.1 V, as SPICE limits junction voltages."""
+    system: Newton's method with steps limited to 0.1 V, as SPICE limits junction
+    voltages.  With ``jacobian``, ``residual`` returns (f, ∂f/∂x) with ∂f_i/∂x_j at
+    [..., i, j]; otherwise the Jacobian is a finite difference."""
     x = np.array(x0, dtype=float)
     n = x.shape[-1]
     h = 1e-8
     for _ in range(iters):
-        f = residual(x)
-        jac = np.empty(x.shape + (n,))
-        for j in range(n):
-            xp = x.copy()
-            xp[..., j] += h
-            jac[..., :, j] = (residual(xp) - f) / h
+        if jacobian:
+            f, jac = residual(x)
+        else:
+            f = residual(x)
+            jac = np.empty(x.shape + (n,))
+            for j in range(n):
+                xp = x.copy()
+                xp[..., j] += h
+                jac[..., :, j] = (residual(xp) - f) / h
         step = np.linalg.solve(jac, f[..., None])[..., 0]
         step = np.clip(step, -0.1, 0.1)
         x = x - step
@@ -103,11 +174,39 @@ def _current(base: Array, collector: Array, emitter: Array, p: gp.GummelPoon) ->
     return gp.terminal(base - emitter, base - collector, p)
 
 
+
+def _device(x: Array, base: Any, collector: Any, emitter: Any, p: gp.GummelPoon,
+            rows: Array | None = None) -> tuple[Array, Array, Array, Array]:
+    """(I_C, I_B) of a unit device and their gradients with respect to the unknowns x
+    (last axis), each terminal an unknown's index or a fixed voltage; ``rows`` picks the
+    mirror of each branch.  V_BE = B − E and V_BC = B − C, so ∂/∂B = g_be + g_bc,
+    ∂/∂C = −g_bc, ∂/∂E = −g_be (the terminal conductances of ``gp.terminal_g``)."""
+    xs = x if rows is None else x[rows]
+    val = lambda node: xs[..., node] if isinstance(node, int) else node  # noqa: E731
+    vb, vc, ve = val(base), val(collector), val(emitter)
+    ic, ib, (a, b, c, d) = gp.terminal_g(vb - ve, vb - vc, p)
+    dic = np.zeros(ic.shape + (x.shape[-1],))
+    dib = np.zeros_like(dic)
+    for node, w_be, w_bc in ((base, 1.0, 1.0), (collector, 0.0, -1.0), (emitter, -1.0, 0.0)):
+        if isinstance(node, int):
+            dic[..., node] += w_be * a + w_bc * b
+            dib[..., node] += w_be * c + w_bc * d
+    return ic, ib, dic, dib
+
+
+def _sum_branches(g: Any, per_branch: Array) -> Array:
+    """Σ over each mirror's branches (count copies) of an array with a trailing gradient axis."""
+    out = np.zeros((g.i_in.shape[0],) + per_branch.shape[1:])
+    np.add.at(out, g.row, per_branch * g.count[..., None])
+    return out
+
+
 def beta_helper(g: Any, p: gp.GummelPoon) -> Solution:
     """β-helper mirror: Q1 (A0) collector at the input node N, base on the base line B;
     helper QB (helper_size units) base at N, emitter on B, collector on the opposite rail;
     outputs (m_k·A0) on B; an optional bleed current from B to the rail.
-    Unknowns V_B, V_N:  KCL at N: I_in = A0·I_C1 + I_B,QB;  at B: I_E,QB = A0·I_B1 + Σ I_B,k + I_bleed."""
+    Unknowns V_B, V_N:  KCL at N: I_in = A0·I_C1 + I_B,QB;  at B: I_E,QB = A0·I_B1 + Σ I_B,k + I_bleed
+    (Newton's method with the analytic Jacobian)."""
     r = g.row
     a0 = g.dev.size_in
     hs = g.params["helper_size"]
@@ -115,19 +214,22 @@ def beta_helper(g: Any, p: gp.GummelPoon) -> Solution:
     out_p = _rows(p, r, g.is_scale)
     units = g.ratio * a0[r]
     top = np.broadcast_to(g.supply, g.i_in.shape)
+    zero = np.zeros_like(g.i_in)
+    B, N = 0, 1  # noqa: N806 (node names)
 
-    def resid(x: Array) -> Array:
-        vb, vn = x[..., 0], x[..., 1]
-        ic1, ib1 = _current(vb, vn, 0.0 * vb, p)
-        ich, ibh = _current(vn, top, vb, p)
-        _, ibk = _current(vb[r], g.distance, 0.0 * g.distance, out_p)
+    def resid(x: Array) -> tuple[Array, Array]:
+        ic1, ib1, dic1, dib1 = _device(x, B, N, zero, p)
+        ich, ibh, dich, dibh = _device(x, N, top, B, p)
+        _, ibk, _, dibk = _device(x, B, g.distance, 0.0 * g.distance, out_p, rows=r)
         f_n = a0 * ic1 + hs * ibh - g.i_in
         f_b = hs * (ich + ibh) - a0 * ib1 - g.segment_sum(units * ibk) - bleed
-        return np.stack([f_n, f_b], axis=-1)
+        j_n = a0[..., None] * dic1 + hs[..., None] * dibh
+        j_b = hs[..., None] * (dich + dibh) - a0[..., None] * dib1 - _sum_branches(g, units[..., None] * dibk)
+        return np.stack([f_n, f_b], axis=-1), np.stack([j_n, j_b], axis=-2)
 
     vb0 = gp.vbe_guess(g.i_in / a0, p)
     vn0 = vb0 + gp.vbe_guess(np.maximum(g.i_in / a0 * 0.05 + bleed / hs, 1e-12), p)
-    x = newton_system(resid, np.stack([vb0, vn0], axis=-1))
+    x = newton_system(resid, np.stack([vb0, vn0], axis=-1), jacobian=True)
     vb, vn = x[..., 0], x[..., 1]
     ic, _ = _current(vb[r], g.distance, 0.0 * g.distance, out_p)
     ich, _ = _current(vn, top, vb, p)
@@ -139,32 +241,37 @@ def wilson(g: Any, p: gp.GummelPoon, four: bool = False) -> Solution:
     """Wilson mirror (one output, ratio m): Q1 (A0) collector at N (three devices) or at X
     under the diode Q4 (A0) from N (four devices), base on B; Q2 (m·A0) diode on B (it
     carries the pair's mismatch); Q3 (m·A0) base at N, emitter on B, collector the output.
-    Unknowns V_B, V_N (and V_X): KCL at N, at B (I_E3 = I_C2 + I_B2 + I_B1) and at X."""
+    Unknowns V_B, V_N (and V_X): KCL at N, at B (I_E3 = I_C2 + I_B2 + I_B1) and at X
+    (Newton's method with the analytic Jacobian)."""
     a0 = g.dev.size_in
     m = g.ratio
     d = g.distance
     q2 = p if g.is_scale is None else p.with_is_scale(g.is_scale)
     zero = np.zeros_like(g.i_in)
+    B, N, X = 0, 1, (2 if four else 1)  # noqa: N806 (node names; the three-device X is N)
 
-    def resid(x: Array) -> Array:
-        vb, vn = x[..., 0], x[..., 1]
-        vx = x[..., 2] if four else vn
-        ic1, ib1 = _current(vb, vx, zero, p)
-        ic2, ib2 = _current(vb, vb, zero, q2)
-        ic3, ib3 = _current(vn, d, vb, p)
+    def resid(x: Array) -> tuple[Array, Array]:
+        ic1, ib1, dic1, dib1 = _device(x, B, X, zero, p)
+        ic2, ib2, dic2, dib2 = _device(x, B, B, zero, q2)
+        ic3, ib3, dic3, dib3 = _device(x, N, d, B, p)
+        ma, a = (m * a0)[..., None], a0[..., None]
         f_b = m * a0 * (ic3 + ib3) - m * a0 * (ic2 + ib2) - a0 * ib1
+        j_b = ma * (dic3 + dib3) - ma * (dic2 + dib2) - a * dib1
         if four:
-            ic4, ib4 = _current(vn, vn, vx, p)
+            ic4, ib4, dic4, dib4 = _device(x, N, N, X, p)
             f_n = a0 * (ic4 + ib4) + m * a0 * ib3 - g.i_in
             f_x = a0 * ic1 - a0 * (ic4 + ib4)
-            return np.stack([f_b, f_n, f_x], axis=-1)
+            j_n = a * (dic4 + dib4) + ma * dib3
+            j_x = a * dic1 - a * (dic4 + dib4)
+            return np.stack([f_b, f_n, f_x], axis=-1), np.stack([j_b, j_n, j_x], axis=-2)
         f_n = a0 * ic1 + m * a0 * ib3 - g.i_in
-        return np.stack([f_b, f_n], axis=-1)
+        j_n = a * dic1 + ma * dib3
+        return np.stack([f_b, f_n], axis=-1), np.stack([j_b, j_n], axis=-2)
 
     vb0 = gp.vbe_guess(g.i_in / a0, p) - p.nf * p.vt * np.log(np.maximum(m, 1e-9))
     vn0 = vb0 + gp.vbe_guess(g.i_in / a0, p)
     start = [vb0, vn0] + ([vn0 - gp.vbe_guess(g.i_in / a0, p)] if four else [])
-    x = newton_system(resid, np.stack(start, axis=-1))
+    x = newton_system(resid, np.stack(start, axis=-1), jacobian=True)
     vb, vn = x[..., 0], x[..., 1]
     ic3, _ = _current(vn, d, vb, p)
     current = m * a0 * ic3
@@ -175,44 +282,58 @@ def cascode(g: Any, p: gp.GummelPoon) -> Solution:
     """Cascode mirror: Q1 (A0) diode on B, Q3 (A0) diode from N down to B; per output a
     mirror device Q2_k (m_k·A0, base B, collector X_k) under a cascode device Q4_k
     (m_k·A0, base N, emitter X_k, collector the output).  For given V_B, V_N each X_k
-    solves I_C2 = I_E4 (inner Newton); V_B, V_N solve KCL at B and at N (outer Newton)."""
+    solves I_C2 = I_E4 (inner Newton, analytic slope); V_B, V_N solve KCL at B and at N
+    (outer Newton, analytic Jacobian: X_k's dependence on V_B, V_N by the implicit-function
+    theorem, ∂X/∂V = −(∂h/∂V)/(∂h/∂X) with h = I_C2 − I_E4)."""
     r = g.row
     a0 = g.dev.size_in
     out_p = _rows(p, r, g.is_scale)
+    p_r = p.take(r)
     units = g.ratio * a0[r]
     d = g.distance
     zero = np.zeros_like(g.i_in)
-    state = {"x": None}
+    state: dict[str, Array | None] = {"x": None}
+    B, N, X = 0, 1, 2  # noqa: N806 (node names; X is a per-branch unknown)
+
+    def branch_devices(vb: Array, vn: Array, vx: Array) -> tuple[Array, ...]:
+        y = np.stack([vb[r], vn[r], vx], axis=-1)
+        ic2, ib2, dic2, dib2 = _device(y, B, X, 0.0 * vx, out_p)
+        ic4, ib4, dic4, dib4 = _device(y, N, d, X, p_r)
+        return ic2, ib2, dic2, dib2, ic4, ib4, dic4, dib4
 
     def middle(vb: Array, vn: Array) -> Array:
-        def f(x: Array) -> Array:
-            vx = x[..., 0]
-            ic2, _ = _current(vb[r], vx, 0.0 * vx, out_p)
-            ic4, ib4 = _current(vn[r], d, vx, p.take(r))
-            return (ic2 - (ic4 + ib4))[..., None]
+        def f(x: Array) -> tuple[Array, Array]:
+            ic2, _, dic2, _, ic4, ib4, dic4, dib4 = branch_devices(vb, vn, x[..., 0])
+            return (ic2 - (ic4 + ib4))[..., None], (dic2 - dic4 - dib4)[..., X][..., None, None]
 
-        start = state["x"] if state["x"] is not None and state["x"].shape == d.shape + (1,) else \
-            (0.5 * (vb[r] + 0.0 * d))[..., None]
-        vx = newton_system(f, start)
+        old = state["x"]
+        start = old if old is not None and old.shape == d.shape + (1,) else (0.5 * (vb[r] + 0.0 * d))[..., None]
+        vx = newton_system(f, start, jacobian=True)
         state["x"] = vx
         return vx[..., 0]
 
-    def resid(x: Array) -> Array:
+    def resid(x: Array) -> tuple[Array, Array]:
         vb, vn = x[..., 0], x[..., 1]
         vx = middle(vb, vn)
-        ic1, ib1 = _current(vb, vb, zero, p)
-        ic3, ib3 = _current(vn, vn, vb, p)
-        _, ib2 = _current(vb[r], vx, 0.0 * vx, out_p)
-        _, ib4 = _current(vn[r], d, vx, p.take(r))
+        ic2, ib2, dic2, dib2, ic4, ib4, dic4, dib4 = branch_devices(vb, vn, vx)
+        dh = dic2 - dic4 - dib4  # h = I_C2 − I_E4 = 0 along the solution
+        dx_dv = -dh[..., :2] / dh[..., X:X + 1]  # (∂X/∂V_B, ∂X/∂V_N)
+        # total derivatives of the branch currents with respect to (V_B, V_N)
+        tot = lambda grad: grad[..., :2] + grad[..., X:X + 1] * dx_dv  # noqa: E731
+        ic1, ib1, dic1, dib1 = _device(x, B, B, zero, p)
+        ic3, ib3, dic3, dib3 = _device(x, N, N, B, p)
+        a = a0[..., None]
         f_b = a0 * (ic3 + ib3) - a0 * (ic1 + ib1) - g.segment_sum(units * ib2)
         f_n = a0 * (ic3 + ib3) + g.segment_sum(units * ib4) - g.i_in
-        return np.stack([f_b, f_n], axis=-1)
+        j_b = a * (dic3 + dib3) - a * (dic1 + dib1) - _sum_branches(g, units[..., None] * tot(dib2))
+        j_n = a * (dic3 + dib3) + _sum_branches(g, units[..., None] * tot(dib4))
+        return np.stack([f_b, f_n], axis=-1), np.stack([j_b, j_n], axis=-2)
 
     vb0 = gp.vbe_guess(g.i_in / a0, p)
-    x = newton_system(resid, np.stack([vb0, 2.0 * vb0], axis=-1))
+    x = newton_system(resid, np.stack([vb0, 2.0 * vb0], axis=-1), jacobian=True)
     vb, vn = x[..., 0], x[..., 1]
     vx = middle(vb, vn)
-    ic4, _ = _current(vn[r], d, vx, p.take(r))
+    ic4, _ = _current(vn[r], d, vx, p_r)
     current = units * ic4
     return vn, current, np.broadcast_to(vn[r], current.shape).copy(), zero
 

@@ -30,6 +30,7 @@ the same equations with every voltage and current reversed.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, fields, replace
 from typing import Mapping
@@ -114,7 +115,21 @@ class GummelPoon:
 
     @property
     def has_resistance(self) -> bool:
-        return bool(np.any(self.rb) or np.any(self.rbm) or np.any(self.re) or np.any(self.rc))
+        return self.flags["res"]
+
+    @functools.cached_property
+    def n_vt(self) -> dict[str, Array]:
+        """N·V_T of the four junction diodes (F, R, E, C), formed once."""
+        return {"f": self.nf * self.vt, "r": self.nr * self.vt, "e": self.ne * self.vt, "c": self.nc * self.vt}
+
+    @functools.cached_property
+    def flags(self) -> dict[str, bool]:
+        """Which optional terms any row uses (looked up once, not at every evaluation)."""
+        rb = bool(np.any(self.rb) or np.any(self.rbm))
+        return {"ise": bool(np.any(self.ise)), "isc": bool(np.any(self.isc)),
+                "q2": bool(np.any(self.inv_ikf) or np.any(self.inv_ikr)), "rb": rb,
+                "irb": bool(np.any(self.irb > 0)), "gmin": bool(np.any(self.gmin)),
+                "res": rb or bool(np.any(self.re) or np.any(self.rc))}
 
 
 def stack(cards: list[GummelPoon]) -> GummelPoon:
@@ -209,28 +224,72 @@ def from_card(values: Mapping[str, float], kelvin: float | Array, gmin: float = 
 
 def _diode(v: Array, sat: Array, n_vt: Array) -> Array:
     """sat·(e^(v/nV_T) − 1), continued below −3·nV_T by SPICE's cubic form."""
+    return _diode_g(v, sat, n_vt)[0]
+
+
+def _diode_g(v: Array, sat: Array, n_vt: Array) -> tuple[Array, Array]:
+    """The diode current and its conductance d/dv (ngspice ``bjtload.c``: below −3·nV_T,
+    I = −sat·(1 + a), a = (3nV_T/(v·e))³, g = 3·sat·a/v)."""
     x = v / n_vt
+    with np.errstate(over="ignore"):
+        em1 = np.expm1(x)
     if np.all(x >= -3.0):  # the usual case: no junction reverse-biased beyond 3·nV_T
-        return sat * np.expm1(x)
+        return sat * em1, sat * (em1 + 1.0) / n_vt
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-        reverse = -sat * (1.0 + (3.0 / (x * math.e)) ** 3)
-        return np.where(x >= -3.0, sat * np.expm1(x), reverse)
+        a = (3.0 / (x * math.e)) ** 3
+        fwd = x >= -3.0
+        return (np.where(fwd, sat * em1, -sat * (1.0 + a)),
+                np.where(fwd, sat * (em1 + 1.0) / n_vt, 3.0 * sat * a / v))
 
 
 def _junctions(vbe: Array, vbc: Array, p: GummelPoon) -> tuple[Array, Array, Array, Array]:
-    """(I_C, I_B, I_BE, I_BC) of the intrinsic device."""
-    cbe = _diode(vbe, p.is_be, p.nf * p.vt)
-    cbc = _diode(vbc, p.is_bc, p.nr * p.vt)
-    cben = p.gmin * vbe
-    cbcn = p.gmin * vbc
-    if np.any(p.ise):
-        cben = cben + _diode(vbe, p.ise, p.ne * p.vt)
-    if np.any(p.isc):
-        cbcn = cbcn + _diode(vbc, p.isc, p.nc * p.vt)
-    qb = base_charge(vbe, vbc, cbe, cbc, p)
-    ic = (cbe - cbc) / qb - cbc / p.br - cbcn
-    ib = cbe / p.bf + cben + cbc / p.br + cbcn
+    """(I_C, I_B, q_b, I_BE) of the intrinsic device."""
+    ic, ib, qb, cbe = _junctions_g(vbe, vbc, p)[:4]
     return ic, ib, qb, cbe
+
+
+def _junctions_g(vbe: Array, vbc: Array, p: GummelPoon) -> tuple[Array, ...]:
+    """(I_C, I_B, q_b, I_BE) of the intrinsic device and the partial derivatives
+    (∂I_C/∂V_BE, ∂I_C/∂V_BC, ∂I_B/∂V_BE, ∂I_B/∂V_BC, ∂q_b/∂V_BE, ∂q_b/∂V_BC), analytic
+    as ngspice's ``bjtload.c`` computes them."""
+    nvt = p.n_vt
+    cbe, gbe = _diode_g(vbe, p.is_be, nvt["f"])
+    cbc, gbc = _diode_g(vbc, p.is_bc, nvt["r"])
+    if p.flags["gmin"]:
+        cben, gben = p.gmin * vbe, p.gmin
+        cbcn, gbcn = p.gmin * vbc, p.gmin
+    else:
+        cben = cbcn = gben = gbcn = 0.0
+    if p.flags["ise"]:
+        i, g = _diode_g(vbe, p.ise, nvt["e"])
+        cben, gben = cben + i, gben + g
+    if p.flags["isc"]:
+        i, g = _diode_g(vbc, p.isc, nvt["c"])
+        cbcn, gbcn = cbcn + i, gbcn + g
+    # q_b = q_1·(1 + (1 + 4q_2)^NKF)/2
+    q1 = 1.0 / (1.0 - p.inv_vaf * vbc - p.inv_var * vbe)
+    if p.flags["q2"]:
+        q2 = p.inv_ikf * cbe + p.inv_ikr * cbc
+        arg = np.maximum(0.0, 1.0 + 4.0 * q2)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            sq = np.where(arg != 0, arg ** p.nkf, 1.0)
+            dsq = np.where(arg != 0, 4.0 * p.nkf * sq / arg, 0.0)  # d sq / d q_2
+        half = (1.0 + sq) / 2.0
+        qb = q1 * half
+        dqb_be = q1 * q1 * p.inv_var * half + q1 / 2.0 * dsq * p.inv_ikf * gbe
+        dqb_bc = q1 * q1 * p.inv_vaf * half + q1 / 2.0 * dsq * p.inv_ikr * gbc
+    else:
+        qb = q1
+        dqb_be = q1 * q1 * p.inv_var
+        dqb_bc = q1 * q1 * p.inv_vaf
+    it = (cbe - cbc) / qb
+    ic = it - cbc / p.br - cbcn
+    ib = cbe / p.bf + cben + cbc / p.br + cbcn
+    gic_be = gbe / qb - it / qb * dqb_be
+    gic_bc = -gbc / qb - it / qb * dqb_bc - gbc / p.br - gbcn
+    gib_be = gbe / p.bf + gben
+    gib_bc = gbc / p.br + gbcn
+    return ic, ib, qb, cbe, gic_be, gic_bc, gib_be, gib_bc, dqb_be, dqb_bc
 
 
 def intrinsic(vbe: Array, vbc: Array, p: GummelPoon) -> tuple[Array, Array]:
@@ -248,41 +307,77 @@ def base_charge(vbe: Array, vbc: Array, cbe: Array, cbc: Array, p: GummelPoon) -
     return q1 * (1.0 + sq) / 2.0
 
 
-def base_resistance(ib: Array, qb: Array, p: GummelPoon) -> Array:
-    """r_bb between RBM and RB: from q_b, or from the base current when IRB is given."""
+def _rbb_by_current(ib: Array, p: GummelPoon) -> Array:
     spread = p.rb - p.rbm
-    if not np.any(p.irb > 0):
-        return p.rbm + spread / qb
     with np.errstate(divide="ignore", invalid="ignore"):
         x = np.maximum(ib / np.where(p.irb > 0, p.irb, 1.0), 1e-9)
         z = (-1.0 + np.sqrt(1.0 + 14.59025 * x)) / 2.4317 / np.sqrt(x)
         tz = np.tan(z)
-        by_current = p.rbm + 3.0 * spread * (tz - z) / z / tz / tz
-    return np.where(p.irb > 0, by_current, p.rbm + spread / qb)
+        return p.rbm + 3.0 * spread * (tz - z) / z / tz / tz
 
 
-def _terminal_residual(vbe_i: Array, vbc_i: Array, vbe: Array, vbc: Array, p: GummelPoon) -> tuple[Array, Array, Array, Array]:
-    ic, ib, qb, _ = _junctions(vbe_i, vbc_i, p)
-    drop_b = ib * base_resistance(ib, qb, p) if (np.any(p.rb) or np.any(p.rbm)) else 0.0
+def base_resistance(ib: Array, qb: Array, p: GummelPoon) -> Array:
+    """r_bb between RBM and RB: from q_b, or from the base current when IRB is given."""
+    spread = p.rb - p.rbm
+    if not p.flags["irb"]:
+        return p.rbm + spread / qb
+    return np.where(p.irb > 0, _rbb_by_current(ib, p), p.rbm + spread / qb)
+
+
+def _base_resistance_g(ib: Array, qb: Array, p: GummelPoon) -> tuple[Array, Array, Array]:
+    """r_bb and its derivatives with respect to I_B and to q_b."""
+    spread = p.rb - p.rbm
+    by_qb = p.rbm + spread / qb
+    d_qb = -spread / (qb * qb)
+    if not p.flags["irb"]:
+        return by_qb, 0.0 * qb, d_qb
+    # IRB: r_bb(I_B) is a smooth scalar function; its slope by a central difference of it alone
+    h = np.maximum(np.abs(ib), 1e-30) * 1e-6
+    by_ib = _rbb_by_current(ib, p)
+    slope = (_rbb_by_current(ib + h, p) - _rbb_by_current(ib - h, p)) / (2.0 * h)
+    use = p.irb > 0
+    return np.where(use, by_ib, by_qb), np.where(use, slope, 0.0), np.where(use, 0.0, d_qb)
+
+
+def _terminal_residual(vbe_i: Array, vbc_i: Array, vbe: Array, vbc: Array, p: GummelPoon) -> tuple[Array, ...]:
+    """Residual of the internal-node equations, the currents, and the 2×2 Jacobian in
+    the internal junction voltages and the intrinsic conductances."""
+    ic, ib, qb, _, gic_be, gic_bc, gib_be, gib_bc, dqb_be, dqb_bc = _junctions_g(vbe_i, vbc_i, p)
+    if p.flags["rb"]:
+        rbb, drbb_ib, drbb_qb = _base_resistance_g(ib, qb, p)
+        drop_b = ib * rbb
+        dd_be = gib_be * rbb + ib * (drbb_ib * gib_be + drbb_qb * dqb_be)
+        dd_bc = gib_bc * rbb + ib * (drbb_ib * gib_bc + drbb_qb * dqb_bc)
+    else:
+        drop_b = dd_be = dd_bc = 0.0
     f1 = vbe_i + drop_b + (ic + ib) * p.re - vbe
     f2 = vbc_i + drop_b - ic * p.rc - vbc
-    return f1, f2, ic, ib
+    j11 = 1.0 + dd_be + (gic_be + gib_be) * p.re
+    j12 = dd_bc + (gic_bc + gib_bc) * p.re
+    j21 = dd_be - gic_be * p.rc
+    j22 = 1.0 + dd_bc - gic_bc * p.rc
+    return f1, f2, ic, ib, (j11, j12, j21, j22), (gic_be, gic_bc, gib_be, gib_bc)
 
 
 def terminal(vbe: Array, vbc: Array, p: GummelPoon, tol: float = 1e-13) -> tuple[Array, Array]:
     """Collector and base current of one unit device at terminal voltages V_BE, V_BC
     (RB, RE, RC included: the internal nodes are solved by Newton's method)."""
+    ic, ib, _ = terminal_g(vbe, vbc, p, tol)
+    return ic, ib
+
+
+def terminal_g(vbe: Array, vbc: Array, p: GummelPoon, tol: float = 1e-13) -> tuple[Array, Array, tuple[Array, ...]]:
+    """``terminal`` with the conductances (∂I_C/∂V_BE, ∂I_C/∂V_BC, ∂I_B/∂V_BE, ∂I_B/∂V_BC)
+    at the terminals.  The two internal junction voltages are solved jointly by Newton's
+    method with the analytic Jacobian; the terminal conductances follow from the intrinsic
+    ones by the implicit-function theorem, G_ext = G_int·J⁻¹ (J = ∂(terminal voltages)/∂(internal))."""
     vbe, vbc = np.broadcast_arrays(np.asarray(vbe, dtype=float), np.asarray(vbc, dtype=float))
-    if not p.has_resistance:
-        return intrinsic(vbe, vbc, p)
+    if not p.flags["res"]:
+        ic, ib, _, _, gic_be, gic_bc, gib_be, gib_bc, _, _ = _junctions_g(vbe, vbc, p)
+        return ic, ib, (gic_be, gic_bc, gib_be, gib_bc)
     x, y = vbe.copy(), vbc.copy()
-    h = 1e-7
     for _ in range(100):
-        f1, f2, ic, ib = _terminal_residual(x, y, vbe, vbc, p)
-        a1, a2, _, _ = _terminal_residual(x + h, y, vbe, vbc, p)
-        b1, b2, _, _ = _terminal_residual(x, y + h, vbe, vbc, p)
-        j11, j21 = (a1 - f1) / h, (a2 - f2) / h
-        j12, j22 = (b1 - f1) / h, (b2 - f2) / h
+        f1, f2, ic, ib, (j11, j12, j21, j22), g = _terminal_residual(x, y, vbe, vbc, p)
         det = j11 * j22 - j12 * j21
         dx = (f1 * j22 - f2 * j12) / det
         dy = (j11 * f2 - j21 * f1) / det
@@ -292,7 +387,52 @@ def terminal(vbe: Array, vbc: Array, p: GummelPoon, tol: float = 1e-13) -> tuple
         x, y = x - dx, y - dy
         if np.all(np.abs(dx) <= tol) and np.all(np.abs(dy) <= tol):
             break
-    return intrinsic(x, y, p)
+    _, _, ic, ib, (j11, j12, j21, j22), (gic_be, gic_bc, gib_be, gib_bc) = _terminal_residual(x, y, vbe, vbc, p)
+    det = j11 * j22 - j12 * j21
+    inv = (j22 / det, -j12 / det, -j21 / det, j11 / det)
+    cond = (gic_be * inv[0] + gic_bc * inv[2], gic_be * inv[1] + gic_bc * inv[3],
+            gib_be * inv[0] + gib_bc * inv[2], gib_be * inv[1] + gib_bc * inv[3])
+    return ic, ib, cond
+
+
+@dataclass
+class Linear:
+    """One device linearised at its internal junction voltages (x = V_B'E', y = V_B'C'):
+    currents, the residual f = terminal voltages implied − terminal voltages applied,
+    J⁻¹ (internal ← terminal) and the terminal conductances G = G_int·J⁻¹."""
+
+    ic: Array
+    ib: Array
+    f1: Array
+    f2: Array
+    inv: tuple[Array, Array, Array, Array]
+    g: tuple[Array, Array, Array, Array]  # ∂I_C/∂V_BE, ∂I_C/∂V_BC, ∂I_B/∂V_BE, ∂I_B/∂V_BC
+
+    def delta(self, dvbe: Array, dvbc: Array) -> tuple[Array, Array]:
+        """Newton step of the internal voltages when the terminals move by (dvbe, dvbc)."""
+        r1, r2 = dvbe - self.f1, dvbc - self.f2
+        i11, i12, i21, i22 = self.inv
+        return i11 * r1 + i12 * r2, i21 * r1 + i22 * r2
+
+    def currents_at(self, dvbe: Array | float, dvbc: Array | float) -> tuple[Array, Array]:
+        """(I_C, I_B) to first order after that step: I + G·(dV − f)."""
+        r1, r2 = dvbe - self.f1, dvbc - self.f2
+        a, b, c, d = self.g
+        return self.ic + a * r1 + b * r2, self.ib + c * r1 + d * r2
+
+
+def linearise(x: Array, y: Array, vbe: Array, vbc: Array, p: GummelPoon) -> Linear:
+    """The device at internal voltages (x, y) against terminal voltages (vbe, vbc): one
+    evaluation of the model, for a joint Newton step of a circuit's nodes and every
+    device's internal nodes together."""
+    if not p.flags["res"]:
+        ic, ib, _, _, a, b, c, d, _, _ = _junctions_g(x, y, p)
+        return Linear(ic, ib, x - vbe, y - vbc, (1.0, 0.0, 0.0, 1.0), (a, b, c, d))  # type: ignore[arg-type]
+    f1, f2, ic, ib, (j11, j12, j21, j22), (a, b, c, d) = _terminal_residual(x, y, vbe, vbc, p)
+    det = j11 * j22 - j12 * j21
+    inv = (j22 / det, -j12 / det, -j21 / det, j11 / det)
+    g = (a * inv[0] + b * inv[2], a * inv[1] + b * inv[3], c * inv[0] + d * inv[2], c * inv[1] + d * inv[3])
+    return Linear(ic, ib, f1, f2, inv, g)
 
 
 def vbe_guess(current: Array, p: GummelPoon) -> Array:
@@ -300,23 +440,30 @@ def vbe_guess(current: Array, p: GummelPoon) -> Array:
     return p.nf * p.vt * np.log1p(np.maximum(current, 1e-30) * (1.0 + 1.0 / p.bf) / p.is_be)
 
 
-def solve_increasing(residual, x0: Array, step0: float = 0.02, tol: float = 1e-14, iters: int = 200) -> Array:  # type: ignore[no-untyped-def]
-    """Root of an increasing function, elementwise: Newton with a finite-difference slope,
-    kept inside a bracket that the iterates grow (robust from a rough start)."""
+def solve_increasing(residual, x0: Array, step0: float = 0.02, tol: float = 1e-14, iters: int = 200,  # type: ignore[no-untyped-def]
+                     slope: bool = False) -> Array:
+    """Root of an increasing function, elementwise: Newton kept inside a bracket that the
+    iterates grow (robust from a rough start).  With ``slope``, ``residual`` returns
+    (value, derivative); otherwise the slope is a finite difference."""
     x = np.array(x0, dtype=float)
     lo = np.full_like(x, -np.inf)
     hi = np.full_like(x, np.inf)
     h = 1e-8
     for _ in range(iters):
-        f = residual(x)
+        if slope:
+            f, df = residual(x)
+        else:
+            f = residual(x)
+            df = (residual(x + h) - f) / h
         lo = np.where(f < 0, np.maximum(lo, x), lo)
         hi = np.where(f > 0, np.minimum(hi, x), hi)
-        slope = (residual(x + h) - f) / h
-        step = np.where(slope > 0, f / np.where(slope > 0, slope, 1.0), np.sign(f) * step0)
+        step = np.where(df > 0, f / np.where(df > 0, df, 1.0), np.sign(f) * step0)
         step = np.clip(step, -0.1, 0.1)
         new = x - step
-        # outside the bracket: bisect (or step out of it while it is open)
-        outside = (new <= lo) | (new >= hi)
+        # outside the bracket: bisect (or step out of it while it is open).  Strictly outside:
+        # a converged element's step rounds to zero and lands on its own bracket end, and
+        # bisecting it from there would undo the convergence (halving the error per step).
+        outside = (new < lo) | (new > hi)
         mid = np.where(np.isfinite(lo) & np.isfinite(hi), 0.5 * (lo + hi), new)
         new = np.where(outside, mid, new)
         done = np.abs(new - x) <= tol * np.maximum(1.0, np.abs(x))
