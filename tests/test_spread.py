@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import copy
 import math
+from dataclasses import replace
 
 import numpy as np
 import pytest
@@ -16,8 +17,10 @@ from typer.testing import CliRunner
 import biastree
 from biastree.analysis.conditions import condition_columns
 from biastree.analysis.corners import evaluate, parse_range, sweep_columns
-from biastree.analysis.spread import analytic, device_sigmas, monte_carlo, single
+from biastree.analysis.sample_solve import Draws, SampleSolver, supported
+from biastree.analysis.spread import DeviceSigmas, analytic, device_sigmas, draw, general_solve, monte_carlo, single
 from biastree.cli import app
+from biastree.input.generate import Ranges, random_plan
 from biastree.output.spice import to_spice
 from biastree.physics.devices import thermal_voltage
 from biastree.sim.verify import ngspice_monte_carlo, run_ngspice, simulated_currents, verify
@@ -54,17 +57,48 @@ def test_pelgrom_area_law_and_pair_convention() -> None:
     assert single(5e-9, None) == pytest.approx(5e-9 / math.sqrt(2))
 
 
+def _ekv_gm_over_id(vov: float, n: float = 1.4) -> float:
+    # EKV charge-based interpolation (Enz, Vittoz, "Charge-Based MOS Transistor Modeling",
+    # Wiley 2006, from memory): g_m·n·U_T/I_D = 2/(1 + √(1 + 4·IC)), with √(4·IC) = V_ov/(n·U_T)
+    # so that it tends to the square law's 2/V_ov; written out here, not imported
+    return 2 / (n * VT * (1 + math.sqrt(1 + (vov / (n * VT)) ** 2)))
+
+
 def test_mos_current_mismatch_formula() -> None:
     # Kinget, IEEE JSSC 40(6) 2005; Lakshmikumar et al., IEEE JSSC SC-21(6) 1986:
-    # σ²(ΔI/I) = (g_m/I)²·σ²(ΔVT) + σ²(Δβ/β) for a pair, g_m/I = 2/V_ov in strong inversion.
-    plan = one_stage(mos(a_vt_pair="5mV*um", a_beta_pair="1%*um"), [{"to": "a"}],
-                     {"a": {"current": "10uA", "tolerance": "5%", "voltage": "1V"}}, current="10uA", supply="3.3V")
-    tree = tree_of(plan)
-    op = biastree.solve(tree)
-    vov = float(op.m_v_in[0, 1]) - 0.5
-    area = 10e-6 * 1e-6
-    expected = math.sqrt((2 / vov) ** 2 * (5e-9 / math.sqrt(area)) ** 2 + (1e-8 / math.sqrt(area)) ** 2)
-    assert analytic(tree).mismatch[0] == pytest.approx(expected, rel=1e-3)
+    # σ²(ΔI/I) = (g_m/I)²·σ²(ΔVT) + σ²(Δβ/β) for a pair; g_m/I = 2/V_ov in strong inversion,
+    # capped at 1/(n·U_T) towards weak inversion (EKV interpolation above).
+    for current, share in (("10uA", 0.70), ("1mA", 0.97)):  # V_ov = 0.1 V and 1 V
+        plan = one_stage(mos(a_vt_pair="5mV*um", a_beta_pair="1%*um"), [{"to": "a"}],
+                         {"a": {"current": current, "tolerance": "5%", "voltage": "1V"}}, current=current,
+                         supply="3.3V")
+        tree = tree_of(plan)
+        op = biastree.solve(tree)
+        vov = float(op.m_v_in[0, 1]) - 0.5
+        area = 10e-6 * 1e-6
+        gm_id = _ekv_gm_over_id(vov)
+        assert gm_id * vov / 2 == pytest.approx(share, abs=0.01)  # how far from the square law
+        expected = math.sqrt(gm_id**2 * (5e-9 / math.sqrt(area)) ** 2 + (1e-8 / math.sqrt(area)) ** 2)
+        assert analytic(tree).mismatch[0] == pytest.approx(expected, rel=1e-3)
+
+
+def test_weak_inversion_limit_restores_the_area_law() -> None:
+    # At a fixed current the square law's σ from V_T does not fall with width: σ(V_T) ∝ 1/√W
+    # but 2/V_ov ∝ √W.  A real device's g_m/I_D stops at 1/(n·U_T) (weak inversion;
+    # REFERENCES.md, from memory), so there 16× the area gives 4× less σ (Pelgrom 1989).
+    sigma = []
+    for w in ("10um", "160um"):
+        plan = one_stage(mos(a_vt_pair="5mV*um", w=w), [{"to": "a"}],
+                         {"a": {"current": "0.5uA", "tolerance": "50%", "voltage": "1V"}}, current="0.5uA",
+                         supply="3.3V")
+        tree = tree_of(plan)
+        vov = math.sqrt(2 * 0.5e-6 / (200e-6 * float(w[:-2])))  # λ = 0: the square law exactly
+        single_vt = 5e-9 / math.sqrt(2 * float(w[:-2]) * 1e-12)
+        got = float(analytic(tree).mismatch[0])
+        assert got == pytest.approx(math.sqrt(2) * single_vt * _ekv_gm_over_id(vov), rel=1e-3)
+        assert got < math.sqrt(2) * single_vt * 2 / vov  # below the square law's value
+        sigma.append(got)
+    assert 3.0 < sigma[0] / sigma[1] < 4.0  # the square law alone gives exactly 1
 
 
 def test_bjt_vbe_rule() -> None:
@@ -199,6 +233,82 @@ def test_monte_carlo_against_ngspice(ngspice) -> None:  # type: ignore[no-untype
         assert ours[i].mean() == pytest.approx(theirs[i].mean(), rel=4 * s_ours / math.sqrt(n))
     r_ours, r_theirs = ours[0] / ours[2], theirs[0] / theirs[2]
     assert abs(np.std(r_ours) / np.std(r_theirs) - 1) < tol
+
+
+def test_weak_inversion_monte_carlo_agrees_with_first_order() -> None:
+    # The Monte Carlo feeds the square-law equations each device's ΔV_T scaled by the same
+    # g_m/I_D share as the first-order σ: both agree at a small V_ov (0.03 V: share 0.39).
+    plan = one_stage(mos(a_vt_pair="5mV*um", a_beta_pair="1%*um", **{"lambda": "0.05/V"}),
+                     [{"to": "a"}, {"to": "b", "ratio": 2}],
+                     {"a": {"current": "1uA", "tolerance": "50%", "voltage": "1V"},
+                      "b": {"current": "2uA", "tolerance": "50%", "voltage": "1.5V"}}, current="1uA", supply="3.3V")
+    tree = tree_of(plan)
+    an = analytic(tree)
+    n = 3000
+    mc = monte_carlo(tree, n, seed=5, include_reference=False, include_process=False)
+    for i in range(2):
+        assert _within(float(np.std(np.log(mc.currents[i]), ddof=1)), float(an.mismatch[i]), n, 0.01)
+
+
+def _stress(tree: biastree.Tree, rng: np.random.Generator, samples: int) -> Draws:
+    """Deviations far larger than any real plan's (2 % IS, 3 mV V_T, 2 % KP on every device;
+    5 % β, 20 mV V_T, 5 % KP process; 1 % reference), to exercise every term."""
+    n_b, n_m = len(tree.b_parent), len(tree.mirrors)
+    sig = DeviceSigmas(*(np.full(n, v) for n, v in ((n_m, 0.02), (n_b, 0.02), (n_m, 3e-3), (n_b, 3e-3),
+                                                      (n_m, 0.02), (n_b, 0.02))))
+    d = draw(tree, sig, rng, samples, include_reference=True, include_process=False)
+    return replace(d, beta=rng.standard_normal(samples) * 0.05, vth=rng.standard_normal(samples) * 0.02,
+                   kp=rng.standard_normal(samples) * 0.05, i_ref=d.i_ref * (1 + 0.01 * rng.standard_normal(samples)))
+
+
+def _plans() -> list[tuple[str, biastree.Tree]]:
+    out = []
+    for path in sorted((ROOT / "samples").glob("*.yaml")):
+        if path.name.startswith("blocks_"):
+            continue  # a block list, not a plan
+        tree = biastree.load(path)
+        if supported(tree):
+            out.append((path.name, tree))
+    for n, seed, families in ((40, 1, ("bjt", "mos")), (300, 2, ("bjt",)), (300, 3, ("mos",)), (2000, 4, ("bjt", "mos"))):
+        plan = random_plan(n, seed=seed, ranges=Ranges(families=families, max_count=4))
+        out.append((f"random {n}/{seed}", tree_of(plan)))
+    return out
+
+
+def test_one_pass_solver_equals_the_general_solver() -> None:
+    # The Monte Carlo's one-pass solver (biastree.analysis.sample_solve) against the general
+    # solver on the same draws: every load current to 1e-12, the compliance and path
+    # headroom margins to 1e-12 V, on the samples it applies to and on generated plans.
+    names = []
+    for name, tree in _plans():
+        draws = _stress(tree, np.random.default_rng(7), 24)
+        fast = SampleSolver(tree).solve(draws)
+        assert fast is not None, name
+        slow = general_solve(tree, draws)
+        assert np.max(np.abs(fast[0] / slow[0] - 1)) < 1e-12, name
+        assert np.max(np.abs(fast[1] - slow[1])) < 1e-12, name
+        finite = np.isfinite(slow[2])
+        assert np.array_equal(finite, np.isfinite(fast[2])), name
+        assert np.max(np.abs(fast[2][finite] - slow[2][finite]), initial=0.0) < 1e-12, name
+        names.append(name)
+    assert {"bipolar_small.yaml", "cmos_soc.yaml", "failing_budgets.yaml"} <= set(names)
+    tree = biastree.load(ROOT / "samples" / "die_spread.yaml")
+    assert not supported(tree)  # β-helper and remote devices: the general solver
+
+
+def test_monte_carlo_one_pass_and_general_paths_agree() -> None:
+    plan = random_plan(200, seed=9, ranges=Ranges(families=("bjt", "mos")))
+    for dev in plan["devices"].values():  # matching on every device (invented coefficients)
+        if dev["kind"] in ("npn", "pnp"):
+            dev.update(area="10um^2", a_is_pair="2%*um")
+        else:
+            dev.update(a_vt_pair="5mV*um", a_beta_pair="1%*um")
+    tree = tree_of(plan)
+    fast = monte_carlo(tree, 40, seed=3)
+    slow = monte_carlo(tree, 40, seed=3, fast=False)
+    assert np.max(np.abs(fast.currents / slow.currents - 1)) < 1e-12
+    assert np.array_equal(fast.active, slow.active)
+    assert np.std(np.log(fast.currents), axis=1).min() > 1e-3  # the mismatch was really sampled
 
 
 # --- temperature, supply and corners ---------------------------------------------------------

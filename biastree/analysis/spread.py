@@ -27,11 +27,13 @@ from typing import Callable
 
 import numpy as np
 
-from biastree.analysis.conditions import default_columns
+from biastree.analysis.conditions import default_columns, reference_current
 from biastree.analysis.corners import path_headroom
 from biastree.analysis.plausible import check_samples, check_sigma
+from biastree.analysis.sample_solve import Draws, SampleSolver, supported
 from biastree.analysis.solve import solve
-from biastree.physics.devices import Array
+from biastree.physics.devices import Array, thermal_voltage
+from biastree.physics.mismatch import square_law_share
 from biastree.tree.arrays import Tree
 
 QUANTILES = (0.00135, 0.025, 0.5, 0.975, 0.99865)  # ±3σ and ±2σ points of a normal
@@ -48,10 +50,18 @@ class DeviceSigmas:
     out_vt: Array
     in_k: Array  # σ(Δβ/β) of MOS devices
     out_k: Array
+    # (n_mirrors,) g_m/I_D of the mirror's devices over the square law's 2/V_ov (EKV, see
+    # biastree.physics.mismatch): a threshold deviation moves the current this much less
+    # than the square-law equations say; 1 for bipolar mirrors
+    vt_share: Array | None = None
 
     @property
     def any(self) -> bool:
-        return any(float(np.max(a, initial=0.0)) > 0 for a in vars(self).values())
+        sigmas = (self.in_is, self.out_is, self.in_vt, self.out_vt, self.in_k, self.out_k)
+        return any(float(np.max(a, initial=0.0)) > 0 for a in sigmas)
+
+    def share(self, n_mirrors: int) -> Array:
+        return np.ones(n_mirrors) if self.vt_share is None else self.vt_share
 
 
 def single(pair: float | None, one: float | None) -> float:
@@ -67,12 +77,18 @@ def has_coefficients(plan: object) -> bool:
     return any(getattr(dev, k, None) for dev in plan.devices.values() for k in keys)  # type: ignore[attr-defined]
 
 
-def device_sigmas(tree: Tree) -> DeviceSigmas:
+def device_sigmas(tree: Tree, i_in: Array | None = None) -> DeviceSigmas:
+    """σ of every device's deviation (Pelgrom's area law), and for MOS mirrors the share
+    of the square law's g_m/I_D their threshold deviation really has, at each mirror's input
+    current ``i_in`` (n_mirrors,): the nominal solution's (default: the ideal currents)."""
     plan = tree.plan
     n_m = len(tree.mirrors)
     # per-mirror single-device coefficients and unit areas (zero where not given)
     a_is, a_vt, a_k, unit = np.zeros(n_m), np.zeros(n_m), np.zeros(n_m), np.ones(n_m)
     size_in = np.array([plan.mirrors[m].input_size for m in tree.mirrors])
+    current = tree.m_ideal_in if i_in is None else np.asarray(i_in, dtype=float)
+    share = np.ones(n_m)
+    ut = float(thermal_voltage(plan.temperature))
     for i, name in enumerate(tree.mirrors):
         dev = plan.devices[plan.mirrors[name].device]
         if dev.kind in ("npn", "pnp"):
@@ -82,12 +98,18 @@ def device_sigmas(tree: Tree) -> DeviceSigmas:
             unit[i] = dev.w * dev.l
             a_vt[i] = single(dev.a_vt_pair, dev.a_vt_single)
             a_k[i] = single(dev.a_beta_pair, dev.a_beta_single)
+            if a_vt[i]:
+                # square-law overdrive of the input device at its current and the plan's
+                # temperature (KP(T) as in biastree.analysis.conditions; λ neglected here)
+                kp = dev.kp * (plan.temperature / dev.tnom) ** dev.mobility_exp
+                vov = math.sqrt(max(2.0 * float(current[i]) / (kp * dev.w / dev.l * size_in[i]), 0.0))
+                share[i] = float(square_law_share(vov, ut))
     p = tree.b_parent
     size_out = tree.b_ratio * size_in[p]
     root_in = np.sqrt(unit * size_in)
     root_out = np.sqrt(unit[p] * size_out)
     return DeviceSigmas(in_is=a_is / root_in, out_is=a_is[p] / root_out, in_vt=a_vt / root_in,
-                        out_vt=a_vt[p] / root_out, in_k=a_k / root_in, out_k=a_k[p] / root_out)
+                        out_vt=a_vt[p] / root_out, in_k=a_k / root_in, out_k=a_k[p] / root_out, vt_share=share)
 
 
 @dataclass(frozen=True)
@@ -169,23 +191,27 @@ def analytic(tree: Tree, base: Analytic | None = None, only: Array | None = None
     ``base`` and ``only`` (bool per mirror): re-solve only those mirrors (see
     biastree.analysis.solve.solve)."""
     plain = default_columns(tree)
-    nominal = plain.take(np.array([1, 1, 1, 1]))
+    nominal = plain.take(np.array([1, 1, 1, 1, 1]))
     n_b = len(tree.b_parent)
-    ones, zeros = np.ones((n_b, 4)), np.zeros((n_b, 4))
+    ones, zeros = np.ones((n_b, 5)), np.zeros((n_b, 5))
     is_scale, vt_shift, k_scale = ones.copy(), zeros.copy(), ones.copy()
     is_scale[:, 1] = 1.0 + _H
     vt_shift[:, 2] = _H
+    vt_shift[:, 4] = -_H  # a central difference: the square law bends at small V_ov
     k_scale[:, 3] = 1.0 + _H
-    cols = replace(nominal, names=("nominal", "is", "vt", "k"), is_scale=is_scale, vt_shift=vt_shift, k_scale=k_scale)
+    cols = replace(nominal, names=("nominal", "is", "vt", "k", "vt-"), is_scale=is_scale, vt_shift=vt_shift,
+                   k_scale=k_scale)
     # values under allow_unusual may overflow here (a coefficient squared): the σ is then
     # refused with its load by check_sigma below, instead of numpy warning
     with np.errstate(all="ignore"):
         op = solve(tree, cols, output_resistance=False, base=None if base is None else base.op, only=only)
         gain = op.b_current / op.m_i_in[tree.b_parent]
         s_is = (gain[:, 1] / gain[:, 0] - 1.0) / _H
-        s_vt = (gain[:, 2] / gain[:, 0] - 1.0) / _H
+        sig = device_sigmas(tree, op.m_i_in[:, 0])
+        # the square-law solve's threshold sensitivity, brought to the real g_m/I_D (EKV)
+        s_vt = (gain[:, 2] - gain[:, 4]) / gain[:, 0] / (2.0 * _H) * sig.share(len(tree.mirrors))[tree.b_parent]
         s_k = (gain[:, 3] / gain[:, 0] - 1.0) / _H
-        result = Analytic(tree, device_sigmas(tree), s_is, s_vt, s_k, np.zeros(n_b), tree.plan.reference.tolerance / 3.0)
+        result = Analytic(tree, sig, s_is, s_vt, s_k, np.zeros(n_b), tree.plan.reference.tolerance / 3.0)
         local = result.local_var(np.arange(n_b))
         # variance carried by each mirror's input current, generation by generation
         m_var = np.zeros(len(tree.mirrors))
@@ -248,46 +274,112 @@ def _chunk(n_branches: int, samples: int) -> int:
     return max(1, min(samples, 2_000_000 // max(n_branches, 1)))
 
 
+def draw(tree: Tree, sig: DeviceSigmas, rng: np.random.Generator, samples: int, include_reference: bool = True,
+         include_process: bool = True) -> Draws:
+    """One chunk of random deviations.  Only the devices whose σ is not zero are drawn
+    (a bipolar device has no threshold, most plans match only some devices)."""
+    plan = tree.plan
+    n_b, n_m = len(tree.b_parent), len(tree.mirrors)
+    parent = tree.b_parent
+
+    def normals(sigma: Array, rows: int) -> Array | None:
+        nz = np.flatnonzero(sigma)
+        if not nz.size:
+            return None
+        out = np.zeros((rows, samples))
+        got = rng.standard_normal((nz.size, samples))
+        got *= sigma[nz, None]
+        out[nz] = got
+        return out
+
+    def pair(out_sigma: Array, in_sigma: Array) -> Array | None:
+        """Output device's deviation minus its mirror's input device's, per branch."""
+        out, inp = normals(out_sigma, n_b), normals(in_sigma, n_m)
+        if inp is not None:
+            if out is None:
+                out = -inp[parent]
+            else:
+                out -= inp[parent]
+        return out
+
+    i_ref = np.full(samples, float(reference_current(plan, np.array(plan.temperature))))
+    if include_reference:
+        i_ref = i_ref * (1.0 + rng.standard_normal(samples) * plan.reference.tolerance / 3.0)
+    zero = np.zeros(samples)
+    beta, vth, kp = zero, zero, zero
+    if include_process:
+        spread = plan.spread
+        beta = rng.standard_normal(samples) * spread.beta
+        vth = rng.standard_normal(samples) * spread.vth
+        kp = rng.standard_normal(samples) * spread.kp
+    d_is = pair(sig.out_is, sig.in_is)
+    d_vt = pair(sig.out_vt, sig.in_vt)
+    if d_vt is not None:  # what the square-law equations must see for the real g_m/I_D
+        d_vt *= sig.share(n_m)[parent][:, None]
+    k_out, k_in = normals(sig.out_k, n_b), normals(sig.in_k, n_m)
+    k_scale = None
+    if k_out is not None or k_in is not None:
+        k_scale = 1.0 + (0.0 if k_out is None else k_out)
+        if k_in is not None:
+            k_scale = k_scale / (1.0 + k_in[parent])
+    is_scale = None
+    if d_is is not None:
+        rows = np.flatnonzero(sig.out_is + sig.in_is[parent])
+        is_scale = np.ones((n_b, samples))
+        is_scale[rows] = np.exp(d_is[rows])
+    return Draws(i_ref, is_scale, d_vt, k_scale, beta, vth, kp)
+
+
+def general_solve(tree: Tree, draws: Draws, first: int = 0) -> tuple[Array, Array, Array]:
+    """Per load and sample: current, its output's compliance margin and the smallest margin
+    of the branches between mirrors on its path, by the general solver
+    (biastree.analysis.solve) — the reference for the one-pass solver."""
+    c = draws.size
+    cols = default_columns(tree).take(np.ones(c, dtype=int))
+    shifts = {k: np.zeros(c) for k in ("beta", "early", "is", "kp", "vth", "lambda")}
+    shifts.update(beta=draws.beta, vth=draws.vth, kp=draws.kp)
+    cols = replace(cols, names=tuple(f"s{first + j}" for j in range(c)), i_ref=draws.i_ref, shifts=shifts,
+                   is_scale=draws.is_scale, vt_shift=draws.vt_shift, k_scale=draws.k_scale)
+    with np.errstate(all="ignore"):  # extreme samples are refused by check_samples, not warned about
+        op = solve(tree, cols, output_resistance=False)
+        comp = op.b_compliance
+        return op.l_current, comp[tree.l_branch], path_headroom(tree, comp)
+
+
 def monte_carlo(tree: Tree, samples: int, seed: int = 1, include_reference: bool = True,
-                include_process: bool = True, progress: Callable[[int, int], None] | None = None) -> MonteCarlo:
+                include_process: bool = True, progress: Callable[[int, int], None] | None = None,
+                fast: bool = True) -> MonteCarlo:
     """Sample every device's mismatch (and the reference tolerance and the
     plan's global process spread) and re-solve the tree, vectorised over
-    samples in chunks.  Loads sit at their nominal voltage."""
-    plan = tree.plan
-    sig = device_sigmas(tree)
+    samples in chunks.  Loads sit at their nominal voltage.  Trees of simple
+    mirrors take the one-pass solver (biastree.analysis.sample_solve; ``fast=False``
+    forces the general one), others the general solver."""
+    one_pass = SampleSolver(tree) if fast and supported(tree) else None
+    if any(d.kind in ("nmos", "pmos") and (d.a_vt_pair or d.a_vt_single) for d in tree.plan.devices.values()):
+        # V_ov, hence the threshold's share, at the nominal solution's currents
+        nominal = draw(tree, device_sigmas(tree), np.random.default_rng(0), 1, False, False)
+        nominal = replace(nominal, is_scale=None, vt_shift=None, k_scale=None)
+        got = one_pass.input_currents(nominal) if one_pass is not None else None
+        if got is None:
+            with np.errstate(all="ignore"):
+                got = solve(tree, default_columns(tree), output_resistance=False).m_i_in[:, 1]
+        sig = device_sigmas(tree, got)
+    else:
+        sig = device_sigmas(tree)
     rng = np.random.default_rng(seed)
     n_b, n_l = len(tree.b_parent), len(tree.loads)
     currents = np.empty((n_l, samples))
     active = np.empty((n_l, samples), dtype=bool)
-    base = default_columns(tree)
     chunk = _chunk(n_b, samples)
-    spread = plan.spread
-    parent = tree.b_parent
     done = 0
     while done < samples:
         c = min(chunk, samples - done)
-        cols = base.take(np.ones(c, dtype=int))
-        d_is = rng.standard_normal((n_b, c)) * sig.out_is[:, None] - (rng.standard_normal((len(tree.mirrors), c))
-                                                                      * sig.in_is[:, None])[parent]
-        d_vt = rng.standard_normal((n_b, c)) * sig.out_vt[:, None] - (rng.standard_normal((len(tree.mirrors), c))
-                                                                      * sig.in_vt[:, None])[parent]
-        k_out = 1.0 + rng.standard_normal((n_b, c)) * sig.out_k[:, None]
-        k_in = 1.0 + rng.standard_normal((len(tree.mirrors), c)) * sig.in_k[:, None]
-        shifts = {k: np.zeros(c) for k in ("beta", "early", "is", "kp", "vth", "lambda")}
-        i_ref = cols.i_ref.copy()
-        if include_reference:
-            i_ref = i_ref * (1.0 + rng.standard_normal(c) * plan.reference.tolerance / 3.0)
-        if include_process:
-            shifts["beta"] = rng.standard_normal(c) * spread.beta
-            shifts["vth"] = rng.standard_normal(c) * spread.vth
-            shifts["kp"] = rng.standard_normal(c) * spread.kp
-        cols = replace(cols, names=tuple(f"s{done + j}" for j in range(c)), i_ref=i_ref, shifts=shifts,
-                       is_scale=np.exp(d_is), vt_shift=d_vt, k_scale=k_out / k_in[parent])
-        with np.errstate(all="ignore"):  # extreme samples are refused by check_samples, not warned about
-            op = solve(tree, cols, output_resistance=False)
-            comp = op.b_compliance
-            active[:, done:done + c] = (comp[tree.l_branch] >= 0) & (path_headroom(tree, comp) >= 0)
-        currents[:, done:done + c] = check_samples(tree, op.l_current)
+        draws = draw(tree, sig, rng, c, include_reference, include_process)
+        with np.errstate(all="ignore"):
+            got = None if one_pass is None else one_pass.solve(draws)
+            l_cur, l_comp, l_head = got if got is not None else general_solve(tree, draws, done)
+            active[:, done:done + c] = (l_comp >= 0) & (l_head >= 0)
+        currents[:, done:done + c] = check_samples(tree, l_cur)
         done += c
         if progress:
             progress(done, samples)
