@@ -44,7 +44,7 @@ def plan(
         tree = load_tree(file)
         from biastree.analysis.pipeline import check_tree
 
-        fixed = do_repair(tree, check_tree(tree, detail=False), fb)
+        fixed = do_repair(tree, check_tree(tree, detail=False), fb, objective=objective.value)
         typer.echo(repair_text(fixed), nl=False, err=output is None)
         if fixed.ok:
             emit(fixed.text, output)
