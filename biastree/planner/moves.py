@@ -149,10 +149,15 @@ class State:
         self.tried: dict[str, dict[str, str]] = {}  # mirror → move → outcome
         self.area_factor: dict[str, float] = {}
         self.levels = 0
+        self.bar = 0.0  # a load counts as passing when it passes with at least this budget margin left
         self.rounds: list[tuple[int, int, int]] = []  # (targets, levels, checks) per round
 
     def check(self) -> None:
         self.tree, self.result = self.evaluate(self.data)
+
+    def ok(self, r: Audit) -> np.ndarray:
+        """Loads that pass (with the margin bar, when one is set)."""
+        return r.passed & (r.margin >= self.bar) if self.bar > 0 else r.passed
 
     # --- one level of moves -------------------------------------------------
 
@@ -179,15 +184,16 @@ class State:
             tree, res = self.evaluate(t.data)
         out = []
         index = {n: k for k, n in enumerate(tree.loads)}
-        was = {n: bool(self.result.passed[k]) for k, n in enumerate(self.tree.loads)}
+        was = dict(zip(self.tree.loads, self.ok(self.result).tolist()))
+        good = self.ok(res)
         for mv in level:
             judged = {index[n] for n in mv.loads}
             for n in mv.owns:
                 judged |= {index[b["to"]] for b in t.data["mirrors"][n]["branches"] if b["to"] in index}
             ids = sorted(judged)
-            passed = res.passed[ids]
+            passed = good[ids]
             broke = any(was.get(tree.loads[k], False) and not ok for k, ok in zip(ids, passed.tolist()))
-            mv.fixed = sum(1 for n in mv.loads if bool(res.passed[index[n]]))
+            mv.fixed = sum(1 for n in mv.loads if bool(good[index[n]]))
             mv.complete = bool(passed.all())
             mv.final = {n: copy.deepcopy(t.data["mirrors"][n]) for n in mv.owns}
             mv.cost = self._cost(mv, tree, res, judged)
@@ -447,7 +453,7 @@ def _nearest(state: State, mirror: str, movable: list[str], better: bool) -> str
     pos = (data.get("floorplan") or {}).get("positions", {})
     here = pos.get(movable[0]) or pos.get(mirror)
     owner = tree.b_parent[tree.l_branch]
-    bad = set(owner[~r.passed].tolist())
+    bad = set(owner[~state.ok(r)].tolist())
     best: tuple[float, str] | None = None
     for k, name in enumerate(tree.mirrors):
         other = data["mirrors"][name]

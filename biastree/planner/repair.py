@@ -124,14 +124,28 @@ def repair(tree: Tree, result: Audit, forward_bias: float | None = None, max_uni
         data["compliance"] = dict(data.get("compliance", {}), bjt_forward_bias=forward_bias)
         fixes.append(Fix("compliance", "compliance.bjt_forward_bias", [], f"{tree.plan.compliance.bjt_forward_bias:g} V",
                          f"{forward_bias:g} V", "allowed by --forward-bias (V_CE stays above saturation)"))
-    elif bool(result.passed.all()):
-        return Repair(before, before, [], [], "", tree, result)
+    header = "Repaired by biastree plan --repair; every change is listed in its output.\n" + (tree.plan.title or "")
+    if not fixes and bool(result.passed.all()):
+        text, _, _ = finish(data, header, "repaired plan")
+        return Repair(before, before, [], [], text, tree, result)
     state = State(data, Evaluator(), Limits(max_units=max_units, objective=objective))
     state.check()
     hopeless = _hopeless(state)
+    search_rounds(state, hopeless, detailed, fixes, rounds)
+    text, new_tree, new_result = finish(state.data, header, "repaired plan")
+    after = figures(new_result)
+    _price(fixes, tree, result, new_tree, new_result, state)
+    _effects(fixes, tree, result, new_tree, new_result)
+    bad = _explain(new_tree, new_result, state, hopeless) if not bool(new_result.passed.all()) else []
+    return Repair(before, after, _merged(fixes), bad, text, new_tree, new_result, state.evaluate.calls, state.rounds)
+
+
+def search_rounds(state: State, hopeless: dict[int, Infeasible], detailed: Audit | None, fixes: list[Fix],
+                  rounds: int = 6) -> None:
+    """Rounds of combined moves while loads fail (below the state's bar) and their number falls."""
     last = None
     for _ in range(rounds):
-        failing = int((~state.result.passed).sum())
+        failing = int((~state.ok(state.result)).sum())
         if failing == 0 or (last is not None and failing >= last):
             break
         last = failing
@@ -140,13 +154,17 @@ def repair(tree: Tree, result: Audit, forward_bias: float | None = None, max_uni
         state.rounds.append((failing, state.levels - l0, state.evaluate.calls - c0))
         if not kept:
             break
-    header = "Repaired by biastree plan --repair; every change is listed in its output.\n" + (tree.plan.title or "")
-    text, new_tree, new_result = finish(state.data, header, "repaired plan")
-    after = figures(new_result)
-    _price(fixes, tree, result, new_tree, new_result, state)
-    _effects(fixes, tree, result, new_tree, new_result)
-    bad = _explain(new_tree, new_result, state, hopeless) if not bool(new_result.passed.all()) else []
-    return Repair(before, after, _merged(fixes), bad, text, new_tree, new_result, state.evaluate.calls, state.rounds)
+
+
+def improve(data: dict[str, Any], bar: float, objective: str = "power", max_units: int = 64,
+            topologies: set[str] | None = None) -> dict[str, Any]:
+    """A passing plan's data with every load given at least ``bar`` of budget margin where the
+    repair's moves can give it (the same moves, with "passing" raised to the bar)."""
+    state = State(copy.deepcopy(data), Evaluator(), Limits(max_units=max_units, objective=objective, topologies=topologies))
+    state.bar = bar
+    state.check()
+    search_rounds(state, {}, None, [], rounds=3)
+    return state.data
 
 
 def _hopeless(state: State) -> dict[int, Infeasible]:
@@ -162,7 +180,7 @@ def _hopeless(state: State) -> dict[int, Infeasible]:
     return out
 
 
-def _round(state: State, hopeless: dict[int, Infeasible], detailed: Audit, fixes: list[Fix]) -> list[Move]:
+def _round(state: State, hopeless: dict[int, Infeasible], detailed: Audit | None, fixes: list[Fix]) -> list[Move]:
     """One round: every target's candidates, level by level, then the best of each applied together."""
     targets = _targets(state, hopeless)
     queues = {m: candidates(state, m, loads) for m, loads in targets.items()}
@@ -203,12 +221,12 @@ def _round(state: State, hopeless: dict[int, Infeasible], detailed: Audit, fixes
     if not chosen:
         return []
     saved = copy.deepcopy(state.data)
-    before = int((~state.result.passed).sum())
-    found = [_fixes_of(mv, detailed, saved) for mv in chosen]
+    before = int((~state.ok(state.result)).sum())
+    found = [_fixes_of(mv, detailed, saved) for mv in chosen] if detailed is not None else []
     for mv in chosen:
         mv.apply(state.data)
     state.check()
-    if int((~state.result.passed).sum()) > before:  # the kept moves interfered: keep what was there
+    if int((~state.ok(state.result)).sum()) > before:  # the kept moves interfered: keep what was there
         state.data = saved
         state.check()
         return []
@@ -219,7 +237,7 @@ def _round(state: State, hopeless: dict[int, Infeasible], detailed: Audit, fixes
 def _targets(state: State, hopeless: dict[int, Infeasible]) -> dict[str, list[int]]:
     r, tree = state.result, state.tree
     out: dict[str, list[int]] = {}
-    for i in np.flatnonzero(~r.passed).tolist():
+    for i in np.flatnonzero(~state.ok(r)).tolist():
         if i in hopeless:
             continue
         up = int(r.upstream[i])
