@@ -194,3 +194,80 @@ def test_repair_keeps_a_passing_plan_unchanged():
 
     fixed = repair(tree, check_tree(tree, detail=False))
     assert fixed.ok and fixed.changes == []
+
+
+# --- repair of generated failing plans, objectives, Pareto set, wording ------------------
+
+def _failing_plan(n: int, seed: int):
+    """A planned tree with the search switched off: ideal ratios, first-guess topologies —
+    a realistic failing plan (β loading and Early effect not yet cancelled)."""
+    return plan_blocks(BlockList.model_validate(random_blocks(n, seed)), search=False)
+
+
+def test_repair_of_a_generated_failing_plan_passes_check():
+    from biastree.analysis.pipeline import check_tree
+    from biastree.planner.repair import repair
+
+    o = _failing_plan(120, 3)
+    tree = o.tree
+    before = check_tree(tree, detail=False)
+    assert int((~before.passed).sum()) > 0
+    fixed = repair(tree, before)
+    assert fixed.ok, [i.text() for i in fixed.infeasible]
+    checked = biastree.check(biastree.loads(fixed.text))
+    assert bool(checked.passed.all())
+    assert checked.margin.tolist() == fixed.result.margin.tolist()  # the verdicts are check's, to the last bit
+    failing = {n for n, p in zip(tree.loads, before.passed) if not p}
+    covered = {n for c in fixed.changes for n in c.loads}
+    assert failing <= covered  # every failing load has a change that names it
+    for c in fixed.changes:
+        assert c.why and c.before and c.after and "→" in c.effect
+
+
+def test_repair_wording_is_plain(tmp_path):
+    r = CliRunner().invoke(app, ["plan", "--repair", str(ROOT / "samples" / "die_spread.yaml"), "-o", str(tmp_path / "f.yaml")])
+    assert r.exit_code == 0, r.output
+    assert "mismatch 3σ" in r.output and "k-σ" not in r.output and "k·σ" not in r.output
+    for word in ("why:", "before:", "after:", "effect:", "cost:", "total cost:"):
+        assert word in r.output
+
+
+def test_repair_names_what_cannot_pass_and_keeps_passing_plans():
+    runner = CliRunner()
+    r = runner.invoke(app, ["plan", "--repair", str(ROOT / "samples" / "failing_budgets.yaml")])
+    assert r.exit_code == 1
+    # hot_node sits 0.5 V below the supply: a pnp output needs about one V_EB (≈ 0.69 V) there
+    assert "hot_node: compliance: short by" in r.output
+    # fine_trim: 2 % budget − 1 % reference leaves 1 %, and the npn's Early effect over 1–3 V spans
+    # ≈ 2 V / 70 V = 2.9 % (±1.4 %); every higher-output-resistance topology needs more than 1 V
+    assert "fine_trim: budget" in r.output and "tried on n_top" in r.output
+    r = runner.invoke(app, ["plan", "--repair", str(ROOT / "samples" / "mixed_topologies.yaml")])
+    assert r.exit_code == 0 and "no change found" in r.output
+
+
+def test_area_objective_never_more_area_than_power():
+    from biastree.planner.alternatives import economise_area
+    from biastree.planner.synthesis import finish
+
+    for blocks in (BlockList.model_validate(random_blocks(30, 21)), BlockList.model_validate(random_blocks(12, 2))):
+        power = plan_blocks(blocks)
+        data = economise_area(power.data)
+        area = biastree.check(biastree.loads(finish(data, "area")[0]))
+        assert bool(area.passed.all())
+        assert area.summary()["device_units"] <= power.figures.device_units
+    # on the first list it is a real saving (measured: 1297 → 993 unit devices)
+
+
+def test_pareto_set_is_several_distinct_non_dominated_passing_plans():
+    from biastree.planner.alternatives import alternatives
+
+    out = plan_blocks(BlockList.model_validate(random_blocks(30, 21)))
+    alts = alternatives(out)
+    figs = [f for f, _ in alts]
+    assert 3 <= len(figs) <= 5
+    for a in figs:
+        assert not any(b.dominates(a) for b in figs)
+    assert len({(f.overhead_power, f.device_units, f.worst_margin) for f in figs}) == len(figs)
+    for f, alt in alts:
+        checked = biastree.check(biastree.loads(alt.text))
+        assert bool(checked.passed.all()) and float(checked.margin.min()) == f.worst_margin

@@ -44,7 +44,7 @@ def plan(
         tree = load_tree(file)
         from biastree.analysis.pipeline import check_tree
 
-        fixed = do_repair(tree, check_tree(tree, detail=False), fb)
+        fixed = do_repair(tree, check_tree(tree, detail=False), fb, objective=objective.value)
         typer.echo(repair_text(fixed), nl=False, err=output is None)
         if fixed.ok:
             emit(fixed.text, output)
@@ -53,9 +53,17 @@ def plan(
     from biastree.planner.synthesis import plan_blocks
 
     blocks = load_blocks(file)
-    out = plan_blocks(blocks, objective.value if objective != Objective.margin else "power", alternatives=pareto or objective == Objective.margin)
-    if objective == Objective.margin and out.alternatives:
-        out = max((alt for _, alt in out.alternatives), key=lambda o: o.figures.worst_margin)  # type: ignore[union-attr]
+    out = plan_blocks(blocks, "power")  # the power-lean plan; the other objectives start from it
+    if out.ok and (pareto or objective != Objective.power):
+        from biastree.planner.alternatives import alternatives
+
+        alts = alternatives(out, blocks.title)
+        pick = {Objective.power: lambda f: (f.overhead_power, f.device_units),
+                Objective.area: lambda f: (f.device_units, f.overhead_power),
+                Objective.margin: lambda f: (-f.worst_margin, f.overhead_power)}[objective]
+        best = min(alts, key=lambda a: pick(a[0]))[1] if alts else out
+        best.alternatives = alts if pareto else []
+        out = best
     # with -o the summary goes to stdout; without, the plan does and the summary goes to stderr
     typer.echo(summary_text(out), nl=False, err=output is None)
     if out.ok:

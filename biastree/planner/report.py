@@ -36,13 +36,34 @@ def summary_text(out: Any) -> str:
     return "\n".join(lines) + "\n"
 
 
+def _cost_text(power: float, area: float, gate_area: float) -> str:
+    parts = [f"{'+' if power >= 0 else '−'}{format_si(abs(power), 'W')}",
+             f"{area:+.4g} unit devices"]
+    if gate_area:
+        parts.append(f"{gate_area * 1e12:+.4g} µm² MOS gate")
+    return ", ".join(parts)
+
+
 def repair_text(fixed: Any) -> str:
+    """Each change: what, why (the term that decides), before → after, its effect and its cost."""
     lines = [f"before: {_figures_line(fixed.before)}"]
     if fixed.changes:
         lines.append(f"changes ({len(fixed.changes)}, found and checked together):")
-        for c in fixed.changes:
-            cost = f"  [{format_si(c.power, 'W')}, {c.area:+g} units]" if (c.power or c.area) else ""
-            lines.append(f"  {c.kind} {c.target}: {c.before} → {c.after}{cost} — {c.why}")
+        for k, c in enumerate(fixed.changes, 1):
+            lines.append(f"{k:>3}. {c.kind} {c.target}" + (f" for {_names(c.loads)}" if c.loads else ""))
+            if c.why:
+                lines.append(f"     why:    {c.why}")
+            if c.how:
+                lines.append(f"     change: {c.how}")
+            lines.append(f"     before: {c.before}")
+            lines.append(f"     after:  {c.after}")
+            if c.effect:
+                lines.append(f"     effect: {c.effect}")
+            lines.append(f"     cost:   {_cost_text(c.power, c.area, c.gate_area)}")
+        dp = fixed.after.overhead_power - fixed.before.overhead_power
+        da = fixed.after.device_units - fixed.before.device_units
+        dg = fixed.after.mos_gate_area - fixed.before.mos_gate_area
+        lines.append(f"total cost: {_cost_text(dp, da, dg)} (the whole plan, after − before)")
     else:
         lines.append("no change found")
     lines.append(f"after:  {_figures_line(fixed.after)}")
@@ -50,3 +71,7 @@ def repair_text(fixed: Any) -> str:
         lines.append("still failing (cannot be repaired within the limits):")
         lines += [f"  {i.text()}" for i in fixed.infeasible]
     return "\n".join(lines) + "\n"
+
+
+def _names(loads: list[str], shown: int = 4) -> str:
+    return ", ".join(loads[:shown]) + (f" (+{len(loads) - shown} more)" if len(loads) > shown else "")
