@@ -57,7 +57,7 @@ def plan(
     if out.ok and (pareto or objective != Objective.power):
         from biastree.planner.alternatives import alternatives
 
-        alts = alternatives(out, blocks.title)
+        alts = alternatives(out, blocks)
         pick = {Objective.power: lambda f: (f.overhead_power, f.device_units),
                 Objective.area: lambda f: (f.device_units, f.overhead_power),
                 Objective.margin: lambda f: (-f.worst_margin, f.overhead_power)}[objective]

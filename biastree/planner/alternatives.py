@@ -99,15 +99,24 @@ def _outcome(base: Outcome, data: dict[str, Any], what: str, title: str) -> Outc
     return Outcome(data, text, tree, result, fig, [], list(base.changes), list(base.decisions) + [f"variant: {what}"])
 
 
-def alternatives(base: Outcome, title: str = "") -> list[tuple[Figures, Outcome]]:
-    """The Pareto set around the power-lean plan ``base``: area-lean, power-lean and margin-rich
-    plans, none beaten on power, area and worst margin at once; power-lean first."""
+def alternatives(base: Outcome, blocks: Any = None) -> list[tuple[Figures, Outcome]]:
+    """The Pareto set around the power-lean plan ``base`` of ``blocks``: area-lean, power-lean and
+    margin-rich plans, none beaten on power, area and worst margin at once; power-lean first."""
+    from biastree.planner.synthesis import plan_blocks
+
     assert base.data is not None and base.figures is not None and base.result is not None
+    title = getattr(blocks, "title", "") or ""
     t = f" ({title})" if title else ""
     cands: list[tuple[Figures, Outcome]] = [(base.figures, base)]
-    area = _outcome(base, economise_area(base.data), "least device area", t)
-    if area.ok:
-        cands.append((area.figures, area))  # type: ignore[arg-type]
+    starts = [(1.0, base)]
+    if blocks is not None:  # larger intermediate currents: fewer output units per block, more power
+        starts += [(k, plan_blocks(blocks, "power", k)) for k in (2.0, 4.0, 8.0)]
+    for k, start in starts:
+        if not start.ok or start.data is None:
+            continue
+        area = _outcome(start, economise_area(start.data), f"least device area, intermediate currents ×{k:g}", t)
+        if area.ok:
+            cands.append((area.figures, area))  # type: ignore[arg-type]
     r = base.result
     room = float(np.min(r.tolerance - r.reference_tolerance))  # the tightest budget's room
     data = base.data

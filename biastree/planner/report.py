@@ -27,10 +27,13 @@ def summary_text(out: Any) -> str:
         lines.append(_figures_line(out.figures))
     if out.alternatives:
         lines.append("alternatives (passing, none beaten on power, area and margin at once):")
-        lines.append(f"  {'#':>2}  {'overhead':>10}  {'power':>10}  {'units':>7}  {'worst margin':>12}  mirrors")
-        for k, (f, _) in enumerate(out.alternatives, 1):
+        lines.append(f"  {'#':>2}  {'overhead':>10}  {'power':>10}  {'units':>7}  {'worst margin':>12}  {'mirrors':>7}  plan")
+        for k, (f, alt) in enumerate(out.alternatives, 1):
+            what = next((d[len("variant: "):] for d in reversed(getattr(alt, "decisions", [])) if d.startswith("variant: ")),
+                        "least power")
+            mark = "  ← written" if alt is out else ""
             lines.append(f"  {k:>2}  {format_si(f.overhead_current, 'A'):>10}  {format_si(f.overhead_power, 'W'):>10}  "
-                         f"{f.device_units:>7g}  {f.worst_margin * 100:>+11.3g}%  {f.mirrors}")
+                         f"{f.device_units:>7g}  {f.worst_margin * 100:>+11.3g}%  {f.mirrors:>7}  {what}{mark}")
     if out.result is not None and not out.infeasible:
         lines.append("every verdict above is what `biastree check` gives on the written plan")
     return "\n".join(lines) + "\n"
