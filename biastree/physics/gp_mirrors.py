@@ -143,11 +143,12 @@ def _simple_nested(g: Any, p: gp.GummelPoon, out_p: gp.GummelPoon, units: Array)
 
 
 def newton_system(residual, x0: Array, tol: float = 1e-13, iters: int = 100,  # type: ignore[no-untyped-def]
-                  jacobian: bool = False) -> Array:
+                  jacobian: bool = False, settled=None) -> Array:
     """Solve residual(x) = 0 for x of shape (..., n), every leading index its own small
     system: Newton's method with steps limited to 0.1 V, as SPICE limits junction
     voltages.  With ``jacobian``, ``residual`` returns (f, ∂f/∂x) with ∂f_i/∂x_j at
-    [..., i, j]; otherwise the Jacobian is a finite difference."""
+    [..., i, j]; otherwise the Jacobian is a finite difference.  ``settled()`` (if given)
+    must also hold to stop: the devices' internal nodes have converged too."""
     x = np.array(x0, dtype=float)
     n = x.shape[-1]
     h = 1e-8
@@ -164,7 +165,7 @@ def newton_system(residual, x0: Array, tol: float = 1e-13, iters: int = 100,  # 
         step = np.linalg.solve(jac, f[..., None])[..., 0]
         step = np.clip(step, -0.1, 0.1)
         x = x - step
-        if np.all(np.abs(step) <= tol):
+        if np.all(np.abs(step) <= tol) and (settled is None or settled()):
             break
     return x
 
@@ -175,16 +176,58 @@ def _current(base: Array, collector: Array, emitter: Array, p: gp.GummelPoon) ->
 
 
 
+class _Internal:
+    """The internal junction voltages of a topology's devices, carried from one Newton
+    iteration of its nodes to the next, so that nodes and internal nodes are solved
+    jointly: each evaluation linearises a device once at its internal voltages (moved
+    first by the Newton step that follows the terminals' latest move) and returns the
+    currents that step predicts, I − G·f, with the terminal conductances G — instead
+    of solving the internal nodes to convergence at every trial of the nodes."""
+
+    def __init__(self) -> None:
+        self.state: dict[str, tuple[Array, Array, Array, Array, gp.Linear]] = {}
+        self.moved = np.inf  # largest internal step of the last evaluations
+
+    def settled(self) -> bool:
+        done = self.moved <= 1e-13
+        self.moved = 0.0
+        return done
+
+    def terminal(self, key: str, vbe: Array, vbc: Array, p: gp.GummelPoon) -> tuple[Array, Array, tuple[Array, ...]]:
+        if not p.flags["res"]:
+            return gp.terminal_g(vbe, vbc, p)
+        old = self.state.get(key)
+        if old is None or old[0].shape != np.shape(vbe):
+            x, y = np.array(vbe, dtype=float), np.array(vbc, dtype=float)
+            self.moved = np.inf
+        else:
+            x, y, vbe0, vbc0, lin = old
+            dx, dy = lin.delta(vbe - vbe0, vbc - vbc0)
+            dx, dy = np.clip(dx, -0.1, 0.1), np.clip(dy, -0.1, 0.1)
+            x, y = x + dx, y + dy
+            self.moved = max(self.moved, float(np.max(np.abs(dx), initial=0.0)), float(np.max(np.abs(dy), initial=0.0)))
+        lin = gp.linearise(x, y, vbe, vbc, p)
+        self.state[key] = (x, y, vbe, vbc, lin)
+        ic, ib = lin.currents_at(0.0, 0.0)
+        return ic, ib, lin.g
+
+
 def _device(x: Array, base: Any, collector: Any, emitter: Any, p: gp.GummelPoon,
-            rows: Array | None = None) -> tuple[Array, Array, Array, Array]:
+            rows: Array | None = None, internal: tuple[_Internal, str] | None = None) -> tuple[Array, Array, Array, Array]:
     """(I_C, I_B) of a unit device and their gradients with respect to the unknowns x
     (last axis), each terminal an unknown's index or a fixed voltage; ``rows`` picks the
     mirror of each branch.  V_BE = B − E and V_BC = B − C, so ∂/∂B = g_be + g_bc,
-    ∂/∂C = −g_bc, ∂/∂E = −g_be (the terminal conductances of ``gp.terminal_g``)."""
+    ∂/∂C = −g_bc, ∂/∂E = −g_be (the terminal conductances).  With ``internal`` the
+    device's internal nodes take one joint Newton step (``_Internal``); without, they
+    are solved to convergence (``gp.terminal_g``)."""
     xs = x if rows is None else x[rows]
     val = lambda node: xs[..., node] if isinstance(node, int) else node  # noqa: E731
     vb, vc, ve = val(base), val(collector), val(emitter)
-    ic, ib, (a, b, c, d) = gp.terminal_g(vb - ve, vb - vc, p)
+    vbe, vbc = np.broadcast_arrays(vb - ve, vb - vc)
+    if internal is None:
+        ic, ib, (a, b, c, d) = gp.terminal_g(vbe, vbc, p)
+    else:
+        ic, ib, (a, b, c, d) = internal[0].terminal(internal[1], vbe, vbc, p)
     dic = np.zeros(ic.shape + (x.shape[-1],))
     dib = np.zeros_like(dic)
     for node, w_be, w_bc in ((base, 1.0, 1.0), (collector, 0.0, -1.0), (emitter, -1.0, 0.0)):
@@ -217,10 +260,12 @@ def beta_helper(g: Any, p: gp.GummelPoon) -> Solution:
     zero = np.zeros_like(g.i_in)
     B, N = 0, 1  # noqa: N806 (node names)
 
+    inner = _Internal()
+
     def resid(x: Array) -> tuple[Array, Array]:
-        ic1, ib1, dic1, dib1 = _device(x, B, N, zero, p)
-        ich, ibh, dich, dibh = _device(x, N, top, B, p)
-        _, ibk, _, dibk = _device(x, B, g.distance, 0.0 * g.distance, out_p, rows=r)
+        ic1, ib1, dic1, dib1 = _device(x, B, N, zero, p, internal=(inner, "q1"))
+        ich, ibh, dich, dibh = _device(x, N, top, B, p, internal=(inner, "helper"))
+        _, ibk, _, dibk = _device(x, B, g.distance, 0.0 * g.distance, out_p, rows=r, internal=(inner, "out"))
         f_n = a0 * ic1 + hs * ibh - g.i_in
         f_b = hs * (ich + ibh) - a0 * ib1 - g.segment_sum(units * ibk) - bleed
         j_n = a0[..., None] * dic1 + hs[..., None] * dibh
@@ -229,7 +274,7 @@ def beta_helper(g: Any, p: gp.GummelPoon) -> Solution:
 
     vb0 = gp.vbe_guess(g.i_in / a0, p)
     vn0 = vb0 + gp.vbe_guess(np.maximum(g.i_in / a0 * 0.05 + bleed / hs, 1e-12), p)
-    x = newton_system(resid, np.stack([vb0, vn0], axis=-1), jacobian=True)
+    x = newton_system(resid, np.stack([vb0, vn0], axis=-1), jacobian=True, settled=inner.settled)
     vb, vn = x[..., 0], x[..., 1]
     ic, _ = _current(vb[r], g.distance, 0.0 * g.distance, out_p)
     ich, _ = _current(vn, top, vb, p)
@@ -250,15 +295,17 @@ def wilson(g: Any, p: gp.GummelPoon, four: bool = False) -> Solution:
     zero = np.zeros_like(g.i_in)
     B, N, X = 0, 1, (2 if four else 1)  # noqa: N806 (node names; the three-device X is N)
 
+    inner = _Internal()
+
     def resid(x: Array) -> tuple[Array, Array]:
-        ic1, ib1, dic1, dib1 = _device(x, B, X, zero, p)
-        ic2, ib2, dic2, dib2 = _device(x, B, B, zero, q2)
-        ic3, ib3, dic3, dib3 = _device(x, N, d, B, p)
+        ic1, ib1, dic1, dib1 = _device(x, B, X, zero, p, internal=(inner, "q1"))
+        ic2, ib2, dic2, dib2 = _device(x, B, B, zero, q2, internal=(inner, "q2"))
+        ic3, ib3, dic3, dib3 = _device(x, N, d, B, p, internal=(inner, "q3"))
         ma, a = (m * a0)[..., None], a0[..., None]
         f_b = m * a0 * (ic3 + ib3) - m * a0 * (ic2 + ib2) - a0 * ib1
         j_b = ma * (dic3 + dib3) - ma * (dic2 + dib2) - a * dib1
         if four:
-            ic4, ib4, dic4, dib4 = _device(x, N, N, X, p)
+            ic4, ib4, dic4, dib4 = _device(x, N, N, X, p, internal=(inner, "q4"))
             f_n = a0 * (ic4 + ib4) + m * a0 * ib3 - g.i_in
             f_x = a0 * ic1 - a0 * (ic4 + ib4)
             j_n = a * (dic4 + dib4) + ma * dib3
@@ -271,7 +318,7 @@ def wilson(g: Any, p: gp.GummelPoon, four: bool = False) -> Solution:
     vb0 = gp.vbe_guess(g.i_in / a0, p) - p.nf * p.vt * np.log(np.maximum(m, 1e-9))
     vn0 = vb0 + gp.vbe_guess(g.i_in / a0, p)
     start = [vb0, vn0] + ([vn0 - gp.vbe_guess(g.i_in / a0, p)] if four else [])
-    x = newton_system(resid, np.stack(start, axis=-1), jacobian=True)
+    x = newton_system(resid, np.stack(start, axis=-1), jacobian=True, settled=inner.settled)
     vb, vn = x[..., 0], x[..., 1]
     ic3, _ = _current(vn, d, vb, p)
     current = m * a0 * ic3
