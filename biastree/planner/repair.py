@@ -43,7 +43,7 @@ from biastree.errors import BiasTreeError
 from biastree.input.model import Plan
 from biastree.planner.costs import Figures, figures
 from biastree.planner.evaluation import Evaluator, Infeasible, infeasible
-from biastree.planner.moves import Limits, Move, State, candidates, grown, ratio_text
+from biastree.planner.moves import Limits, Move, State, candidates, grown, mirror_cost, ratio_text
 from biastree.planner.synthesis import finish
 from biastree.tree.arrays import Tree
 from biastree.units import format_percent, format_si
@@ -306,20 +306,13 @@ def _fixes_of(move: Move, detailed: Audit, data: dict[str, Any]) -> Fix:
 
 
 def _mirror_cost(tree: Tree, r: Audit, name: str, area_of: dict[str, float]) -> tuple[float, float, float]:
-    """(overhead current, unit devices, MOS gate area) one mirror draws / holds."""
-    from biastree.physics.topologies import TOPOLOGIES
-
+    """(overhead current, unit devices, MOS gate area) one mirror draws / holds (``moves.mirror_cost``
+    in plain unit devices, plus the gate area of a MOS mirror's units)."""
+    cur, units = mirror_cost(tree, r, name, {})
     if name not in tree.mirrors:
-        return 0.0, 0.0, 0.0
+        return cur, units, 0.0
     m = tree.mirrors.index(name)
-    spec = tree.plan.mirrors[name]
-    mult = float(tree.m_mult[m])
-    units = mult * TOPOLOGIES[spec.topology].units(spec.input_size, float(tree.m_fanout[m]),
-                                                  {"helper_size": spec.helper_size, "swing_n": spec.swing_n})
-    cur = float(r.op.m_extra[m, 1]) * mult
-    for b in np.flatnonzero((tree.b_parent == m) & ~tree.b_to_load).tolist():
-        cur += float(r.op.b_current[b, 1]) * float(tree.b_count[b]) * mult
-    dev = tree.plan.devices[spec.device]
+    dev = tree.plan.devices[tree.plan.mirrors[name].device]
     gate = units * dev.w * dev.l if not tree.m_bipolar[m] else 0.0  # type: ignore[union-attr]
     return cur, units, gate
 
