@@ -455,13 +455,14 @@ def validate(doc: Document, model: Any = Plan) -> Any:
         described = [_describe(err, doc.data, model) for err in errors]
         # a misspelt required key is one slip: said once, at the misspelling
         missing = {loc for loc, message in described if message == _MESSAGES["missing"]}
+        meant: set[tuple[Any, ...]] = set()
         for k, (loc, message) in enumerate(described):
             close = re.search(r"\(did you mean '(.+)'\?\)$", message) if loc else None
-            if close and loc[:-1] + (close.group(1),) in missing:
-                missing.discard(loc[:-1] + (close.group(1),))
+            if close and loc[:-1] + (close.group(1),) in missing - meant:
+                meant.add(loc[:-1] + (close.group(1),))
                 described[k] = loc, f"unknown key (did you mean '{close.group(1)}'? it is required and missing)"
-                described = [(lc, m) if not (lc == loc[:-1] + (close.group(1),) and m == _MESSAGES["missing"])
-                             else ((), "") for lc, m in described]
+        described = [(loc, "" if loc in meant and message == _MESSAGES["missing"] else message)
+                     for loc, message in described]
         for loc, message in described:
             if not message:
                 continue

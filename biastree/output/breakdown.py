@@ -7,6 +7,7 @@ from typing import Any
 
 from biastree.analysis.audit import Audit
 from biastree.analysis.solve import CASES
+from biastree.input.model import Plausible
 from biastree.physics.devices import Array
 from biastree.units import format_percent, format_si
 
@@ -67,8 +68,8 @@ def _unit_of(annotation: object, metadata: list[object]) -> str | None:
     from typing import get_args
 
     for m in metadata:
-        if hasattr(m, "unit") and hasattr(m, "low"):
-            return str(m.unit)
+        if isinstance(m, Plausible):
+            return m.unit
     for arg in get_args(annotation):
         found = _unit_of(arg, list(getattr(arg, "__metadata__", ())))
         if found is not None:
