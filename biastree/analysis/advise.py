@@ -13,26 +13,22 @@ number comes from a re-solve.
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Callable
 from dataclasses import dataclass
 from functools import partial
-from typing import Callable
 
 import numpy as np
 
-from biastree.analysis.audit import Audit
-from biastree.analysis.audit import audit
+from biastree.analysis.audit import Audit, audit
 from biastree.analysis.corners import ConditionResult
 from biastree.analysis.pipeline import check_tree
-from biastree.analysis.solve import solve
+from biastree.analysis.solve import DEEP_TREE, solve
 from biastree.analysis.spread import analytic
+from biastree.analysis.trials import INDEPENDENT as _INDEPENDENT
+from biastree.analysis.trials import outcomes
 from biastree.physics.topologies import TOPOLOGIES
 from biastree.tree.arrays import Tree
 from biastree.units import format_percent, format_si
-
-# Families in which a topology's input voltage and its other outputs do not
-# depend on one output's voltage (no base current that varies with it):
-# changing what hangs below one branch then touches that branch alone.
-_INDEPENDENT = {"simple": ("bjt", "mos"), "beta_helper": ("bjt",), "cascode": ("mos",), "wide_swing": ("mos",)}
 
 FIRST_TRIALS = 12  # trials always run on small plans (those addressing the most failing loads)
 SMALL_PLAN = 200  # mirrors
@@ -245,42 +241,107 @@ def _within_budget(result: Audit, wanted: dict[tuple[str, str], int]) -> list[tu
     return chosen
 
 
+@dataclass(frozen=True)
+class Outcome:
+    """What one load would get from one trial: the numbers its hint prints."""
+
+    passed: bool
+    budget: bool  # still over its budget
+    compliance: float  # V, over the voltage range
+    headroom: bool  # a branch between mirrors on its path still out of compliance
+    error: float  # worst error (voltage range, or conditions when larger)
+    tolerance: float
+
+
+def _outcome(new: Audit, i: int) -> Outcome:
+    return Outcome(bool(new.passed[i]), bool(new.margin[i] < 0), float(new.compliance[i]), bool(new.upstream[i] >= 0),
+                   new.worst_error(i)[0], float(new.tolerance[i]))
+
+
+def _line(why: list[Callable[[], str]], mirror: str, topo: str, o: Outcome) -> str:
+    if o.passed:
+        status = "would pass"
+    else:
+        left = [k for k, bad in (("budget", o.budget), ("compliance", o.compliance < 0), ("headroom", o.headroom)) if bad]
+        status = f"would still fail ({', '.join(left)})"
+    detail = (f"error {format_percent(o.error)} (budget ±{o.tolerance * 100:.3g} %), "
+              f"compliance margin {format_si(o.compliance, 'V')}")
+    return f"{'; '.join(m() for m in why)}: {topo} at {mirror} {status}: {detail}"
+
+
+def _fast(result: Audit, keys: list[tuple[str, str]], loads: dict[tuple[str, str], list[int]]) \
+        -> dict[tuple[tuple[str, str], int], Outcome]:
+    """Every trial's outcomes from one restricted re-solve of all of them
+    (``analysis.trials``); a trial whose rows do not settle is re-solved in full."""
+    tree = result.tree
+    plan = tree.plan
+    index = {name: i for i, name in enumerate(tree.mirrors)}
+    specs = {}
+    usable = []
+    for key in keys:
+        topo = key[1]
+        if topo not in specs:
+            try:
+                specs[topo] = _changed(plan.mirrors[key[0]], topo)
+            except Exception:  # noqa: BLE001 — a topology that cannot be built is left to the full re-solve
+                specs[topo] = None
+        if specs[topo] is not None:
+            usable.append(key)
+    pair_trial = np.array([k for k, key in enumerate(usable) for _ in loads[key]], dtype=np.int64)
+    pair_load = np.array([i for key in usable for i in loads[key]], dtype=np.int64)
+    out: dict[tuple[tuple[str, str], int], Outcome] = {}
+    if usable:
+        got = outcomes(result, np.array([index[m] for m, _ in usable]), [t for _, t in usable], specs,
+                       pair_trial, pair_load)
+        for k, i, ok, passed, margin, comp, head, err, tol in zip(
+                got.trial.tolist(), got.load.tolist(), got.solved.tolist(), got.passed.tolist(),
+                (got.margin < 0).tolist(), got.compliance.tolist(), got.headroom_lost.tolist(), got.error.tolist(),
+                got.tolerance.tolist()):
+            if ok:
+                out[(usable[k], i)] = Outcome(passed, margin, comp, head, err, tol)
+    for key in keys:  # what the rows could not answer: one full re-solve each
+        if any((key, i) not in out for i in loads[key]):
+            trial = _trial(result, *key)
+            if trial.result is not None:
+                for i in loads[key]:
+                    out[(key, i)] = _outcome(trial.result, i)
+    return out
+
+
 def hints(result: Audit, batched: bool = True) -> dict[int, list[str]]:
     """Hints per failing load index (empty when nothing tried helps).
 
-    Every candidate change is tried.  ``batched`` (the default) answers many
-    trials with one re-solve (see ``waves``); ``batched=False`` re-solves the
-    tree once per trial, the slow path the tests compare against."""
+    Every candidate change is tried, for every failing load.  ``batched`` (the
+    default) answers all trials with one restricted re-solve of the mirrors
+    they can move (``analysis.trials``; on trees deeper than ``DEEP_TREE``
+    generations, many trials per re-solve within a budget, see ``waves``);
+    ``batched=False`` re-solves the tree once per trial, the slow path the
+    tests compare against."""
     failing = [int(i) for i in np.flatnonzero(~result.passed)]
-    wanted: dict[tuple[str, str], int] = {}
-    motives: dict[int, list[tuple[str, str, str]]] = {}
+    motives: dict[int, dict[tuple[str, str], list[Callable[[], str]]]] = {}
+    loads: dict[tuple[str, str], list[int]] = {}
     for i in failing:
-        motives[i] = _candidates(result, i)
-        for mirror, topo, _ in motives[i]:
-            wanted[(mirror, topo)] = wanted.get((mirror, topo), 0) + 1
-    keys = _within_budget(result, wanted)
-    trials = _run_waves(result, keys) if batched else {key: _trial(result, *key) for key in keys}
+        by_trial: dict[tuple[str, str], list[Callable[[], str]]] = {}
+        for mirror, topo, motive in _candidates(result, i):
+            by_trial.setdefault((mirror, topo), []).append(motive)
+        motives[i] = by_trial
+        for key in by_trial:
+            loads.setdefault(key, []).append(i)
+    found: dict[tuple[tuple[str, str], int], Outcome] = {}
+    if not batched or len(result.tree.generations) > DEEP_TREE:
+        counts = {key: len(v) for key, v in loads.items()}
+        keys = list(loads) if not batched else _within_budget(result, counts)
+        trials = _run_waves(result, keys) if batched else {key: _trial(result, *key) for key in keys}
+        for key, trial in trials.items():
+            if trial.result is not None:
+                for i in loads[key]:
+                    found[(key, i)] = _outcome(trial.result, i)
+    else:
+        found = _fast(result, list(loads), loads)
     out: dict[int, list[str]] = {}
     for i in failing:
-        lines = []
-        by_trial: dict[tuple[str, str], list[Callable[[], str]]] = {}
-        for mirror, topo, motive in motives[i]:
-            by_trial.setdefault((mirror, topo), []).append(motive)
-        for (mirror, topo), why in by_trial.items():
-            trial = trials.get((mirror, topo))
-            if trial is None or trial.result is None:
-                continue
-            new = trial.result
-            err, _ = new.worst_error(i)
-            if new.passed[i]:
-                status = "would pass"
-            else:
-                left = [k for k, bad in (("budget", new.margin[i] < 0), ("compliance", new.compliance[i] < 0),
-                                         ("headroom", new.upstream[i] >= 0)) if bad]
-                status = f"would still fail ({', '.join(left)})"
-            detail = (f"error {format_percent(err)} (budget ±{new.tolerance[i] * 100:.3g} %), "
-                      f"compliance margin {format_si(float(new.compliance[i]), 'V')}")
-            lines.append(f"{'; '.join(m() for m in why)}: {topo} at {mirror} {status}: {detail}")
+        lines = [_line(why, mirror, topo, found[((mirror, topo), i)])
+                 for (mirror, topo), why in motives[i].items() if ((mirror, topo), i) in found]
         if lines:
             out[i] = lines
     return out

@@ -593,11 +593,15 @@ def _solve_rows(tree: Tree, rows: Rows, base: OperatingPoint) -> RowsPoint:
         dist[fed] = supply - v_in[child]
         distance[brows] = dist
         taken, params, ratio, count, is_scale, vt_shift, k_scale = static
-        if cols.remote is not None:
-            is_scale, vt_shift, k_scale = ctx._remote(g, current[brows], dist, is_scale, vt_shift, k_scale)
-        out = TOPOLOGIES[g.topology].solve(GroupInput(
-            dev=taken, params=params, i_in=i_in[sel], row=g.row, ratio=ratio, count=count, distance=dist,
-            supply=supply, is_scale=is_scale, vt_shift=vt_shift, k_scale=k_scale))
+        try:
+            if cols.remote is not None:
+                is_scale, vt_shift, k_scale = ctx._remote(g, current[brows], dist, is_scale, vt_shift, k_scale)
+            out = TOPOLOGIES[g.topology].solve(GroupInput(
+                dev=taken, params=params, i_in=i_in[sel], row=g.row, ratio=ratio, count=count, distance=dist,
+                supply=supply, is_scale=is_scale, vt_shift=vt_shift, k_scale=k_scale))
+        except Exception:  # a topology that cannot solve these rows (e.g. not characterised): they are bad
+            failed[sel] = True
+            return
         v_in[sel] = out.v_in
         extra[sel] = out.extra
         current[brows] = out.current
@@ -607,6 +611,7 @@ def _solve_rows(tree: Tree, rows: Rows, base: OperatingPoint) -> RowsPoint:
         i_in[child] = out.current[fed]
 
     moving = np.zeros(len(m), dtype=bool)
+    failed = np.zeros(len(m), dtype=bool)
     for _ in range(MAX_SWEEPS):
         previous = v_in.copy()
         for level in levels:
@@ -615,11 +620,11 @@ def _solve_rows(tree: Tree, rows: Rows, base: OperatingPoint) -> RowsPoint:
         moved = np.abs(v_in - previous).max(axis=1, initial=0.0)
         moving = ~(moved < VOLTAGE_TOL)  # NaN: never settles; such rows are bad anyway
         finite = np.isfinite(v_in).all(axis=1) & np.isfinite(i_in).all(axis=1)
-        if not np.any(moving & finite):
+        if not np.any(moving & finite & ~failed):
             break
     fed = np.flatnonzero(rows.b_child >= 0)
     distance[fed] = supply - v_in[rows.b_child[fed]]
-    bad = moving | ~np.isfinite(v_in).all(axis=1)
+    bad = moving | failed | ~np.isfinite(v_in).all(axis=1)
     bad_branch = ~np.isfinite(current).all(axis=1) | ~np.isfinite(distance).all(axis=1)
     bad[rows.b_row[bad_branch]] = True
     return RowsPoint(rows, i_in, v_in, extra, current, distance, b_min - shift, internal, bad)
