@@ -26,9 +26,9 @@ from biastree.analysis.solve import DEEP_TREE, solve
 from biastree.analysis.spread import analytic
 from biastree.analysis.trials import INDEPENDENT as _INDEPENDENT
 from biastree.analysis.trials import outcomes
-from biastree.physics.topologies import TOPOLOGIES
+from biastree.physics.topologies import TERM_LABELS, TOPOLOGIES
 from biastree.tree.arrays import Tree
-from biastree.units import format_percent, format_si
+from biastree.units import format_percent, format_si, format_si_array
 
 FIRST_TRIALS = 12  # trials always run on small plans (those addressing the most failing loads)
 SMALL_PLAN = 200  # mirrors
@@ -241,36 +241,96 @@ def _within_budget(result: Audit, wanted: dict[tuple[str, str], int]) -> list[tu
     return chosen
 
 
-@dataclass(frozen=True)
-class Outcome:
-    """What one load would get from one trial: the numbers its hint prints."""
+def _motives(result: Audit, failing: np.ndarray) -> dict[int, dict[tuple[str, str], list[str]]]:
+    """For each failing load, the trials worth running (mirror, topology) and
+    the words saying why, in the order ``_candidates`` gives them — built for
+    all loads at once (``_candidates`` is the same rule for one load)."""
+    tree = result.tree
+    plan = tree.plan
+    n = len(failing)
+    specs = [plan.mirrors[m] for m in tree.mirrors]
+    topo = [s.topology for s in specs]
+    family = ["bjt" if b else "mos" for b in tree.m_bipolar.tolist()]
+    first = np.searchsorted(tree.b_parent, np.arange(len(tree.mirrors)))
+    n_out = np.diff(np.append(first, len(tree.b_parent)))
+    single = ((n_out == 1) & (tree.b_count[np.minimum(first, len(tree.b_parent) - 1)] == 1)).tolist()
 
-    passed: bool
-    budget: bool  # still over its budget
-    compliance: float  # V, over the voltage range
-    headroom: bool  # a branch between mirrors on its path still out of compliance
-    error: float  # worst error (voltage range, or conditions when larger)
-    tolerance: float
+    def usable(m: int, t: str) -> bool:
+        spec = TOPOLOGIES[t]
+        return t != topo[m] and family[m] in spec.kinds and (not spec.single_output or single[m])
+
+    index = {name: i for i, name in enumerate(tree.mirrors)}
+    over = (result.margin[failing] < 0).tolist()
+    if result.conditions is None and n:
+        m, k, v, keys = result._largest
+        plan_term = result.ideal[failing] / result.target[failing] - 1.0
+        take = np.abs(v[failing]) > np.abs(plan_term)
+        stage = np.where(take, m[failing], -1).tolist()
+        labels = [TERM_LABELS[keys[int(x)]] for x in k[failing].tolist()]
+        value = np.where(take, v[failing], plan_term)
+    else:  # the deciding condition's terms, load by load
+        terms = [result.largest_term(int(i)) if bad else ("plan", "", 0.0) for i, bad in zip(failing, over)]
+        stage = [-1 if t[0] == "plan" else index[t[0]] for t in terms]
+        labels = [t[1] for t in terms]
+        value = np.array([t[2] for t in terms])
+    pct = [format_percent(x) for x in value.tolist()]
+    parent = tree.b_parent[tree.l_branch[failing]].tolist()
+    short = (result.compliance[failing] < 0).tolist()
+    lacks = format_si_array(-result.compliance[failing], "V")
+    names = tree.mirrors
+    out: dict[int, dict[tuple[str, str], list[str]]] = {}
+    for j, i in enumerate(failing.tolist()):
+        by_trial: dict[tuple[str, str], list[str]] = {}
+        if over[j] and stage[j] >= 0:
+            st = stage[j]
+            for t in _FOR_TERM.get(labels[j], ()):
+                if usable(st, t):
+                    by_trial.setdefault((names[st], t), []).append(f"{labels[j]} at {names[st]} dominates ({pct[j]})")
+        if short[j]:
+            p = parent[j]
+            for t in _FOR_COMPLIANCE[family[p]]:
+                if usable(p, t):
+                    by_trial.setdefault((names[p], t), []).append(f"the output of {names[p]} lacks {lacks[j]}")
+        out[i] = by_trial
+    return out
 
 
-def _outcome(new: Audit, i: int) -> Outcome:
-    return Outcome(bool(new.passed[i]), bool(new.margin[i] < 0), float(new.compliance[i]), bool(new.upstream[i] >= 0),
-                   new.worst_error(i)[0], float(new.tolerance[i]))
+def _lines(passed: np.ndarray, budget: np.ndarray, compliance: np.ndarray, headroom: np.ndarray,
+           error: np.ndarray, tolerance: np.ndarray) -> list[str]:
+    """'would pass: error … (budget ±… %), compliance margin …' per outcome, in bulk."""
+    margin = format_si_array(compliance, "V")
+    out = []
+    for ok, over, c, head, err, tol, cm in zip(passed.tolist(), budget.tolist(), compliance.tolist(),
+                                               headroom.tolist(), error.tolist(), tolerance.tolist(), margin):
+        if ok:
+            status = "would pass"
+        else:
+            left = [k for k, bad in (("budget", over), ("compliance", c < 0), ("headroom", head)) if bad]
+            status = f"would still fail ({', '.join(left)})"
+        out.append(f"{status}: error {format_percent(err)} (budget ±{tol * 100:.3g} %), compliance margin {cm}")
+    return out
 
 
-def _line(why: list[Callable[[], str]], mirror: str, topo: str, o: Outcome) -> str:
-    if o.passed:
-        status = "would pass"
-    else:
-        left = [k for k, bad in (("budget", o.budget), ("compliance", o.compliance < 0), ("headroom", o.headroom)) if bad]
-        status = f"would still fail ({', '.join(left)})"
-    detail = (f"error {format_percent(o.error)} (budget ±{o.tolerance * 100:.3g} %), "
-              f"compliance margin {format_si(o.compliance, 'V')}")
-    return f"{'; '.join(m() for m in why)}: {topo} at {mirror} {status}: {detail}"
+def _from_audits(trials: dict[tuple[str, str], Trial], loads: dict[tuple[str, str], list[int]]) \
+        -> dict[tuple[tuple[str, str], int], str]:
+    """Each (trial, load)'s outcome words, read off the trials' own audits."""
+    pairs, values = [], []
+    for key, trial in trials.items():
+        new = trial.result
+        if new is None:
+            continue
+        for i in loads[key]:
+            pairs.append((key, i))
+            values.append((bool(new.passed[i]), bool(new.margin[i] < 0), float(new.compliance[i]),
+                           bool(new.upstream[i] >= 0), new.worst_error(i)[0], float(new.tolerance[i])))
+    if not pairs:
+        return {}
+    cols = [np.array(c) for c in zip(*values)]
+    return dict(zip(pairs, _lines(*cols)))
 
 
 def _fast(result: Audit, keys: list[tuple[str, str]], loads: dict[tuple[str, str], list[int]]) \
-        -> dict[tuple[tuple[str, str], int], Outcome]:
+        -> dict[tuple[tuple[str, str], int], str]:
     """Every trial's outcomes from one restricted re-solve of all of them
     (``analysis.trials``); a trial whose rows do not settle is re-solved in full."""
     tree = result.tree
@@ -283,28 +343,23 @@ def _fast(result: Audit, keys: list[tuple[str, str]], loads: dict[tuple[str, str
         if topo not in specs:
             try:
                 specs[topo] = _changed(plan.mirrors[key[0]], topo)
-            except Exception:  # noqa: BLE001 — a topology that cannot be built is left to the full re-solve
+            except Exception:  # a topology that cannot be built is left to the full re-solve
                 specs[topo] = None
         if specs[topo] is not None:
             usable.append(key)
-    pair_trial = np.array([k for k, key in enumerate(usable) for _ in loads[key]], dtype=np.int64)
-    pair_load = np.array([i for key in usable for i in loads[key]], dtype=np.int64)
-    out: dict[tuple[tuple[str, str], int], Outcome] = {}
+    out: dict[tuple[tuple[str, str], int], str] = {}
     if usable:
+        pair_trial = np.repeat(np.arange(len(usable)), [len(loads[key]) for key in usable])
+        pair_load = np.array([i for key in usable for i in loads[key]], dtype=np.int64)
         got = outcomes(result, np.array([index[m] for m, _ in usable]), [t for _, t in usable], specs,
                        pair_trial, pair_load)
-        for k, i, ok, passed, margin, comp, head, err, tol in zip(
-                got.trial.tolist(), got.load.tolist(), got.solved.tolist(), got.passed.tolist(),
-                (got.margin < 0).tolist(), got.compliance.tolist(), got.headroom_lost.tolist(), got.error.tolist(),
-                got.tolerance.tolist()):
-            if ok:
-                out[(usable[k], i)] = Outcome(passed, margin, comp, head, err, tol)
-    for key in keys:  # what the rows could not answer: one full re-solve each
-        if any((key, i) not in out for i in loads[key]):
-            trial = _trial(result, *key)
-            if trial.result is not None:
-                for i in loads[key]:
-                    out[(key, i)] = _outcome(trial.result, i)
+        ok = np.flatnonzero(got.solved)
+        words = _lines(got.passed[ok], got.margin[ok] < 0, got.compliance[ok], got.headroom_lost[ok],
+                       got.error[ok], got.tolerance[ok])
+        for k, i, w in zip(got.trial[ok].tolist(), got.load[ok].tolist(), words):
+            out[(usable[k], i)] = w
+    redo = {key: _trial(result, *key) for key in keys if any((key, i) not in out for i in loads[key])}
+    out.update(_from_audits(redo, loads))  # what the rows could not answer: one full re-solve each
     return out
 
 
@@ -317,31 +372,23 @@ def hints(result: Audit, batched: bool = True) -> dict[int, list[str]]:
     generations, many trials per re-solve within a budget, see ``waves``);
     ``batched=False`` re-solves the tree once per trial, the slow path the
     tests compare against."""
-    failing = [int(i) for i in np.flatnonzero(~result.passed)]
-    motives: dict[int, dict[tuple[str, str], list[Callable[[], str]]]] = {}
+    failing = np.flatnonzero(~result.passed)
+    motives = _motives(result, failing)
     loads: dict[tuple[str, str], list[int]] = {}
-    for i in failing:
-        by_trial: dict[tuple[str, str], list[Callable[[], str]]] = {}
-        for mirror, topo, motive in _candidates(result, i):
-            by_trial.setdefault((mirror, topo), []).append(motive)
-        motives[i] = by_trial
+    for i, by_trial in motives.items():
         for key in by_trial:
             loads.setdefault(key, []).append(i)
-    found: dict[tuple[tuple[str, str], int], Outcome] = {}
     if not batched or len(result.tree.generations) > DEEP_TREE:
         counts = {key: len(v) for key, v in loads.items()}
         keys = list(loads) if not batched else _within_budget(result, counts)
         trials = _run_waves(result, keys) if batched else {key: _trial(result, *key) for key in keys}
-        for key, trial in trials.items():
-            if trial.result is not None:
-                for i in loads[key]:
-                    found[(key, i)] = _outcome(trial.result, i)
+        found = _from_audits(trials, loads)
     else:
         found = _fast(result, list(loads), loads)
     out: dict[int, list[str]] = {}
-    for i in failing:
-        lines = [_line(why, mirror, topo, found[((mirror, topo), i)])
-                 for (mirror, topo), why in motives[i].items() if ((mirror, topo), i) in found]
+    for i, by_trial in motives.items():
+        lines = [f"{'; '.join(why)}: {topo} at {mirror} {found[((mirror, topo), i)]}"
+                 for (mirror, topo), why in by_trial.items() if ((mirror, topo), i) in found]
         if lines:
             out[i] = lines
     return out
