@@ -241,23 +241,36 @@ def _within_budget(result: Audit, wanted: dict[tuple[str, str], int]) -> list[tu
     return chosen
 
 
-def _motives(result: Audit, failing: np.ndarray) -> dict[int, dict[tuple[str, str], list[str]]]:
-    """For each failing load, the trials worth running (mirror, topology) and
-    the words saying why, in the order ``_candidates`` gives them — built for
-    all loads at once (``_candidates`` is the same rule for one load)."""
+@dataclass(frozen=True)
+class _Pairs:
+    """Every (failing load, trial) worth trying, load by load in the order
+    ``_candidates`` gives them, with the words saying why."""
+
+    load: list[int]
+    mirror: list[int]
+    topology: list[str]
+    why: list[str]
+
+
+def _motives(result: Audit, failing: np.ndarray) -> _Pairs:
+    """``_candidates`` for every failing load at once."""
     tree = result.tree
     plan = tree.plan
     n = len(failing)
-    specs = [plan.mirrors[m] for m in tree.mirrors]
-    topo = [s.topology for s in specs]
+    topo = [plan.mirrors[m].topology for m in tree.mirrors]
     family = ["bjt" if b else "mos" for b in tree.m_bipolar.tolist()]
     first = np.searchsorted(tree.b_parent, np.arange(len(tree.mirrors)))
     n_out = np.diff(np.append(first, len(tree.b_parent)))
     single = ((n_out == 1) & (tree.b_count[np.minimum(first, len(tree.b_parent) - 1)] == 1)).tolist()
+    allowed: dict[int, frozenset[str]] = {}
 
-    def usable(m: int, t: str) -> bool:
-        spec = TOPOLOGIES[t]
-        return t != topo[m] and family[m] in spec.kinds and (not spec.single_output or single[m])
+    def usable(m: int) -> frozenset[str]:
+        got = allowed.get(m)
+        if got is None:
+            got = allowed[m] = frozenset(
+                t for t, spec in TOPOLOGIES.items()
+                if t != topo[m] and family[m] in spec.kinds and (not spec.single_output or single[m]))
+        return got
 
     index = {name: i for i, name in enumerate(tree.mirrors)}
     over = (result.margin[failing] < 0).tolist()
@@ -272,26 +285,36 @@ def _motives(result: Audit, failing: np.ndarray) -> dict[int, dict[tuple[str, st
         terms = [result.largest_term(int(i)) if bad else ("plan", "", 0.0) for i, bad in zip(failing, over)]
         stage = [-1 if t[0] == "plan" else index[t[0]] for t in terms]
         labels = [t[1] for t in terms]
-        value = np.array([t[2] for t in terms])
+        value = np.array([t[2] for t in terms], dtype=float)
     pct = [format_percent(x) for x in value.tolist()]
     parent = tree.b_parent[tree.l_branch[failing]].tolist()
     short = (result.compliance[failing] < 0).tolist()
     lacks = format_si_array(-result.compliance[failing], "V")
     names = tree.mirrors
-    out: dict[int, dict[tuple[str, str], list[str]]] = {}
+    out = _Pairs([], [], [], [])
     for j, i in enumerate(failing.tolist()):
-        by_trial: dict[tuple[str, str], list[str]] = {}
-        if over[j] and stage[j] >= 0:
-            st = stage[j]
-            for t in _FOR_TERM.get(labels[j], ()):
-                if usable(st, t):
-                    by_trial.setdefault((names[st], t), []).append(f"{labels[j]} at {names[st]} dominates ({pct[j]})")
+        entries: list[list] = []  # type: ignore[type-arg]
+        st = stage[j]
+        if over[j] and st >= 0:
+            why = f"{labels[j]} at {names[st]} dominates ({pct[j]})"
+            ok = usable(st)
+            entries = [[st, t, why] for t in _FOR_TERM.get(labels[j], ()) if t in ok]
         if short[j]:
             p = parent[j]
+            why = f"the output of {names[p]} lacks {lacks[j]}"
+            ok = usable(p)
             for t in _FOR_COMPLIANCE[family[p]]:
-                if usable(p, t):
-                    by_trial.setdefault((names[p], t), []).append(f"the output of {names[p]} lacks {lacks[j]}")
-        out[i] = by_trial
+                if t in ok:
+                    same = [e for e in entries if e[0] == p and e[1] == t]
+                    if same:
+                        same[0][2] += "; " + why
+                    else:
+                        entries.append([p, t, why])
+        for mirror, t, why in entries:
+            out.load.append(i)
+            out.mirror.append(mirror)
+            out.topology.append(t)
+            out.why.append(why)
     return out
 
 
@@ -311,55 +334,54 @@ def _lines(passed: np.ndarray, budget: np.ndarray, compliance: np.ndarray, headr
     return out
 
 
-def _from_audits(trials: dict[tuple[str, str], Trial], loads: dict[tuple[str, str], list[int]]) \
-        -> dict[tuple[tuple[str, str], int], str]:
-    """Each (trial, load)'s outcome words, read off the trials' own audits."""
-    pairs, values = [], []
-    for key, trial in trials.items():
-        new = trial.result
-        if new is None:
-            continue
-        for i in loads[key]:
-            pairs.append((key, i))
+def _from_audits(result: Audit, trials: dict[tuple[str, str], Trial], keys: list[tuple[str, str]],
+                 pair_trial: list[int], pair_load: list[int]) -> list[str | None]:
+    """Each pair's outcome words, read off its trial's own audit (None: not run, or not solvable)."""
+    sel, values = [], []
+    for j, (k, i) in enumerate(zip(pair_trial, pair_load)):
+        trial = trials.get(keys[k])
+        new = None if trial is None else trial.result
+        if new is not None:
+            sel.append(j)
             values.append((bool(new.passed[i]), bool(new.margin[i] < 0), float(new.compliance[i]),
                            bool(new.upstream[i] >= 0), new.worst_error(i)[0], float(new.tolerance[i])))
-    if not pairs:
-        return {}
-    cols = [np.array(c) for c in zip(*values)]
-    return dict(zip(pairs, _lines(*cols)))
+    out: list[str | None] = [None] * len(pair_trial)
+    if values:
+        for j, w in zip(sel, _lines(*(np.array(c) for c in zip(*values)))):
+            out[j] = w
+    return out
 
 
-def _fast(result: Audit, keys: list[tuple[str, str]], loads: dict[tuple[str, str], list[int]]) \
-        -> dict[tuple[tuple[str, str], int], str]:
+def _fast(result: Audit, keys: list[tuple[str, str]], pair_trial: list[int], pair_load: list[int]) -> list[str | None]:
     """Every trial's outcomes from one restricted re-solve of all of them
     (``analysis.trials``); a trial whose rows do not settle is re-solved in full."""
     tree = result.tree
     plan = tree.plan
     index = {name: i for i, name in enumerate(tree.mirrors)}
-    specs = {}
-    usable = []
-    for key in keys:
-        topo = key[1]
+    specs: dict[str, object] = {}
+    for mirror, topo in keys:
         if topo not in specs:
             try:
-                specs[topo] = _changed(plan.mirrors[key[0]], topo)
+                specs[topo] = _changed(plan.mirrors[mirror], topo)
             except Exception:  # a topology that cannot be built is left to the full re-solve
                 specs[topo] = None
-        if specs[topo] is not None:
-            usable.append(key)
-    out: dict[tuple[tuple[str, str], int], str] = {}
-    if usable:
-        pair_trial = np.repeat(np.arange(len(usable)), [len(loads[key]) for key in usable])
-        pair_load = np.array([i for key in usable for i in loads[key]], dtype=np.int64)
-        got = outcomes(result, np.array([index[m] for m, _ in usable]), [t for _, t in usable], specs,
-                       pair_trial, pair_load)
+    out: list[str | None] = [None] * len(pair_trial)
+    fit = [specs[t] is not None for _, t in keys]
+    pt, pl = np.array(pair_trial, dtype=np.int64), np.array(pair_load, dtype=np.int64)
+    sel = np.flatnonzero(np.array(fit)[pt]) if len(pt) else np.zeros(0, dtype=np.int64)
+    if len(sel):
+        got = outcomes(result, np.array([index[m] for m, _ in keys]), [t for _, t in keys], specs, pt[sel], pl[sel])
         ok = np.flatnonzero(got.solved)
         words = _lines(got.passed[ok], got.margin[ok] < 0, got.compliance[ok], got.headroom_lost[ok],
                        got.error[ok], got.tolerance[ok])
-        for k, i, w in zip(got.trial[ok].tolist(), got.load[ok].tolist(), words):
-            out[(usable[k], i)] = w
-    redo = {key: _trial(result, *key) for key in keys if any((key, i) not in out for i in loads[key])}
-    out.update(_from_audits(redo, loads))  # what the rows could not answer: one full re-solve each
+        for j, w in zip(sel[ok].tolist(), words):
+            out[j] = w
+    missing = [j for j, w in enumerate(out) if w is None]
+    if missing:  # what the rows could not answer: one full re-solve per trial
+        redo = {keys[k]: _trial(result, *keys[k]) for k in sorted({pair_trial[j] for j in missing})}
+        again = _from_audits(result, redo, keys, [pair_trial[j] for j in missing], [pair_load[j] for j in missing])
+        for j, w in zip(missing, again):
+            out[j] = w
     return out
 
 
@@ -372,23 +394,22 @@ def hints(result: Audit, batched: bool = True) -> dict[int, list[str]]:
     generations, many trials per re-solve within a budget, see ``waves``);
     ``batched=False`` re-solves the tree once per trial, the slow path the
     tests compare against."""
-    failing = np.flatnonzero(~result.passed)
-    motives = _motives(result, failing)
-    loads: dict[tuple[str, str], list[int]] = {}
-    for i, by_trial in motives.items():
-        for key in by_trial:
-            loads.setdefault(key, []).append(i)
+    pairs = _motives(result, np.flatnonzero(~result.passed))
+    names = result.tree.mirrors
+    trial_of: dict[tuple[int, str], int] = {}
+    pair_trial = [trial_of.setdefault(key, len(trial_of)) for key in zip(pairs.mirror, pairs.topology)]
+    keys = [(names[m], t) for m, t in trial_of]
     if not batched or len(result.tree.generations) > DEEP_TREE:
-        counts = {key: len(v) for key, v in loads.items()}
-        keys = list(loads) if not batched else _within_budget(result, counts)
-        trials = _run_waves(result, keys) if batched else {key: _trial(result, *key) for key in keys}
-        found = _from_audits(trials, loads)
+        counts: dict[tuple[str, str], int] = {}
+        for k in pair_trial:
+            counts[keys[k]] = counts.get(keys[k], 0) + 1
+        run = keys if not batched else _within_budget(result, counts)
+        trials = _run_waves(result, run) if batched else {key: _trial(result, *key) for key in run}
+        words = _from_audits(result, trials, keys, pair_trial, pairs.load)
     else:
-        found = _fast(result, list(loads), loads)
+        words = _fast(result, keys, pair_trial, pairs.load)
     out: dict[int, list[str]] = {}
-    for i, by_trial in motives.items():
-        lines = [f"{'; '.join(why)}: {topo} at {mirror} {found[((mirror, topo), i)]}"
-                 for (mirror, topo), why in by_trial.items() if ((mirror, topo), i) in found]
-        if lines:
-            out[i] = lines
+    for i, why, m, t, w in zip(pairs.load, pairs.why, pairs.mirror, pairs.topology, words):
+        if w is not None:
+            out.setdefault(i, []).append(f"{why}: {t} at {names[m]} {w}")
     return out
