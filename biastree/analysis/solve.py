@@ -440,11 +440,19 @@ def _rout(ctx: _Context, groups: list[list[_Group]], i_in: Array, distance: Arra
     branches of a mirror are stepped one position at a time."""
     rout = np.full(distance.shape, np.inf)
     for generation in groups:
-        for g in generation:
-            topo = TOPOLOGIES[g.topology]
-            b = g.branches
-            rounds = np.unique(g.position) if topo.coupled_outputs else [None]
+        for whole in generation:
+            topo = TOPOLOGIES[whole.topology]
+            # MOS outputs draw no gate current: they never move each other, so all are stepped at once
+            coupled = topo.coupled_outputs and whole.family == "bjt"
+            rounds = np.unique(whole.position) if coupled else [None]
             for position in rounds:
+                g = whole
+                if position is not None:
+                    # only the mirrors that have an output at this position are solved again
+                    with_it = np.unique(whole.row[whole.position == position])
+                    if len(with_it) < len(whole.mirrors):
+                        g = _group(ctx.tree, whole.family, whole.topology, whole.mirrors[with_it])
+                b = g.branches
                 step = np.full((len(b), 1), ROUT_STEP)
                 if position is not None:
                     step = np.where((g.position == position)[:, None], ROUT_STEP, 0.0)
