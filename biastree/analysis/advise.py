@@ -13,6 +13,7 @@ number comes from a re-solve.
 from __future__ import annotations
 
 import dataclasses
+import gc
 from collections.abc import Callable
 from dataclasses import dataclass
 from functools import partial
@@ -394,6 +395,18 @@ def hints(result: Audit, batched: bool = True) -> dict[int, list[str]]:
     generations, many trials per re-solve within a budget, see ``waves``);
     ``batched=False`` re-solves the tree once per trial, the slow path the
     tests compare against."""
+    # Many small acyclic objects (words, tuples): the cyclic collector would only
+    # rescan the plan's objects again and again.
+    enabled = gc.isenabled()
+    gc.disable()
+    try:
+        return _hints(result, batched)
+    finally:
+        if enabled:
+            gc.enable()
+
+
+def _hints(result: Audit, batched: bool) -> dict[int, list[str]]:
     pairs = _motives(result, np.flatnonzero(~result.passed))
     names = result.tree.mirrors
     trial_of: dict[tuple[int, str], int] = {}
