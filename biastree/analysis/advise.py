@@ -13,26 +13,23 @@ number comes from a re-solve.
 from __future__ import annotations
 
 import dataclasses
+import gc
+from collections.abc import Callable
 from dataclasses import dataclass
 from functools import partial
-from typing import Callable
 
 import numpy as np
 
-from biastree.analysis.audit import Audit
-from biastree.analysis.audit import audit
+from biastree.analysis.audit import Audit, audit
 from biastree.analysis.corners import ConditionResult
 from biastree.analysis.pipeline import check_tree
-from biastree.analysis.solve import solve
+from biastree.analysis.solve import DEEP_TREE, solve
 from biastree.analysis.spread import analytic
-from biastree.physics.topologies import TOPOLOGIES
+from biastree.analysis.trials import INDEPENDENT as _INDEPENDENT
+from biastree.analysis.trials import outcomes
+from biastree.physics.topologies import TERM_LABELS, TOPOLOGIES
 from biastree.tree.arrays import Tree
-from biastree.units import format_percent, format_si
-
-# Families in which a topology's input voltage and its other outputs do not
-# depend on one output's voltage (no base current that varies with it):
-# changing what hangs below one branch then touches that branch alone.
-_INDEPENDENT = {"simple": ("bjt", "mos"), "beta_helper": ("bjt",), "cascode": ("mos",), "wide_swing": ("mos",)}
+from biastree.units import format_percent, format_si, format_si_array
 
 FIRST_TRIALS = 12  # trials always run on small plans (those addressing the most failing loads)
 SMALL_PLAN = 200  # mirrors
@@ -245,42 +242,187 @@ def _within_budget(result: Audit, wanted: dict[tuple[str, str], int]) -> list[tu
     return chosen
 
 
+@dataclass(frozen=True)
+class _Pairs:
+    """Every (failing load, trial) worth trying, load by load in the order
+    ``_candidates`` gives them, with the words saying why."""
+
+    load: list[int]
+    mirror: list[int]
+    topology: list[str]
+    why: list[str]
+
+
+def _motives(result: Audit, failing: np.ndarray) -> _Pairs:
+    """``_candidates`` for every failing load at once."""
+    tree = result.tree
+    plan = tree.plan
+    n = len(failing)
+    topo = [plan.mirrors[m].topology for m in tree.mirrors]
+    family = ["bjt" if b else "mos" for b in tree.m_bipolar.tolist()]
+    first = np.searchsorted(tree.b_parent, np.arange(len(tree.mirrors)))
+    n_out = np.diff(np.append(first, len(tree.b_parent)))
+    single = ((n_out == 1) & (tree.b_count[np.minimum(first, len(tree.b_parent) - 1)] == 1)).tolist()
+    allowed: dict[int, frozenset[str]] = {}
+
+    def usable(m: int) -> frozenset[str]:
+        got = allowed.get(m)
+        if got is None:
+            got = allowed[m] = frozenset(
+                t for t, spec in TOPOLOGIES.items()
+                if t != topo[m] and family[m] in spec.kinds and (not spec.single_output or single[m]))
+        return got
+
+    index = {name: i for i, name in enumerate(tree.mirrors)}
+    over = (result.margin[failing] < 0).tolist()
+    if result.conditions is None and n:
+        m, k, v, keys = result._largest
+        plan_term = result.ideal[failing] / result.target[failing] - 1.0
+        take = np.abs(v[failing]) > np.abs(plan_term)
+        stage = np.where(take, m[failing], -1).tolist()
+        labels = [TERM_LABELS[keys[int(x)]] for x in k[failing].tolist()]
+        value = np.where(take, v[failing], plan_term)
+    else:  # the deciding condition's terms, load by load
+        terms = [result.largest_term(int(i)) if bad else ("plan", "", 0.0) for i, bad in zip(failing, over)]
+        stage = [-1 if t[0] == "plan" else index[t[0]] for t in terms]
+        labels = [t[1] for t in terms]
+        value = np.array([t[2] for t in terms], dtype=float)
+    pct = [format_percent(x) for x in value.tolist()]
+    parent = tree.b_parent[tree.l_branch[failing]].tolist()
+    short = (result.compliance[failing] < 0).tolist()
+    lacks = format_si_array(-result.compliance[failing], "V")
+    names = tree.mirrors
+    out = _Pairs([], [], [], [])
+    for j, i in enumerate(failing.tolist()):
+        entries: list[list] = []  # type: ignore[type-arg]
+        st = stage[j]
+        if over[j] and st >= 0:
+            why = f"{labels[j]} at {names[st]} dominates ({pct[j]})"
+            ok = usable(st)
+            entries = [[st, t, why] for t in _FOR_TERM.get(labels[j], ()) if t in ok]
+        if short[j]:
+            p = parent[j]
+            why = f"the output of {names[p]} lacks {lacks[j]}"
+            ok = usable(p)
+            for t in _FOR_COMPLIANCE[family[p]]:
+                if t in ok:
+                    same = [e for e in entries if e[0] == p and e[1] == t]
+                    if same:
+                        same[0][2] += "; " + why
+                    else:
+                        entries.append([p, t, why])
+        for mirror, t, why in entries:
+            out.load.append(i)
+            out.mirror.append(mirror)
+            out.topology.append(t)
+            out.why.append(why)
+    return out
+
+
+def _lines(passed: np.ndarray, budget: np.ndarray, compliance: np.ndarray, headroom: np.ndarray,
+           error: np.ndarray, tolerance: np.ndarray) -> list[str]:
+    """'would pass: error … (budget ±… %), compliance margin …' per outcome, in bulk."""
+    margin = format_si_array(compliance, "V")
+    out = []
+    for ok, over, c, head, err, tol, cm in zip(passed.tolist(), budget.tolist(), compliance.tolist(),
+                                               headroom.tolist(), error.tolist(), tolerance.tolist(), margin):
+        if ok:
+            status = "would pass"
+        else:
+            left = [k for k, bad in (("budget", over), ("compliance", c < 0), ("headroom", head)) if bad]
+            status = f"would still fail ({', '.join(left)})"
+        out.append(f"{status}: error {format_percent(err)} (budget ±{tol * 100:.3g} %), compliance margin {cm}")
+    return out
+
+
+def _from_audits(result: Audit, trials: dict[tuple[str, str], Trial], keys: list[tuple[str, str]],
+                 pair_trial: list[int], pair_load: list[int]) -> list[str | None]:
+    """Each pair's outcome words, read off its trial's own audit (None: not run, or not solvable)."""
+    sel, values = [], []
+    for j, (k, i) in enumerate(zip(pair_trial, pair_load)):
+        trial = trials.get(keys[k])
+        new = None if trial is None else trial.result
+        if new is not None:
+            sel.append(j)
+            values.append((bool(new.passed[i]), bool(new.margin[i] < 0), float(new.compliance[i]),
+                           bool(new.upstream[i] >= 0), new.worst_error(i)[0], float(new.tolerance[i])))
+    out: list[str | None] = [None] * len(pair_trial)
+    if values:
+        for j, w in zip(sel, _lines(*(np.array(c) for c in zip(*values)))):
+            out[j] = w
+    return out
+
+
+def _fast(result: Audit, keys: list[tuple[str, str]], pair_trial: list[int], pair_load: list[int]) -> list[str | None]:
+    """Every trial's outcomes from one restricted re-solve of all of them
+    (``analysis.trials``); a trial whose rows do not settle is re-solved in full."""
+    tree = result.tree
+    plan = tree.plan
+    index = {name: i for i, name in enumerate(tree.mirrors)}
+    specs: dict[str, object] = {}
+    for mirror, topo in keys:
+        if topo not in specs:
+            try:
+                specs[topo] = _changed(plan.mirrors[mirror], topo)
+            except Exception:  # a topology that cannot be built is left to the full re-solve
+                specs[topo] = None
+    out: list[str | None] = [None] * len(pair_trial)
+    fit = [specs[t] is not None for _, t in keys]
+    pt, pl = np.array(pair_trial, dtype=np.int64), np.array(pair_load, dtype=np.int64)
+    sel = np.flatnonzero(np.array(fit)[pt]) if len(pt) else np.zeros(0, dtype=np.int64)
+    if len(sel):
+        got = outcomes(result, np.array([index[m] for m, _ in keys]), [t for _, t in keys], specs, pt[sel], pl[sel])
+        ok = np.flatnonzero(got.solved)
+        words = _lines(got.passed[ok], got.margin[ok] < 0, got.compliance[ok], got.headroom_lost[ok],
+                       got.error[ok], got.tolerance[ok])
+        for j, w in zip(sel[ok].tolist(), words):
+            out[j] = w
+    missing = [j for j, w in enumerate(out) if w is None]
+    if missing:  # what the rows could not answer: one full re-solve per trial
+        redo = {keys[k]: _trial(result, *keys[k]) for k in sorted({pair_trial[j] for j in missing})}
+        again = _from_audits(result, redo, keys, [pair_trial[j] for j in missing], [pair_load[j] for j in missing])
+        for j, w in zip(missing, again):
+            out[j] = w
+    return out
+
+
 def hints(result: Audit, batched: bool = True) -> dict[int, list[str]]:
     """Hints per failing load index (empty when nothing tried helps).
 
-    Every candidate change is tried.  ``batched`` (the default) answers many
-    trials with one re-solve (see ``waves``); ``batched=False`` re-solves the
-    tree once per trial, the slow path the tests compare against."""
-    failing = [int(i) for i in np.flatnonzero(~result.passed)]
-    wanted: dict[tuple[str, str], int] = {}
-    motives: dict[int, list[tuple[str, str, str]]] = {}
-    for i in failing:
-        motives[i] = _candidates(result, i)
-        for mirror, topo, _ in motives[i]:
-            wanted[(mirror, topo)] = wanted.get((mirror, topo), 0) + 1
-    keys = _within_budget(result, wanted)
-    trials = _run_waves(result, keys) if batched else {key: _trial(result, *key) for key in keys}
+    Every candidate change is tried, for every failing load.  ``batched`` (the
+    default) answers all trials with one restricted re-solve of the mirrors
+    they can move (``analysis.trials``; on trees deeper than ``DEEP_TREE``
+    generations, many trials per re-solve within a budget, see ``waves``);
+    ``batched=False`` re-solves the tree once per trial, the slow path the
+    tests compare against."""
+    # Many small acyclic objects (words, tuples): the cyclic collector would only
+    # rescan the plan's objects again and again.
+    enabled = gc.isenabled()
+    gc.disable()
+    try:
+        return _hints(result, batched)
+    finally:
+        if enabled:
+            gc.enable()
+
+
+def _hints(result: Audit, batched: bool) -> dict[int, list[str]]:
+    pairs = _motives(result, np.flatnonzero(~result.passed))
+    names = result.tree.mirrors
+    trial_of: dict[tuple[int, str], int] = {}
+    pair_trial = [trial_of.setdefault(key, len(trial_of)) for key in zip(pairs.mirror, pairs.topology)]
+    keys = [(names[m], t) for m, t in trial_of]
+    if not batched or len(result.tree.generations) > DEEP_TREE:
+        counts: dict[tuple[str, str], int] = {}
+        for k in pair_trial:
+            counts[keys[k]] = counts.get(keys[k], 0) + 1
+        run = keys if not batched else _within_budget(result, counts)
+        trials = _run_waves(result, run) if batched else {key: _trial(result, *key) for key in run}
+        words = _from_audits(result, trials, keys, pair_trial, pairs.load)
+    else:
+        words = _fast(result, keys, pair_trial, pairs.load)
     out: dict[int, list[str]] = {}
-    for i in failing:
-        lines = []
-        by_trial: dict[tuple[str, str], list[Callable[[], str]]] = {}
-        for mirror, topo, motive in motives[i]:
-            by_trial.setdefault((mirror, topo), []).append(motive)
-        for (mirror, topo), why in by_trial.items():
-            trial = trials.get((mirror, topo))
-            if trial is None or trial.result is None:
-                continue
-            new = trial.result
-            err, _ = new.worst_error(i)
-            if new.passed[i]:
-                status = "would pass"
-            else:
-                left = [k for k, bad in (("budget", new.margin[i] < 0), ("compliance", new.compliance[i] < 0),
-                                         ("headroom", new.upstream[i] >= 0)) if bad]
-                status = f"would still fail ({', '.join(left)})"
-            detail = (f"error {format_percent(err)} (budget ±{new.tolerance[i] * 100:.3g} %), "
-                      f"compliance margin {format_si(float(new.compliance[i]), 'V')}")
-            lines.append(f"{'; '.join(m() for m in why)}: {topo} at {mirror} {status}: {detail}")
-        if lines:
-            out[i] = lines
+    for i, why, m, t, w in zip(pairs.load, pairs.why, pairs.mirror, pairs.topology, words):
+        if w is not None:
+            out.setdefault(i, []).append(f"{why}: {t} at {names[m]} {w}")
     return out

@@ -66,20 +66,23 @@ class OperatingPoint:
         return self.b_current[self.tree.l_branch]
 
 
-def topology_params(tree: Tree) -> dict[str, Array]:
-    """Per-mirror topology parameters, (n_mirrors, 1), with defaults filled in."""
+def topology_params(tree: Tree, index: Array | None = None, specs: list | None = None) -> dict[str, Array]:  # type: ignore[type-arg]
+    """Per-mirror topology parameters, (n_mirrors, 1), with defaults filled in;
+    with ``index`` (mirror indices) one row per entry only, from ``specs``
+    (one mirror spec per entry, e.g. with another topology) when given."""
     plan = tree.plan
     ideal = tree.m_ideal_in
-    out = {k: np.zeros((len(tree.mirrors), 1)) for k in ("helper_size", "bleed", "r_emitter", "bias_current", "swing_n")}
-    for i, name in enumerate(tree.mirrors):
-        m = plan.mirrors[name]
+    rows = range(len(tree.mirrors)) if index is None else [int(i) for i in index]
+    out = {k: np.zeros((len(rows), 1)) for k in ("helper_size", "bleed", "r_emitter", "bias_current", "swing_n")}
+    for i, mirror in enumerate(rows):
+        m = plan.mirrors[tree.mirrors[mirror]] if specs is None else specs[i]
         out["helper_size"][i] = m.helper_size
         out["bleed"][i] = m.bleed
         if m.degeneration is not None:
             out["r_emitter"][i] = m.degeneration
         elif m.degeneration_drop is not None:
-            out["r_emitter"][i] = m.degeneration_drop / ideal[i]
-        out["bias_current"][i] = m.bias_current if m.bias_current is not None else ideal[i]
+            out["r_emitter"][i] = m.degeneration_drop / ideal[mirror]
+        out["bias_current"][i] = m.bias_current if m.bias_current is not None else ideal[mirror]
         out["swing_n"][i] = m.swing_n
     return out
 
@@ -168,7 +171,7 @@ class _Context:
         c = self.cols
         taken, params, ratio, count, is_scale, vt_shift, k_scale, _, _ = self._static(g, dev)
         if c.remote is not None and b_current is not None:
-            is_scale, vt_shift, k_scale = self._remote(g, b_current, distance, is_scale, vt_shift, k_scale)
+            is_scale, vt_shift, k_scale = self._remote(g, b_current[g.branches], distance, is_scale, vt_shift, k_scale)
         return GroupInput(
             dev=taken,
             params=params,
@@ -183,7 +186,7 @@ class _Context:
             k_scale=k_scale,
         )
 
-    def _remote(self, g: _Group, b_current: Array, distance: Array, is_scale: Array | None, vt_shift: Array | None,
+    def _remote(self, g: _Group, current: Array, distance: Array, is_scale: Array | None, vt_shift: Array | None,
                 k_scale: Array | None) -> tuple[Array | None, Array | None, Array | None]:
         """Fold a remote output device's temperature and rail offset into its
         mismatch inputs (exact at convergence; see biastree.floorplan)."""
@@ -205,9 +208,9 @@ class _Context:
             # (its own IS and V_T; the first sweep starts from 0.7 V)
             is_hot = dev.is_in * self.tree.b_ratio[b][:, None] * is_ratio  # IS of the output device, warm
             with np.errstate(divide="ignore", invalid="ignore"):
-                vbe = np.where(b_current[b] > 0, vt_hot * np.log(b_current[b] / is_hot), 0.7)
+                vbe = np.where(current > 0, vt_hot * np.log(current / is_hot), 0.7)
                 early = 1.0 + np.maximum(distance - vbe - dv, 0.0) / dev.early  # its collector at the output node
-                vbe = np.where(b_current[b] > 0, vt_hot * np.log(b_current[b] / (is_hot * early)), 0.7)
+                vbe = np.where(current > 0, vt_hot * np.log(current / (is_hot * early)), 0.7)
             factor = is_ratio * np.exp(vbe / vt_hot - vbe / vt) * np.exp(-dv / vt)
             return (factor if is_scale is None else is_scale * factor), vt_shift, k_scale
         plan = self.tree.plan
@@ -437,11 +440,19 @@ def _rout(ctx: _Context, groups: list[list[_Group]], i_in: Array, distance: Arra
     branches of a mirror are stepped one position at a time."""
     rout = np.full(distance.shape, np.inf)
     for generation in groups:
-        for g in generation:
-            topo = TOPOLOGIES[g.topology]
-            b = g.branches
-            rounds = np.unique(g.position) if topo.coupled_outputs else [None]
+        for whole in generation:
+            topo = TOPOLOGIES[whole.topology]
+            # MOS outputs draw no gate current: they never move each other, so all are stepped at once
+            coupled = topo.coupled_outputs and whole.family == "bjt"
+            rounds = np.unique(whole.position) if coupled else [None]
             for position in rounds:
+                g = whole
+                if position is not None:
+                    # only the mirrors that have an output at this position are solved again
+                    with_it = np.unique(whole.row[whole.position == position])
+                    if len(with_it) < len(whole.mirrors):
+                        g = _group(ctx.tree, whole.family, whole.topology, whole.mirrors[with_it])
+                b = g.branches
                 step = np.full((len(b), 1), ROUT_STEP)
                 if position is not None:
                     step = np.where((g.position == position)[:, None], ROUT_STEP, 0.0)
@@ -452,3 +463,176 @@ def _rout(ctx: _Context, groups: list[list[_Group]], i_in: Array, distance: Arra
                 sel = slice(None) if position is None else (g.position == position)
                 rout[b[sel]] = np.where(r[sel] > 0, r[sel], np.inf)
     return rout
+
+
+# --- restricted re-solve: copies of a few mirrors, many trials at once ---------------
+
+
+@dataclass(frozen=True)
+class Rows:
+    """Copies ("rows") of some mirrors of a tree, to be re-solved together.
+
+    Each row is one mirror in one *trial* (a change tried on a copy of the
+    tree): its own topology and parameters, and every branch of the mirror
+    as a branch row.  A row's input current comes from the branch row of its
+    parent mirror's row in the same trial, or from the base solution where
+    the parent has no row; an output into a mirror without a row keeps its
+    base distance.  Rows of different trials never feed each other, so any
+    number of trials share one vectorised solve (``solve_rows``)."""
+
+    trial: Array  # (R,) trial of each row
+    mirror: Array  # (R,) tree mirror of each row
+    topology: Array  # (R,) object: topology name of each row
+    params: dict[str, Array]  # (R, 1) topology parameters of each row
+    b_start: Array  # (R,) first branch row of each row (its branches are one run)
+    b_tree: Array  # (RB,) tree branch of each branch row
+    b_row: Array  # (RB,) row each branch row belongs to
+    b_child: Array  # (RB,) row that each branch row feeds (-1: a load, or a mirror without a row)
+    in_branch: Array  # (R,) branch row feeding each row (-1: input current from the base solution)
+
+
+def make_rows(tree: Tree, trial: Array, mirror: Array, topology: Array, params: dict[str, Array]) -> Rows:
+    """Rows for (trial, mirror) pairs (each pair at most once), with their
+    topologies and (R, 1) topology parameters; branch rows and who feeds whom
+    follow from the tree."""
+    trial, mirror = np.asarray(trial, dtype=np.int64), np.asarray(mirror, dtype=np.int64)
+    n_m = len(tree.mirrors)
+    first = np.searchsorted(tree.b_parent, mirror, "left")
+    count = np.searchsorted(tree.b_parent, mirror, "right") - first
+    b_start = np.cumsum(count) - count
+    b_tree = np.repeat(first - b_start, count) + np.arange(int(count.sum()))
+    b_row = np.repeat(np.arange(len(mirror)), count)
+    key = trial * n_m + mirror
+    order = np.argsort(key, kind="stable")
+    b_child = np.full(len(b_tree), -1, dtype=np.int64)
+    to_mirror = np.flatnonzero(~tree.b_to_load[b_tree])
+    if len(to_mirror) and len(key):
+        want = trial[b_row[to_mirror]] * n_m + tree.b_child[b_tree[to_mirror]]
+        at = np.minimum(np.searchsorted(key[order], want), len(key) - 1)
+        hit = key[order][at] == want
+        b_child[to_mirror[hit]] = order[at[hit]]
+    in_branch = np.full(len(mirror), -1, dtype=np.int64)
+    fed = np.flatnonzero(b_child >= 0)
+    in_branch[b_child[fed]] = fed
+    return Rows(trial, mirror, np.asarray(topology, dtype=object), params, b_start, b_tree, b_row, b_child, in_branch)
+
+
+@dataclass(frozen=True)
+class RowsPoint:
+    """The operating point of ``Rows`` (shapes as in ``OperatingPoint``, rows
+    and branch rows instead of mirrors and branches)."""
+
+    rows: Rows
+    i_in: Array
+    v_in: Array
+    extra: Array
+    current: Array
+    distance: Array
+    min_distance: Array
+    internal_margin: Array
+    bad: Array  # (R,) bool: no finite operating point, or still moving after MAX_SWEEPS
+
+    @property
+    def compliance(self) -> Array:
+        return np.minimum(self.distance - self.min_distance, self.internal_margin)
+
+
+def _generation_of(tree: Tree) -> Array:
+    out = np.zeros(len(tree.mirrors), dtype=np.int64)
+    for k, gen in enumerate(tree.generations):
+        out[gen] = k
+    return out
+
+
+def solve_rows(tree: Tree, rows: Rows, base: OperatingPoint) -> RowsPoint:
+    """Re-solve only ``rows``, everything else taken from ``base`` (the same
+    tree solved over the same columns), by the sweeps of ``solve``: the same
+    equations, started from the base solution.  The caller promises that
+    nothing outside a trial's rows moves what its rows read."""
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        return _solve_rows(tree, rows, base)
+
+
+def _solve_rows(tree: Tree, rows: Rows, base: OperatingPoint) -> RowsPoint:
+    cols = base.columns if base.columns is not None else default_columns(tree)
+    dev = base.devices if base.devices is not None else device_arrays(tree, cols)
+    ctx = _Context(tree, dev, {}, cols)
+    supply = cols.supply[None, :]
+    m, bt = rows.mirror, rows.b_tree
+    i_in, v_in, extra = base.m_i_in[m].copy(), base.m_v_in[m].copy(), base.m_extra[m].copy()
+    current, distance = base.b_current[bt].copy(), base.b_distance[bt].copy()
+    internal = base.b_internal_margin[bt].copy()
+    forward = tree.plan.compliance.bjt_forward_bias
+    shift = np.where(tree.m_bipolar[tree.b_parent[bt]], forward, 0.0)[:, None] if forward else 0.0
+    b_min = base.b_min_distance[bt] + shift  # the topologies' own figure; taken off again below
+
+    # groups: per generation, rows of one family and topology, with their branch rows
+    gen = _generation_of(tree)[m]
+    fam = np.where(tree.m_bipolar[m], 0, 1)
+    names = list(TOPOLOGIES)
+    code = np.array([names.index(t) for t in rows.topology], dtype=np.int64) if len(m) else np.zeros(0, np.int64)
+    order = np.lexsort((code, fam, gen))
+    n_br = np.diff(np.append(rows.b_start, len(bt)))
+    levels: list[list[tuple]] = []  # type: ignore[type-arg]
+    if len(order):
+        cut = np.flatnonzero(np.diff(gen[order]) | np.diff(fam[order]) | np.diff(code[order])) + 1
+        last = -1
+        for sel in np.split(order, cut):
+            sel = np.sort(sel)
+            cnt = n_br[sel]
+            offsets = np.cumsum(cnt) - cnt
+            brows = np.repeat(rows.b_start[sel] - offsets, cnt) + np.arange(int(cnt.sum()))
+            family = "bjt" if fam[sel[0]] == 0 else "mos"
+            g = _Group(family, names[code[sel[0]]], m[sel], bt[brows], np.repeat(np.arange(len(sel)), cnt),
+                       tree.b_index[bt[brows]])
+            b = g.branches
+            static = (dev.take(g.mirrors, family), {k: v[sel] for k, v in rows.params.items()},
+                      tree.b_ratio[b][:, None], tree.b_count[b][:, None],
+                      *(None if a is None else a[b] for a in (cols.is_scale, cols.vt_shift, cols.k_scale)))
+            child = rows.b_child[brows]
+            fed = child >= 0
+            if gen[sel[0]] != last:
+                levels.append([])
+                last = gen[sel[0]]
+            levels[-1].append((g, sel, brows, child[fed], fed, static))
+
+    def solve_group(g: _Group, sel: Array, brows: Array, child: Array, fed: Array, static: tuple) -> None:  # type: ignore[type-arg]
+        dist = distance[brows]
+        dist[fed] = supply - v_in[child]
+        distance[brows] = dist
+        taken, params, ratio, count, is_scale, vt_shift, k_scale = static
+        try:
+            if cols.remote is not None:
+                is_scale, vt_shift, k_scale = ctx._remote(g, current[brows], dist, is_scale, vt_shift, k_scale)
+            out = TOPOLOGIES[g.topology].solve(GroupInput(
+                dev=taken, params=params, i_in=i_in[sel], row=g.row, ratio=ratio, count=count, distance=dist,
+                supply=supply, is_scale=is_scale, vt_shift=vt_shift, k_scale=k_scale))
+        except Exception:  # a topology that cannot solve these rows (e.g. not characterised): they are bad
+            failed[sel] = True
+            return
+        v_in[sel] = out.v_in
+        extra[sel] = out.extra
+        current[brows] = out.current
+        b_min[brows] = out.min_distance
+        if out.internal_margin is not None:
+            internal[brows] = out.internal_margin
+        i_in[child] = out.current[fed]
+
+    moving = np.zeros(len(m), dtype=bool)
+    failed = np.zeros(len(m), dtype=bool)
+    for _ in range(MAX_SWEEPS):
+        previous = v_in.copy()
+        for level in levels:
+            for group in level:
+                solve_group(*group)
+        moved = np.abs(v_in - previous).max(axis=1, initial=0.0)
+        moving = ~(moved < VOLTAGE_TOL)  # NaN: never settles; such rows are bad anyway
+        finite = np.isfinite(v_in).all(axis=1) & np.isfinite(i_in).all(axis=1)
+        if not np.any(moving & finite & ~failed):
+            break
+    fed = np.flatnonzero(rows.b_child >= 0)
+    distance[fed] = supply - v_in[rows.b_child[fed]]
+    bad = moving | failed | ~np.isfinite(v_in).all(axis=1)
+    bad_branch = ~np.isfinite(current).all(axis=1) | ~np.isfinite(distance).all(axis=1)
+    bad[rows.b_row[bad_branch]] = True
+    return RowsPoint(rows, i_in, v_in, extra, current, distance, b_min - shift, internal, bad)

@@ -450,6 +450,10 @@ def _wide_swing(g: GroupInput) -> GroupOutput:
 # --- emitter degeneration ---------------------------------------------------------
 
 
+_DEGENERATED_STEP = 4e-16  # relative: Newton steps on V_BE stop at the last bits (0: always 100 steps)
+_DEGENERATED_NOISE = 1e-13  # V: below this a base-line step that stops shrinking is rounding noise (0: off)
+
+
 def _degenerated(g: GroupInput) -> GroupOutput:
     """Simple BJT mirror with emitter resistors: R_E on the input device and
     R_E/m_k on output k (same drop at the ideal ratio).  With the base line at
@@ -475,7 +479,9 @@ def _degenerated(g: GroupInput) -> GroupOutput:
             dfd = 1.0 + res * ie / vt
             step = fval / dfd
             vbe = vbe - step
-            if np.all(np.abs(step) <= 1e-16):
+            # converged to the last bits of V_BE (an absolute 1e-16 V is below the
+            # spacing of floats near 0.7 V, so that test alone ran all 100 steps)
+            if np.all(np.abs(step) <= _DEGENERATED_STEP * np.maximum(np.abs(vbe), 0.25)):
                 break
         x = is_a * np.exp(vbe / vt)
         ie = x * ((1.0 if vcb is None else devices.early_factor(vcb, d.early[r])) + 1.0 / beta)
@@ -485,6 +491,7 @@ def _degenerated(g: GroupInput) -> GroupOutput:
     # start from the undegenerated solution plus the drop
     x0 = g.i_in / (1.0 + (1.0 + g.fanout()) / d.beta)
     vb = _vbe(x0, d.is_in, d.vt) + r1 * x0 * (1.0 + 1.0 / d.beta)
+    previous = np.full(np.shape(vb), np.inf)
     for _ in range(100):
         x1, vbe1, dx1 = device(vb, d.is_in, r1, d.beta, d.vt, None)
         # output base currents; collector Early factor uses VCB = d − V_B
@@ -493,8 +500,12 @@ def _degenerated(g: GroupInput) -> GroupOutput:
         slope = dx1 * (1.0 + 1.0 / d.beta) + g.segment_sum(dxk / d.beta[r])
         step = resid / slope
         vb = vb - step
-        if np.all(np.abs(step) <= 1e-15):
+        # done at 1e-15 V, or where Newton's step no longer shrinks: the residual is
+        # rounding noise there (with large R_E about 1.5e-15 V, so 1e-15 alone ran 100 steps)
+        size = np.abs(step)
+        if np.all((size <= 1e-15) | ((size < _DEGENERATED_NOISE) & (size >= 0.5 * previous))):
             break
+        previous = size
     xk, vbek, _ = device(vb[r], is_out, r_out, d.beta[r], d.vt[r], g.distance - vb[r])
     current = xk * devices.early_factor(g.distance - vb[r], d.early[r])
     return GroupOutput(vb, current, np.broadcast_to(vb[r], current.shape), np.zeros_like(g.i_in))
