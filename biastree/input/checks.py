@@ -431,6 +431,8 @@ def check_plausible(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
                           f"({_range_text(mark)}); if you mean it, list '{key}' under allow_unusual"))
 
     def visit(value: Any, mark: Any, path: tuple[Any, ...]) -> None:
+        if isinstance(value, dict) and len(value) > _BULK and _all_inside(list(value.values()), mark):
+            return  # nothing to report in this section (checked in bulk); else visited in order
         if isinstance(value, BaseModel):
             for name, inner, alias in _ranges(type(value)):
                 visit(getattr(value, name, None), inner, path + (alias,))
@@ -446,3 +448,49 @@ def check_plausible(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
 
     visit(plan, None, ())
     return out
+
+
+_BULK = 64  # sections with more entries than this are first checked in bulk
+
+
+def _all_inside(values: list[Any], mark: Any) -> bool:
+    """True when no number inside ``values`` (models of one class, or plain
+    numbers) lies outside its plausible range: then ``check_plausible`` has
+    nothing to say about them.  False also means "not sure" (the caller then
+    visits them one by one, in order, as for any small section)."""
+    if not values:
+        return True
+    first = type(values[0])
+    if isinstance(values[0], BaseModel):
+        if any(type(v) is not first for v in values):
+            return False
+        for name, inner, _ in _ranges(first):
+            if not _all_inside([getattr(v, name, None) for v in values], inner):
+                return False
+        return True
+    numbers: list[Any] = []
+    nested: list[Any] = []
+    for v in values:
+        kind = type(v)
+        if kind is float or kind is int:
+            numbers.append(v)
+        elif kind is tuple or kind is list:
+            for item in v:
+                (numbers if type(item) in (float, int) else nested).append(item)
+        elif isinstance(v, BaseModel):
+            nested.append(v)
+        elif v is None or kind is str:
+            continue
+        else:
+            return False
+    if nested:
+        if any(type(v) is not type(nested[0]) for v in nested) or not _all_inside(nested, mark):
+            return False
+    if mark is None or not numbers:
+        return True
+    import numpy as np
+
+    x = np.array(numbers, dtype=float)
+    if mark.magnitude:
+        x = np.abs(x)
+    return bool(np.all((mark.low <= x) & (x <= mark.high)))

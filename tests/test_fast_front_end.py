@@ -25,6 +25,7 @@ from hypothesis import strategies as st
 import biastree
 from biastree.errors import PlanError
 from biastree.input import fast_yaml
+from biastree.input.generate import random_plan
 from biastree.input.loader import _fast_json, parse_text
 from biastree.output.json import to_json
 
@@ -159,3 +160,29 @@ def test_generated_results_equal_on_both_readers(tmp_path, monkeypatch) -> None:
     fast = to_json(biastree.check(str(path)))
     monkeypatch.setattr(fast_yaml, "read", lambda text: None)
     assert to_json(biastree.check(str(path))) == fast
+
+
+def test_bulk_plausible_check_says_what_the_visit_says(monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    """Oracle: the one-by-one visit (the bulk check only skips sections with nothing to report)."""
+    from biastree.input import checks
+    from biastree.input.model import Plan
+
+    plan = random_plan(400, seed=3)
+    for case in range(4):
+        raw = json.loads(json.dumps(plan))
+        names = list(raw["loads"])
+        if case >= 1:
+            raw["loads"][names[7]]["current"] = "20A"  # out of range
+        if case >= 2:
+            mirror = next(iter(raw["mirrors"].values()))
+            mirror["branches"][0]["ratio"] = "1e9"
+            raw["loads"][names[9]]["voltage"] = ["0V", "500V"]
+        if case == 3:
+            raw["allow_unusual"] = [f"loads.{names[7]}"]
+        model = Plan.model_validate(raw)
+        bulk = checks.check_plausible(model)
+        monkeypatch.setattr(checks, "_BULK", 10**9)
+        one_by_one = checks.check_plausible(model)
+        monkeypatch.setattr(checks, "_BULK", 64)
+        assert bulk == one_by_one
+        assert len(bulk) == (0, 1, 3, 2)[case]
