@@ -186,3 +186,89 @@ def test_bulk_plausible_check_says_what_the_visit_says(monkeypatch) -> None:  # 
         monkeypatch.setattr(checks, "_BULK", 64)
         assert bulk == one_by_one
         assert len(bulk) == (0, 1, 3, 2)[case]
+
+
+def _tree_fields(tree) -> dict:  # type: ignore[no-untyped-def]
+    import dataclasses
+
+    out = {}
+    for f in dataclasses.fields(tree):
+        value = getattr(tree, f.name)
+        if f.name == "generations":
+            value = [g.tolist() for g in value]
+        elif hasattr(value, "dtype"):
+            value = (str(value.dtype), value.tolist())
+        elif f.name == "plan":
+            continue
+        out[f.name] = value
+    return out
+
+
+@pytest.mark.parametrize("n,seed", [(300, 1), (2500, 8), (40, 2)])
+def test_bulk_layout_gives_the_walks_tree(n: int, seed: int, monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    """Oracle: ``build``'s walk over levels (the bulk layout must give the same arrays, dtypes included)."""
+    from biastree.input.model import Plan
+    from biastree.tree import arrays
+
+    plan = Plan.model_validate(random_plan(n, seed=seed))
+    monkeypatch.setattr(arrays, "_BULK_FROM", 0)
+    bulk = arrays.build(plan)
+    monkeypatch.setattr(arrays, "_BULK_FROM", 10**12)
+    assert _tree_fields(bulk) == _tree_fields(arrays.build(plan))
+
+
+BROKEN = [
+    ("loads.load3.voltage", ["0V", "9V"]),  # above the supply
+    ("loads.load3.current", "20A"),  # implausible
+    ("mirrors.m1.branches.0.to", "nowhere"),
+    ("mirrors.m2.branches.0.to", "m2"),
+    ("mirrors.m3.branches.0.count", "100000000"),
+    ("reference.feeds", "m1"),
+    ("mirrors.m1.device", "zz"),
+    ("mirrors.m0.topology", "wilson"),
+    ("mirrors.m1.bleed", "1uA"),
+]
+
+
+@pytest.mark.parametrize("where,value", BROKEN)
+def test_bulk_layout_refuses_what_the_checks_report(where: str, value: object, monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    """Oracle: ``check_structure``: a plan it finds a problem in is never laid out in bulk."""
+    from biastree.input import checks
+    from biastree.input.model import Plan
+
+    raw = random_plan(300, seed=1)
+    node = raw
+    keys = where.split(".")
+    for key in keys[:-1]:
+        node = node[int(key)] if key.isdigit() else node[key]
+    node[keys[-1]] = value
+    plan = Plan.model_validate(raw)
+    assert checks.check_structure(plan)
+    assert checks.clean_layout(plan) is None
+
+
+def test_bulk_layout_refuses_second_feeds_cycles_and_polarity() -> None:
+    from biastree.input import checks
+    from biastree.input.model import Plan
+
+    def plan_with(change) -> Plan:  # type: ignore[no-untyped-def]
+        raw = random_plan(300, seed=1)
+        change(raw)
+        return Plan.model_validate(raw)
+
+    def second_feed(raw: dict) -> None:
+        first, second = list(raw["mirrors"])[:2]
+        raw["mirrors"][second]["branches"].append(dict(raw["mirrors"][first]["branches"][0]))
+
+    def cycle(raw: dict) -> None:  # a mirror low in the tree feeds one above it: that one is fed twice
+        names = list(raw["mirrors"])
+        raw["mirrors"][names[-1]]["branches"].append({"to": names[1]})
+
+    def polarity(raw: dict) -> None:
+        for spec in raw["mirrors"].values():
+            spec["device"] = "qn"
+
+    for change in (second_feed, cycle, polarity):
+        plan = plan_with(change)
+        assert checks.check_structure(plan)
+        assert checks.clean_layout(plan) is None
