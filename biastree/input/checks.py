@@ -456,45 +456,38 @@ _BULK = 64  # sections with more entries than this are first checked in bulk
 
 def _all_inside(values: list[Any], mark: Any) -> bool:
     """True when no number inside ``values`` (models of one class, or plain
-    numbers) lies outside its plausible range: then ``check_plausible`` has
-    nothing to say about them.  False also means "not sure" (the caller then
-    visits them one by one, in order, as for any small section)."""
-    if not values:
-        return True
-    first = type(values[0])
-    if isinstance(values[0], BaseModel):
-        if any(type(v) is not first for v in values):
-            return False
-        for name, inner, _ in _ranges(first):
-            if not _all_inside([getattr(v, name, None) for v in values], inner):
-                return False
-        return True
-    numbers: list[Any] = []
-    nested: list[Any] = []
-    for v in values:
-        kind = type(v)
-        if kind is float or kind is int:
-            numbers.append(v)
-        elif kind is tuple or kind is list:
-            for item in v:
-                (numbers if type(item) in (float, int) else nested).append(item)
-        elif isinstance(v, BaseModel):
-            nested.append(v)
-        elif v is None or kind is str:
-            continue
-        else:
-            return False
-    if nested:
-        if any(type(v) is not type(nested[0]) for v in nested) or not _all_inside(nested, mark):
-            return False
-    if mark is None or not numbers:
-        return True
+    numbers, tuples and lists of them) lies outside its plausible range:
+    then ``check_plausible`` has nothing to say about them.  False also
+    means "not sure" (the caller then visits them one by one, in order)."""
+    from operator import attrgetter
+
     import numpy as np
 
-    x = np.array(numbers, dtype=float)
-    if mark.magnitude:
-        x = np.abs(x)
-    return bool(np.all((mark.low <= x) & (x <= mark.high)))
+    if not values:
+        return True
+    types = set(map(type, values))
+    if len(types) == 1 and issubclass(next(iter(types)), BaseModel):
+        for name, inner, _ in _ranges(next(iter(types))):
+            if not _all_inside(list(map(attrgetter(name), values)), inner):
+                return False
+        return True
+    if types <= _PLAIN:
+        if mark is None or not types & {float, int}:
+            return True
+        if bool in types or type(None) in types:
+            values = [v for v in values if type(v) in (float, int)]
+        x = np.array(values, dtype=float)
+        if mark.magnitude:
+            x = np.abs(x)
+        return bool(np.all((mark.low <= x) & (x <= mark.high)))
+    if types <= _PLAIN | {tuple, list}:
+        inner_values = [item for v in values if type(v) in (tuple, list) for item in v]
+        plain = [v for v in values if type(v) not in (tuple, list)]
+        return _all_inside(plain, mark) and _all_inside(inner_values, mark)
+    return False
+
+
+_PLAIN = frozenset((float, int, bool, str, type(None)))
 
 
 # --- large plans: the structure proved in bulk ---------------------------------
