@@ -272,3 +272,36 @@ def test_bulk_layout_refuses_second_feeds_cycles_and_polarity() -> None:
         plan = plan_with(change)
         assert checks.check_structure(plan)
         assert checks.clean_layout(plan) is None
+
+
+def _results() -> list[biastree.Audit]:
+    from helpers import tree_of
+
+    out = [biastree.check(path) for path in SAMPLES]
+    out += [biastree.check(tree_of(random_plan(n, seed=seed))) for n, seed in ((60, 5), (700, 11))]
+    return out
+
+
+def test_bulk_column_texts_equal_the_per_load_texts() -> None:
+    """Oracle: each column's per-load ``text`` (the table's former code)."""
+    from biastree.output.columns import BULK_TEXT, COLUMNS, texts
+
+    assert set(BULK_TEXT) == {c.key for c in COLUMNS}
+    for result in _results():
+        n = len(result.tree.loads)
+        loads = list(range(n))[::-1] + [0]
+        for col in COLUMNS:
+            assert texts(result, col, loads) == [col.text(result, i) for i in loads], col.key
+
+
+def test_format_si_list_equals_format_si() -> None:
+    import numpy as np
+
+    from biastree.units import format_si, format_si_list
+
+    rng = np.random.default_rng(1)
+    values = (10.0 ** rng.uniform(-20, 14, 4000) * rng.choice([-1, 1], 4000)).tolist()
+    values += [0.0, -0.0, float("inf"), float("nan"), 999.96e-6, 999.4999e-3, 1e-18, 1e15, 1e-21]
+    for digits in (3, 4):
+        assert format_si_list(values, "A", digits) == [format_si(v, "A", digits) for v in values]
+        assert format_si_list(values, "", digits) == [format_si(v, "", digits) for v in values]
