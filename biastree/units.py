@@ -311,6 +311,37 @@ def format_si_array(values: object, unit: str = "", digits: int = 3) -> list[str
     return out
 
 
+def format_si_list(values: list[float], unit: str = "", digits: int = 3) -> list[str]:
+    """``[format_si(v, unit, digits) for v in values]``, the same arithmetic
+    inlined (and repeated values formatted once), for whole table columns.
+
+    >>> format_si_list([4e-5, 0.0, 999.96e-6, 4e-5], "A")
+    ['40 µA', '0 A', '1 mA', '40 µA']
+    """
+    log10, floor, isfinite = math.log10, math.floor, math.isfinite
+    prefixes = _DISPLAY_PREFIXES
+    spec = f".{digits}g"
+    seen: dict[float, str] = {}
+    out = []
+    for value in values:
+        text = seen.get(value)
+        if text is None:
+            if not isfinite(value) or value == 0:
+                text = format_si(value, unit, digits)
+            else:
+                group = min(4, max(-6, floor(log10(abs(value)) / 3)))
+                number = format(value / 1000.0**group, spec)
+                if group < 4 and abs(float(number)) >= 1000:
+                    group += 1
+                    number = format(value / 1000.0**group, spec)
+                prefix = prefixes[group + 6]
+                text = f"{number} {prefix}{unit}" if unit or prefix else number
+            if len(seen) < 100_000:
+                seen[value] = text
+        out.append(text)
+    return out
+
+
 def signed_percent(fraction: float, decimals: int = 2) -> str:
     """A fraction as a signed percentage with fixed decimals: ``-0.0198 -> '-1.98%'``."""
     return f"{fraction * 100:+.{decimals}f}%"

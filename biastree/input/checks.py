@@ -10,6 +10,7 @@ here guarantee that before ``biastree.tree`` builds its arrays.
 from __future__ import annotations
 
 import difflib
+from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 from pydantic import BaseModel
@@ -431,6 +432,8 @@ def check_plausible(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
                           f"({_range_text(mark)}); if you mean it, list '{key}' under allow_unusual"))
 
     def visit(value: Any, mark: Any, path: tuple[Any, ...]) -> None:
+        if isinstance(value, dict) and len(value) > _BULK and _all_inside(list(value.values()), mark):
+            return  # nothing to report in this section (checked in bulk); else visited in order
         if isinstance(value, BaseModel):
             for name, inner, alias in _ranges(type(value)):
                 visit(getattr(value, name, None), inner, path + (alias,))
@@ -446,3 +449,159 @@ def check_plausible(plan: Plan) -> list[tuple[tuple[Any, ...], str]]:
 
     visit(plan, None, ())
     return out
+
+
+_BULK = 64  # sections with more entries than this are first checked in bulk
+
+
+def _all_inside(values: list[Any], mark: Any) -> bool:
+    """True when no number inside ``values`` (models of one class, or plain
+    numbers, tuples and lists of them) lies outside its plausible range:
+    then ``check_plausible`` has nothing to say about them.  False also
+    means "not sure" (the caller then visits them one by one, in order)."""
+    from operator import attrgetter
+
+    import numpy as np
+
+    if not values:
+        return True
+    types = set(map(type, values))
+    if len(types) == 1 and issubclass(next(iter(types)), BaseModel):
+        for name, inner, _ in _ranges(next(iter(types))):
+            if not _all_inside(list(map(attrgetter(name), values)), inner):
+                return False
+        return True
+    if types <= _PLAIN:
+        if mark is None or not types & {float, int}:
+            return True
+        if bool in types or type(None) in types:
+            values = [v for v in values if type(v) in (float, int)]
+        x = np.array(values, dtype=float)
+        if mark.magnitude:
+            x = np.abs(x)
+        return bool(np.all((mark.low <= x) & (x <= mark.high)))
+    if types <= _PLAIN | {tuple, list}:
+        inner_values = [item for v in values if type(v) in (tuple, list) for item in v]
+        plain = [v for v in values if type(v) not in (tuple, list)]
+        return _all_inside(plain, mark) and _all_inside(inner_values, mark)
+    return False
+
+
+_PLAIN = frozenset((float, int, bool, str, type(None)))
+
+
+# --- large plans: the structure proved in bulk ---------------------------------
+
+
+@dataclass(frozen=True)
+class Layout:
+    """A plan's tree as arrays, proved free of structural problems in bulk.
+
+    Mirror indices are in plan order (``names``); ``depth`` is each mirror's
+    generation (0 for the one the reference feeds).  Branches are flattened
+    in plan order: ``b_parent`` owns branch k, which is the ``b_index``-th of
+    its list and drives mirror ``b_mirror`` or load ``b_load`` (-1 for the
+    other kind)."""
+
+    names: list[str]
+    depth: Any
+    kinds: list[str]
+    b_parent: Any
+    b_index: Any
+    b_mirror: Any
+    b_load: Any
+    b_ratio: Any
+    b_count: Any
+
+
+_MAX_GENERATIONS = 2000
+
+
+def clean_layout(plan: Plan) -> Layout | None:
+    """The tree's arrays when ``check_structure`` would find nothing, proved
+    with whole-array tests; ``None`` when anything is off or unsure (then
+    ``check_structure`` runs and says what, in its order and words)."""
+    import numpy as np
+
+    mirrors, loads, devices = plan.mirrors, plan.loads, plan.devices
+    if REFERENCE in mirrors or REFERENCE in loads or not mirrors.keys().isdisjoint(loads):
+        return None
+    names = list(mirrors)
+    specs = list(mirrors.values())
+    m_index = {name: i for i, name in enumerate(names)}
+    l_index = {name: i for i, name in enumerate(loads)}
+    kinds = []
+    for name, mirror in zip(names, specs):
+        device = devices.get(mirror.device)
+        if device is None:
+            return None
+        topo = TOPOLOGIES[mirror.topology]
+        if ("bjt" if device.kind in ("npn", "pnp") else "mos") not in topo.kinds:
+            return None
+        if topo.params != _NO_PARAMS or topo.single_output or not mirror.model_fields_set.isdisjoint(_TOPOLOGY_KEYS):
+            if _topology_params(name, mirror, topo):
+                return None
+        kinds.append(device.kind)
+    n_m = len(names)
+    counts = [len(m.branches) for m in specs]
+    branches = [b for m in specs for b in m.branches]
+    targets = [b.to for b in branches]
+    b_mirror = np.array([m_index.get(t, -1) for t in targets], dtype=np.int64)
+    b_load = np.array([l_index.get(t, -1) for t in targets], dtype=np.int64)
+    b_parent = np.repeat(np.arange(n_m, dtype=np.int64), counts)
+    starts = np.cumsum(counts) - np.asarray(counts)
+    b_index = np.arange(len(branches), dtype=np.int64) - np.repeat(starts, counts)
+    root = m_index.get(plan.reference.feeds)
+    if root is None or np.any((b_mirror < 0) & (b_load < 0)) or np.any(b_mirror == b_parent):
+        return None
+    to_mirror = b_mirror >= 0
+    fed = np.bincount(b_mirror[to_mirror], minlength=n_m)
+    if fed[root] != 0 or np.any(np.delete(fed, root) != 1):
+        return None
+    if len(loads) and not np.all(np.bincount(b_load[b_load >= 0], minlength=len(loads)) == 1):
+        return None
+    sink = np.array([is_sink(k) for k in kinds], dtype=bool)
+    if np.any(sink[b_parent[to_mirror]] == sink[b_mirror[to_mirror]]):
+        return None  # polarity
+    # generations: each mirror but the root is fed exactly once, so walking down from the root
+    # reaches every mirror unless some hang in a cycle
+    parent_of = np.full(n_m, -1, dtype=np.int64)
+    parent_of[b_mirror[to_mirror]] = b_parent[to_mirror]
+    b_count = np.array([b.count for b in branches], dtype=float)
+    feeding = np.full(n_m, -1, dtype=np.int64)
+    feeding[b_mirror[to_mirror]] = np.flatnonzero(to_mirror)
+    depth = np.full(n_m, -1, dtype=np.int64)
+    mult = np.ones(n_m)
+    by_parent = np.argsort(parent_of, kind="stable")
+    first = np.searchsorted(parent_of[by_parent], np.arange(n_m), side="left")
+    last = np.searchsorted(parent_of[by_parent], np.arange(n_m), side="right")
+    frontier = np.array([root], dtype=np.int64)
+    depth[root] = 0
+    for generation in range(1, _MAX_GENERATIONS + 1):
+        sizes = last[frontier] - first[frontier]
+        total = int(sizes.sum())
+        if total == 0:
+            break
+        offsets = np.repeat(first[frontier] - (np.cumsum(sizes) - sizes), sizes) + np.arange(total)
+        frontier = by_parent[offsets]
+        depth[frontier] = generation
+        b = feeding[frontier]
+        mult[frontier] = mult[parent_of[frontier]] * b_count[b]
+    else:
+        return None  # deeper than this: the general walk
+    if np.any(depth < 0):
+        return None  # unreachable (below a cycle)
+    if np.any(mult[b_parent] * b_count > MAX_INSTANCES):
+        return None
+    v = [load.v_range for load in loads.values()]
+    if v:
+        lo_hi = np.array([(r[0], r[2]) for r in v], dtype=float)
+        if not (np.all(lo_hi[:, 0] >= 0) and np.all(lo_hi[:, 1] <= plan.supply)):
+            return None
+    if check_floorplan(plan) or _check_spread(plan) or check_plausible(plan):
+        return None
+    b_ratio = np.array([b.ratio for b in branches], dtype=float)
+    return Layout(names, depth, kinds, b_parent, b_index, b_mirror, b_load, b_ratio, b_count)
+
+
+_NO_PARAMS: tuple[str, ...] = ()

@@ -278,14 +278,21 @@ def _has_surrogate(data: Any) -> bool:
     return False
 
 
-def parse_text(text: str, source: str = "plan", fmt: str | None = None) -> Document:
+def parse_text(text: str, source: str = "plan", fmt: str | None = None, fast: bool = True) -> Document:
     """Parse plan text (YAML, or JSON when ``fmt == 'json'``) to plain data.
 
-    A UTF-8 byte-order mark is accepted in both formats.
+    A UTF-8 byte-order mark is accepted in both formats.  ``fast`` first
+    tries the fast readers (``fast_yaml`` for the plain YAML subset plans
+    use, orjson for JSON without duplicate keys); a text they do not take
+    goes the full way, which gives every message with its line.
     """
     problems: list[Problem] = []
     if text.startswith("\ufeff"):
         text = text[1:]
+    if fast:
+        data = _fast_json(text) if fmt == "json" else _fast_yaml(text)
+        if isinstance(data, dict):
+            return Document(data, text, source)
     if fmt == "json":
         hook = _Pairs()
         try:
@@ -312,6 +319,48 @@ def parse_text(text: str, source: str = "plan", fmt: str | None = None) -> Docum
     if not isinstance(data, dict):
         raise PlanError([Problem("", "a plan must be a mapping of keys (title, supply, devices, reference, mirrors, loads)", 1)], source)
     return Document(data, text, source, problems=problems)
+
+
+def _fast_yaml(text: str) -> Any:
+    """The fast reader's data (None: the full path reads the text).  It
+    matches the walk over libyaml's C events; without libyaml the walk's
+    pure-Python events differ (plain nulls), so then the walk always runs."""
+    if _Loader is not getattr(yaml, "CBaseLoader", None):
+        return None
+    from biastree.input.fast_yaml import read
+
+    return read(text)
+
+
+_JSON_KEY = re.compile(r'"\s*:')
+
+
+def _fast_json(text: str) -> Any:
+    """orjson's reading of ``text`` when it has no duplicate key, else None.
+
+    A duplicate key would leave fewer entries than keys written; every key
+    is a closing quote followed by a colon, so counting those (a string
+    holding one counts too, and only sends the text the full way) proves
+    there is none.  Texts orjson refuses (NaN, huge integers, lone
+    surrogates, syntax errors) also go the full way, for its messages.
+    """
+    import orjson
+
+    try:
+        data = orjson.loads(text)
+    except (orjson.JSONDecodeError, ValueError, RecursionError):
+        return None
+    if not isinstance(data, dict):
+        return None
+    entries, stack = 0, [data]
+    while stack:
+        node = stack.pop()
+        if type(node) is dict:
+            entries += len(node)
+            stack.extend(v for v in node.values() if type(v) in (dict, list))
+        else:
+            stack.extend(v for v in node if type(v) in (dict, list))
+    return data if entries == len(_JSON_KEY.findall(text)) else None
 
 
 # --- step 2: plain data → Plan --------------------------------------------

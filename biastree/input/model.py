@@ -103,7 +103,7 @@ def _whole(value: object) -> object:
 
 
 def _line_of_text(value: object) -> object:
-    if isinstance(value, str) and any(not c.isprintable() for c in value):
+    if isinstance(value, str) and not value.isprintable():
         raise UnitError(f"'{shown(value)}' holds a control character or an invalid one")
     return value
 

@@ -14,7 +14,7 @@ import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Callable, Union
 
-from biastree.units import format_si, signed_percent
+from biastree.units import format_si, format_si_list, signed_percent
 
 if TYPE_CHECKING:  # the column list is read by `--help`, which must not load numpy
     from biastree.analysis.audit import Audit
@@ -173,7 +173,9 @@ def visible(result: Audit) -> list[Column]:
     n = len(result.tree.loads)
     out = []
     for c in COLUMNS:
-        if c.optional and not any(c.value(result, i) is not None for i in range(n)):
+        # an optional column's text is empty exactly where it has no value
+        if c.optional and not (any(texts(result, c, list(range(n)))) if c.key in BULK_TEXT
+                               else any(c.value(result, i) is not None for i in range(n))):
             continue
         out.append(c)
     return out
@@ -209,4 +211,109 @@ def order(result: Audit, key: str, descending: bool = False, loads: list[int] | 
     return present + missing
 
 
-__all__ = ["BY_KEY", "COLUMNS", "Column", "column", "order", "visible"]
+# --- whole columns at once (the table of a large plan) ------------------------
+#
+# Each gives ``[column.text(result, i) for i in loads]`` from whole arrays;
+# tests/test_fast_front_end.py compares them with the per-load texts.
+
+
+def _bulk_path(result: Audit, loads: list[int]) -> list[str]:
+    tree = result.tree
+    names = tree.mirrors
+    per_mirror = [" > ".join(names[m] for m in p) for p in tree.mirror_paths]
+    parent = tree.b_parent[tree.l_branch].tolist()
+    return [per_mirror[parent[i]] for i in loads]
+
+
+def _specs(result: Audit, loads: list[int]) -> list[tuple[float, float, float]]:
+    specs = result.tree.plan.loads
+    names = result.tree.loads
+    return [specs[names[i]].v_range for i in loads]
+
+
+def _bulk_voltage(result: Audit, loads: list[int]) -> list[str]:
+    ranges = _specs(result, loads)
+    lo = format_si_list([float(r[0]) for r in ranges], "V")
+    hi = format_si_list([float(r[2]) for r in ranges], "V")
+    return [a if r[0] == r[2] else f"{a}..{b}" for a, b, r in zip(lo, hi, ranges)]
+
+
+def _bulk_error_range(result: Audit, loads: list[int]) -> list[str]:
+    specs, names = result.tree.plan.loads, result.tree.loads
+    low = result.error[:, 0].tolist()
+    high = result.error[:, 2].tolist()
+    out = []
+    for i in loads:
+        if not isinstance(specs[names[i]].voltage, tuple):
+            out.append("")
+            continue
+        a, b = low[i], high[i]
+        out.append(f"{_pct(min(a, b))}..{_pct(max(a, b))}")
+    return out
+
+
+def _bulk_optional(f: Callable[[Audit, int], float | None], present: Callable[[Audit], bool],
+                   text: Callable[[float], str]) -> Callable[[Audit, list[int]], list[str]]:
+    def texts(result: Audit, loads: list[int]) -> list[str]:
+        if not present(result):
+            return [""] * len(loads)
+        out = []
+        for i in loads:
+            v = f(result, i)
+            out.append("" if v is None else text(v))
+        return out
+    return texts
+
+
+def _bulk_rout(result: Audit, loads: list[int]) -> list[str]:
+    r = result.op.b_rout[result.tree.l_branch, 1].tolist()
+    values = [r[i] for i in loads]
+    finite = [v for v in values if math.isfinite(v)]
+    texts = iter(format_si_list(finite, "Ω"))
+    return [next(texts) if math.isfinite(v) else "∞" for v in values]
+
+
+def _bulk_regulation(result: Audit, loads: list[int]) -> list[str]:
+    per_volt = result.regulation[2].tolist()
+    nominal = result.delivered[:, 1].tolist()
+    out = []
+    for i in loads:
+        p, n = per_volt[i], nominal[i]
+        out.append(f"{p / n * 100:+.3g}%" if p and n else "")
+    return out
+
+
+def _pick(values: list[object], loads: list[int]) -> list[object]:
+    return [values[i] for i in loads]
+
+
+BULK_TEXT: dict[str, Callable[[Audit, list[int]], list[str]]] = {
+    "load": lambda r, loads: [r.tree.loads[i] for i in loads],
+    "count": lambda r, loads: [str(int(v)) for v in _pick(r.tree.l_mult.tolist(), loads)],  # type: ignore[call-overload]
+    "path": _bulk_path,
+    "voltage": _bulk_voltage,
+    "target": lambda r, loads: format_si_list(_pick(r.target.tolist(), loads), "A"),  # type: ignore[arg-type]
+    "delivered": lambda r, loads: format_si_list(_pick(r.delivered[:, 1].tolist(), loads), "A", 4),  # type: ignore[arg-type]
+    "error": lambda r, loads: [_pct(v) for v in _pick(r.error[:, 1].tolist(), loads)],  # type: ignore[arg-type]
+    "error_range": _bulk_error_range,
+    "worst_condition": _bulk_optional(_worst_condition, lambda r: r.conditions is not None, _pct),
+    "tempco": _bulk_optional(_tempco, lambda r: r.conditions is not None and r.conditions.tempco_ppm is not None,
+                             lambda v: f"{v:+.4g}"),
+    "k_sigma": lambda r, loads: [""] * len(loads) if r.spread is None else [
+        f"{v:.3g}%" for v in _pick((r.k_sigma * r.sigma * 100).tolist(), loads)],
+    "budget": lambda r, loads: [f"±{v * 100:.3g}%" for v in _pick(r.tolerance.tolist(), loads)],  # type: ignore[operator]
+    "margin": lambda r, loads: [_pct(v) for v in _pick(r.margin.tolist(), loads)],  # type: ignore[arg-type]
+    "compliance": lambda r, loads: format_si_list(_pick(r.worst_compliance.tolist(), loads), "V"),  # type: ignore[arg-type]
+    "rout": _bulk_rout,
+    "regulation": _bulk_regulation,
+    "verdict": lambda r, loads: ["pass" if v else "FAIL" for v in _pick(r.passed.tolist(), loads)],
+}
+
+
+def texts(result: Audit, col: Column, loads: list[int]) -> list[str]:
+    """The column's cells for these loads (in bulk where the column has a bulk form)."""
+    bulk = BULK_TEXT.get(col.key)
+    return bulk(result, loads) if bulk is not None else [col.text(result, i) for i in loads]
+
+
+__all__ = ["BULK_TEXT", "BY_KEY", "COLUMNS", "Column", "column", "order", "texts", "visible"]

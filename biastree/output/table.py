@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from biastree.analysis.audit import Audit
-from biastree.output.columns import order, visible
+from biastree.output.columns import order, texts, visible
 from biastree.units import format_si, signed_percent
 
 LEGEND = ("margin: budget left after the deciding error, kσ and the reference tolerance; compl.: volts the output "
@@ -21,13 +21,15 @@ def to_table(result: Audit, failing_only: bool = False, sort: str | None = None,
     the failing loads."""
     tree = result.tree
     cols = visible(result)
-    loads = [i for i in range(len(tree.loads)) if not (failing_only and result.passed[i])]
+    passed = result.passed.tolist()
+    loads = [i for i in range(len(tree.loads)) if not (failing_only and passed[i])]
     if sort is not None:
         loads = order(result, sort, descending, loads)
     header = tuple(c.title for c in cols)
-    rows = [tuple(c.text(result, i) for c in cols) for i in loads]
+    cells = [texts(result, c, loads) for c in cols]  # column by column, in bulk
+    rows = list(zip(*cells))
     right = {k for k, c in enumerate(cols) if c.right}
-    widths = [max(len(h), *(len(r[k]) for r in rows)) if rows else len(h) for k, h in enumerate(header)]
+    widths = [max(len(h), *map(len, column)) if column else len(h) for h, column in zip(header, cells)]
 
     template = "  ".join(f"{{:{'>' if k in right else '<'}{w}}}" for k, w in enumerate(widths))
 
@@ -37,7 +39,7 @@ def to_table(result: Audit, failing_only: bool = False, sort: str | None = None,
     out = [line(header), line(tuple("-" * w for w in widths))]
     out += [line(r) for r in rows]
     out.append(LEGEND)
-    failing = [i for i in range(len(tree.loads)) if not result.passed[i]]
+    failing = [i for i in range(len(tree.loads)) if not passed[i]]
     if failing:
         out.append("")
         out.append("Why loads fail:")
@@ -49,7 +51,8 @@ def to_table(result: Audit, failing_only: bool = False, sort: str | None = None,
                 out.append(f"  {tree.loads[i]}: hint: {hint}")
         if len(failing) > MAX_REASONS:
             out.append(f"  … and {len(failing) - MAX_REASONS} more failing loads (every reason is in --json)")
-    notes = [t for t in (result.floorplan_text(i) for i in range(len(tree.loads))) if t]
+    remote = result.op.columns.remote if result.op.columns is not None else None
+    notes = [] if remote is None else [t for t in (result.floorplan_text(i) for i in range(len(tree.loads))) if t]
     if notes:
         out.append("")
         out += notes

@@ -15,7 +15,7 @@ from typing import TYPE_CHECKING, Any, Callable
 import numpy as np
 
 from biastree.errors import PlanError, Problem, format_path
-from biastree.input.checks import check_structure, is_sink, levels, plan_graph
+from biastree.input.checks import Layout, check_structure, clean_layout, is_sink, levels, plan_graph
 from biastree.input.model import Plan
 
 if TYPE_CHECKING:  # networkx is imported only when a graph is asked for
@@ -101,6 +101,9 @@ def build(plan: Plan, locate: Locate | None = None, source: str | None = None) -
 
     ``locate`` maps a key path to a line of the plan file, for messages.
     """
+    layout = clean_layout(plan) if len(plan.mirrors) + len(plan.loads) > _BULK_FROM else None
+    if layout is not None:
+        return _from_layout(plan, layout)
     problems = check_structure(plan)
     if problems:
         found = [Problem(format_path(path), msg, locate(path) if locate else None) for path, msg in problems]
@@ -162,6 +165,62 @@ def build(plan: Plan, locate: Locate | None = None, source: str | None = None) -
         m_fanout=m_fanout,
         b_parent=b_parent,
         b_index=np.array(index, dtype=np.int64),
+        b_ratio=b_ratio,
+        b_count=b_count,
+        b_to_load=b_to_load,
+        b_child=b_child,
+        l_branch=l_branch,
+        l_mult=l_mult,
+    )
+
+
+_BULK_FROM = 200  # mirrors + loads: larger plans are first checked and laid out in bulk
+
+
+def _from_layout(plan: Plan, layout: Layout) -> Tree:
+    """The tree from a bulk-proved layout: the same arrays as the walk in ``build``."""
+    names = layout.names
+    # generation order, names sorted within each generation (as ``build``)
+    order = sorted(range(len(names)), key=lambda i: (int(layout.depth[i]), names[i]))
+    rank = np.empty(len(names), dtype=np.int64)
+    rank[np.array(order, dtype=np.int64)] = np.arange(len(names), dtype=np.int64)
+    depth = layout.depth[order]
+    bounds = np.flatnonzero(np.diff(depth)) + 1
+    generations = tuple(np.arange(a, b) for a, b in zip(np.r_[0, bounds], np.r_[bounds, len(order)]))
+    perm = np.argsort(rank[layout.b_parent], kind="stable")
+    b_parent = rank[layout.b_parent][perm]
+    b_to_load = layout.b_load[perm] >= 0
+    b_child = np.where(b_to_load, layout.b_load[perm], rank[np.maximum(layout.b_mirror[perm], 0)])
+    b_ratio = layout.b_ratio[perm]
+    b_count = layout.b_count[perm]
+    n_m = len(order)
+    loads = tuple(plan.loads)
+    m_in_branch = np.full(n_m, -1, dtype=np.int64)
+    mirror_branches = np.flatnonzero(~b_to_load)
+    m_in_branch[b_child[mirror_branches]] = mirror_branches
+    l_branch = np.empty(len(loads), dtype=np.int64)
+    load_branches = np.flatnonzero(b_to_load)
+    l_branch[b_child[load_branches]] = load_branches
+    m_mult = np.ones(n_m)
+    for gen in generations[1:]:
+        b = m_in_branch[gen]
+        m_mult[gen] = m_mult[b_parent[b]] * b_count[b]
+    l_mult = m_mult[b_parent[l_branch]] * b_count[l_branch]
+    m_fanout = np.zeros(n_m)
+    np.add.at(m_fanout, b_parent, b_ratio * b_count)
+    kinds = [layout.kinds[i] for i in order]
+    return Tree(
+        plan=plan,
+        mirrors=tuple(names[i] for i in order),
+        loads=loads,
+        generations=generations,
+        m_sink=np.array([is_sink(k) for k in kinds], dtype=bool),
+        m_bipolar=np.array([k in ("npn", "pnp") for k in kinds], dtype=bool),
+        m_in_branch=m_in_branch,
+        m_mult=m_mult,
+        m_fanout=m_fanout,
+        b_parent=b_parent,
+        b_index=layout.b_index[perm],
         b_ratio=b_ratio,
         b_count=b_count,
         b_to_load=b_to_load,
