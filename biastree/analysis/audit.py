@@ -304,25 +304,31 @@ class Audit:
                 f"budget: error {format_percent(d['error'])}{mm}{ref} = {d['used'] * 100:.3g} % exceeds "
                 f"±{d['tolerance'] * 100:.3g} % at {self.deciding_text(load, d)}{largest}"
             )
-        if self.conditions is not None and self.compliance[load] >= 0 and self.conditions.compliance[load] < 0:
-            k = int(self.conditions.compliance_index[load])
-            out.append(f"compliance: the output device leaves its active region at {self.conditions.columns.names[k]} "
-                       f"({format_si(float(self.conditions.compliance[load]), 'V')})")
+        conds = self.conditions
+        at_nominal = " (nominal conditions)" if conds is not None else ""
+        # a condition worse than nominal is named too, so the line carries the figure the table shows
+        if conds is not None and conds.compliance[load] < min(0.0, float(self.compliance[load])):
+            k = int(conds.compliance_index[load])
+            out.append(f"compliance: the output device leaves its active region at {conds.columns.names[k]} "
+                       f"({format_si(float(conds.compliance[load]), 'V')})")
         if self.compliance[load] < 0:
             case = int(self.compliance_case[load])
             branch = tree.l_branch[load]
             need = float(op.b_min_distance[branch, case])
             have = float(op.b_distance[branch, case])
             parent = tree.mirrors[tree.b_parent[branch]]
+            v_node = float(plan.loads[name].v_range[case])
+            # the node voltage is named when it is not the distance from the rail itself (sourcing outputs)
+            node = f" at node {format_si(v_node, 'V')}" if abs(v_node - have) > 1e-9 * max(1.0, abs(have)) else ""
             if have - need <= op.b_internal_margin[branch, case]:
                 out.append(
                     f"compliance: output of {parent} needs {format_si(need, 'V')} from its rail, "
-                    f"has {format_si(have, 'V')} at {format_si(plan.loads[name].v_range[case], 'V')}"
+                    f"has {format_si(have, 'V')}{node}{at_nominal}"
                 )
             else:
                 out.append(
                     f"compliance: a device inside {parent}'s output stack is "
-                    f"{format_si(-float(op.b_internal_margin[branch, case]), 'V')} into its triode region"
+                    f"{format_si(-float(op.b_internal_margin[branch, case]), 'V')} into its triode region{at_nominal}"
                 )
         if np.any(self.delivered[load] <= 0):
             out.append("model: no positive current — the output is far outside its active region, so the "
@@ -333,8 +339,13 @@ class Audit:
             child = tree.mirrors[tree.b_child[up]]
             out.append(
                 f"headroom: {parent} -> {child} output lacks {format_si(-float(op.b_compliance[up].min()), 'V')} "
-                f"(the input of {child} leaves too little voltage for {parent}'s output device)"
+                f"(the input of {child} leaves too little voltage for {parent}'s output device){at_nominal}"
             )
+        if conds is not None and conds.headroom[load] < 0 and (up < 0 or conds.headroom[load] < -float(
+                op.b_compliance[up].min())):
+            out.append(f"headroom: a branch between mirrors on its path leaves its active region at "
+                       f"{conds.columns.names[int(conds.headroom_index[load])]} "
+                       f"(lacks {format_si(-float(conds.headroom[load]), 'V')})")
         if self.reference_headroom <= 0:
             out.append("headroom: the reference source has no voltage left (first mirror's input exceeds the supply)")
         return out
