@@ -80,15 +80,19 @@ class Audit:
             [rows[int(tree.l_branch[load])]]
 
     @cached_property
-    def _stage_cache(self) -> dict[int, list[dict[str, Any]]]:
+    def _stage_cache(self) -> dict[Any, list[dict[str, Any]]]:
         return {}
 
     def _stage_rows(self, case: int, op: OperatingPoint | None = None) -> list[dict[str, Any]]:
         """One stage dict per branch (the stage a load passes through when its
         path takes that branch), built in one pass from the arrays; cached for
         the audit's own operating point."""
+        # cached for the audit's own operating point and for the deciding condition
+        # columns' (``_condition_terms``): every load's deciding case reads one of them
+        terms = self.__dict__.get("_condition_terms")
         own = op is None or op is self.op
-        cached = self._stage_cache.get(case) if own else None
+        slot = case if own else (("conditions", case) if terms is not None and op is terms[0] else None)
+        cached = self._stage_cache.get(slot) if slot is not None else None
         if cached is not None:
             return cached
         tree, op = self.tree, (self.op if op is None else op)
@@ -130,8 +134,8 @@ class Audit:
                     "terms": terms,
                 }
             )
-        if own:
-            self._stage_cache[case] = rows
+        if slot is not None:
+            self._stage_cache[slot] = rows
         return rows
 
     def plan_term(self, load: int) -> float:
