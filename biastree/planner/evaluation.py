@@ -71,9 +71,14 @@ def evaluate(data: dict[str, Any]) -> tuple[Tree, Audit]:
 
 class Evaluator:
     """``evaluate`` that re-validates only the mirrors that changed since the last call
-    (the loads, devices and conditions of a large plan are validated once)."""
+    (the loads, devices and conditions of a large plan are validated once).
 
-    def __init__(self) -> None:
+    ``checked=False`` skips the structural check of each variant (the planner's
+    own search, whose edits keep the structure valid; the plan it writes is
+    built and checked in full from its text).  The verdicts do not depend on it."""
+
+    def __init__(self, checked: bool = True) -> None:
+        self.checked = checked
         self._base: Plan | None = None
         self._key: str | None = None
         self._mirrors: dict[str, tuple[str, Mirror]] = {}
@@ -97,7 +102,7 @@ class Evaluator:
                     self._mirrors[n] = hit
                 mirrors[n] = hit[1]
             plan = self._base.model_copy(update={"mirrors": mirrors})
-        tree = build(plan)
+        tree = build(plan, checked=self.checked)
         return tree, check_tree(tree, detail=False)
 
 

@@ -61,7 +61,7 @@ class Search:
         self.touch = touch  # mirrors the search may rebalance freely (None: all)
         self.result: Audit | None = None
         self.tree: Tree | None = None
-        self.evaluate = Evaluator()
+        self.evaluate = Evaluator(checked=False)
         self.escalated: set[str] = set()
         self.stuck: dict[str, int] = {}
         self.fallback: dict[str, dict[str, Any]] = {}
