@@ -50,6 +50,10 @@ def _family(data: dict[str, Any], mirror: str) -> str:
     return "bjt" if kind in ("npn", "pnp") else "mos"
 
 
+def _fits(ratios: list[float], allowed: list[float], n_in: int, units: list[int]) -> bool:
+    return all(abs(u / n_in / r - 1.0) <= a for u, r, a in zip(units, ratios, allowed))
+
+
 class Search:
     """Mutable state of one search over plain plan data."""
 
@@ -88,11 +92,45 @@ class Search:
             self.data, self.changes = best[1], best[2]
             self.tree, self.result = self.evaluate(self.data)
         if not bool(self.result.passed.all()):
+            self._polish()
+        if not bool(self.result.passed.all()):
             self._feeder_knob()
         if self.rules.economise and bool(self.result.passed.all()):
             self._economise()
         self._merge_changes()
         return self.result
+
+    def _polish(self) -> None:
+        """The mirrors of the blocks that still fail re-centre their ratios from the last
+        check (the best plan found may come from a round whose rebalance came later);
+        kept while fewer blocks fail."""
+        for _ in range(3):
+            r = self.result
+            assert r is not None
+            failing = [m for m, idx in self._failing_mirrors().items()
+                       if all(r.compliance[i] >= 0 and r.upstream[i] < 0 for i in idx)]
+            if self.touch is not None:
+                failing = [m for m in failing if m in self.touch]
+            if not failing:
+                return
+            before = int((~r.passed).sum())
+            trial = dict(self.data)
+            trial["mirrors"] = dict(self.data["mirrors"])
+            for m in failing:
+                trial["mirrors"][m] = copy.deepcopy(self.data["mirrors"][m])
+            sub = Search.__new__(Search)
+            sub.data, sub.rules, sub.changes, sub.tree, sub.result = trial, self.rules, [], self.tree, r
+            sub.touch = set(failing)
+            if not sub._rebalance(failing_only=False):
+                return
+            try:
+                t_tree, t_res = self.evaluate(trial)
+            except (SolveError, ValueError):
+                return
+            if int((~t_res.passed).sum()) >= before:
+                return
+            self.data, self.tree, self.result = trial, t_tree, t_res
+            self.changes.extend(sub.changes)
 
     def _feeder_knob(self) -> None:
         """Blocks whose own whole-unit ratios cannot be rounded finely enough: move the
@@ -407,7 +445,14 @@ class Search:
         branches = self.data["mirrors"][mirror]["branches"]
         if topo.single_output and (len(branches) != 1 or branches[0].get("count", 1) != 1):
             return False
+        if topology == "simple" and family == "bjt" and self._feeds_mirrors(mirror) and self._allowed(mirror, "beta_helper", [], True):
+            # a bipolar mirror that feeds mirrors keeps its β loading small (÷β with a helper): its
+            # fan-out changes as the search splits blocks off, and every block below would move with it
+            return False
         return fresh or topology not in self.tried.setdefault(mirror, set())
+
+    def _feeds_mirrors(self, mirror: str) -> bool:
+        return any(b["to"] in self.data["mirrors"] for b in self.data["mirrors"][mirror]["branches"])
 
     def _loads_below(self, mirror: str) -> list[str]:
         loads = self.data["loads"]
@@ -419,6 +464,12 @@ class Search:
         spec["topology"] = topology
         self.tried.setdefault(mirror, set()).add(topology)
         self.changes.append(Change("topology", mirror, before, topology, why))
+
+    def _branches(self, mirror: int) -> range:
+        tree = self.tree
+        assert tree is not None
+        start = int(np.searchsorted(tree.b_parent, mirror, "left"))
+        return range(start, int(np.searchsorted(tree.b_parent, mirror, "right")))
 
     def _slack(self, load: int) -> float:
         r = self.result
@@ -451,19 +502,28 @@ class Search:
                 continue
             spec = self.data["mirrors"][name]
             branches = spec["branches"]
-            idx = {tree.b_index[tree.l_branch[i]]: i for i in loads}
+            # every block of the mirror is re-centred (a block already centred keeps its ratio
+            # within the same allowance), so the rounding can use the whole input device
+            idx = {int(tree.b_index[b]): int(tree.b_child[b]) for b in self._branches(m) if tree.b_to_load[b]}
             ratios, allowed = [], []
             for k, b in enumerate(branches):
                 if k in idx:
                     i = idx[k]
-                    ratios.append(b.get("ratio", 1.0) / (1.0 + mid[i]))
+                    ok = r.compliance[i] >= 0 and r.upstream[i] < 0 and abs(mid[i]) < 0.9
+                    ratios.append(b.get("ratio", 1.0) / (1.0 + (mid[i] if ok else 0.0)))
                     allowed.append(max(0.3 * max(self._slack(i), 0.0), 5e-4))
                 else:
                     ratios.append(b.get("ratio", 1.0))
-                    allowed.append(1e-9 if b["to"] in self.data["loads"] else 0.01)
+                    allowed.append(0.01)
             size = spec.get("input_size", 1.0)
             if self.rules.whole:
                 got = realise(ratios, allowed, self.rules.max_units, start=int(size) if float(size).is_integer() else 1)
+                if got is None or not _fits(ratios, allowed, *got):
+                    # the input device as it is leaves no room (an output would pass max_units) or
+                    # rounds too coarsely: a smaller one may fit every output
+                    low = realise(ratios, allowed, self.rules.max_units)
+                    if low is not None and (got is None or _fits(ratios, allowed, *low)):
+                        got = low
                 if got is None:
                     continue
                 n_in, units = got
@@ -556,6 +616,8 @@ class Search:
         while new in self.data["mirrors"] or new in self.data["loads"]:
             new += "_"
         pspec["branches"].append({"to": new, "ratio": units / size, "count": branch.get("count", 1)})
+        if pspec.get("topology", "simple") == "simple" and not self._allowed(parent, "simple", [], True):
+            self._set_topology(parent, "beta_helper", f"it now feeds {new}: a helper keeps its β loading small")
         self.data["mirrors"][new] = {"device": spec["device"], "input_size": float(n_new), "topology": "simple",
                                      "branches": [{"to": load, "ratio": u_new[0] / n_new}]}
         fp = self.data.get("floorplan")
