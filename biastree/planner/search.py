@@ -593,18 +593,57 @@ class Search:
             acted = True
         return acted
 
+    def _feeder_with_room(self, parent: str, load: str, current: float, count: int) -> str | None:
+        """The mirror that feeds a block split off: its own mirror's parent when that has
+        fan-out to spare (limit max_fanout), else the nearest mirror of the same device that
+        feeds mirrors and has; None when none has."""
+        tree, r = self.tree, self.result
+        assert tree is not None and r is not None
+
+        def room(name: str) -> bool:
+            spec = self.data["mirrors"][name]
+            if name not in tree.mirrors:
+                return False
+            p_in = float(r.op.m_i_in[tree.mirrors.index(name), 1])
+            ratio = current / p_in if p_in > 0 else float("inf")
+            if not 1 / self.rules.max_ratio <= ratio <= self.rules.max_ratio:
+                return False
+            fan = sum(b.get("ratio", 1.0) * b.get("count", 1) for b in spec["branches"])
+            return fan + max(1.0, ratio) * count <= self.rules.max_fanout
+
+        if room(parent):
+            return parent
+        device = self.data["mirrors"][parent]["device"]
+        positions = (self.data.get("floorplan") or {}).get("positions") or {}
+        here = positions.get(load)
+        others = [m for m, spec in self.data["mirrors"].items()
+                  if m != parent and spec["device"] == device and self._feeds_mirrors(m) and room(m)]
+        if not others:
+            return None
+
+        def distance(m: str) -> tuple[float, str]:
+            at = positions.get(m)
+            if here is None or at is None:
+                return (0.0, m)
+            return (math.hypot(at[0] - here[0], at[1] - here[1]), m)
+
+        return min(others, key=distance)
+
     def _split(self, mirror: str, load: str, why: str) -> bool:
         tree, r = self.tree, self.result
         assert tree is not None and r is not None
         mi = tree.mirrors.index(mirror)
         pb = int(tree.m_in_branch[mi])
-        parent = tree.mirrors[int(tree.b_parent[pb])]
         spec = self.data["mirrors"][mirror]
         if len(spec["branches"]) < 2:
             return False
         k = next(j for j, b in enumerate(spec["branches"]) if b["to"] == load)
-        branch = spec["branches"].pop(k)
         current = self.data["loads"][load]["current"]
+        count = spec["branches"][k].get("count", 1)
+        parent = self._feeder_with_room(tree.mirrors[int(tree.b_parent[pb])], load, current, count)
+        if parent is None:
+            return False
+        branch = spec["branches"].pop(k)
         pspec = self.data["mirrors"][parent]
         p_in = float(r.op.m_i_in[tree.mirrors.index(parent), 1])
         size = pspec.get("input_size", 1.0)
