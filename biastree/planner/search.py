@@ -94,6 +94,8 @@ class Search:
         if not bool(self.result.passed.all()):
             self._polish()
         if not bool(self.result.passed.all()):
+            self._last_topologies()
+        if not bool(self.result.passed.all()):
             self._feeder_knob()
         if self.rules.economise and bool(self.result.passed.all()):
             self._economise()
@@ -131,6 +133,36 @@ class Search:
                 return
             self.data, self.tree, self.result = trial, t_tree, t_res
             self.changes.extend(sub.changes)
+
+    def _last_topologies(self) -> None:
+        """The mirrors of the blocks that still fail try every allowed topology once more from
+        the final plan (the best plan may come from a round before their last change); kept
+        when fewer blocks fail."""
+        r = self.result
+        assert r is not None
+        failing = self._failing_mirrors()
+        targets = sorted(m for m in failing if self.touch is None or m in self.touch)
+        if not targets:
+            return
+        before = int((~r.passed).sum())
+        saved = (copy.deepcopy(self.data), list(self.changes), self.tree, self.result)
+        tried, self.tried = self.tried, {}
+        choice = self._trials(targets, {m: failing[m] for m in targets}, {m: {m} for m in targets})
+        self.tried = tried
+        if not choice:
+            self.data, self.changes = saved[0], saved[1]
+            return
+        for m, (t, spec) in choice.items():
+            if t != self.data["mirrors"][m].get("topology", "simple"):
+                self._set_topology(m, t, f"least-cost topology under which every block of {m} passes")
+            self.data["mirrors"][m] = spec
+        try:
+            self.tree, self.result = self.evaluate(self.data)
+        except (SolveError, ValueError):
+            self.data, self.changes, self.tree, self.result = saved
+            return
+        if int((~self.result.passed).sum()) >= before:
+            self.data, self.changes, self.tree, self.result = saved
 
     def _feeder_knob(self) -> None:
         """Blocks whose own whole-unit ratios cannot be rounded finely enough: move the
@@ -283,6 +315,14 @@ class Search:
         for m in sorted(failing):
             if m in choice:
                 continue
+            if self._rounding_limited(m, failing[m]):
+                # only the whole-unit rounding of a shared mirror keeps these blocks off centre (their
+                # error spread fits the budget): a mirror of their own gives two roundings in series
+                for i in failing[m]:
+                    self._split_for(m, tree.loads[i], actions)
+                if any(tree.loads[i] in actions for i in failing[m]):
+                    self.fallback.pop(m, None)
+                    continue
             spec = self.fallback.pop(m, None)
             if spec is not None and spec != self.data["mirrors"][m]:
                 old = self.data["mirrors"][m]
@@ -306,6 +346,21 @@ class Search:
                     self._split_for(m, tree.loads[i], actions)
         self.escalated |= new_escalated
         return self._apply(actions) or acted
+
+    def _rounding_limited(self, mirror: str, failing: list[int]) -> bool:
+        r = self.result
+        assert r is not None
+        if len(self.data["mirrors"][mirror]["branches"]) < 2:
+            return False
+        for i in failing:
+            if r.compliance[i] < 0 or r.upstream[i] >= 0 or r.k_sigma * float(r.sigma[i]) > 0:
+                return False
+            if r.conditions is not None:
+                return False  # the spread over conditions may decide: the topology steps see to it
+            half = 0.5 * float(r.error[i].max() - r.error[i].min())
+            if half > 0.7 * self._slack(i):
+                return False
+        return True
 
     def _parent(self, mirror: str) -> str | None:
         tree = self.tree
@@ -641,9 +696,13 @@ class Search:
         current = self.data["loads"][load]["current"]
         count = spec["branches"][k].get("count", 1)
         parent = self._feeder_with_room(tree.mirrors[int(tree.b_parent[pb])], load, current, count)
+        copies_here = False  # the copies of the block hang on its new mirror (one feed), not on the feeder
+        if parent is None and count > 1:
+            parent = self._feeder_with_room(tree.mirrors[int(tree.b_parent[pb])], load, current, 1)
+            copies_here = True
         if parent is None:
             return False
-        branch = spec["branches"].pop(k)
+        spec["branches"].pop(k)
         pspec = self.data["mirrors"][parent]
         p_in = float(r.op.m_i_in[tree.mirrors.index(parent), 1])
         size = pspec.get("input_size", 1.0)
@@ -654,11 +713,12 @@ class Search:
         new = f"{mirror}_{load}"
         while new in self.data["mirrors"] or new in self.data["loads"]:
             new += "_"
-        pspec["branches"].append({"to": new, "ratio": units / size, "count": branch.get("count", 1)})
+        pspec["branches"].append({"to": new, "ratio": units / size, "count": 1 if copies_here else count})
         if pspec.get("topology", "simple") == "simple" and not self._allowed(parent, "simple", [], True):
             self._set_topology(parent, "beta_helper", f"it now feeds {new}: a helper keeps its β loading small")
         self.data["mirrors"][new] = {"device": spec["device"], "input_size": float(n_new), "topology": "simple",
-                                     "branches": [{"to": load, "ratio": u_new[0] / n_new}]}
+                                     "branches": [{"to": load, "ratio": u_new[0] / n_new,
+                                                   **({"count": count} if copies_here else {})}]}
         fp = self.data.get("floorplan")
         if fp and fp.get("positions") and load in fp["positions"]:
             fp["positions"][new] = fp["positions"][load]
