@@ -69,6 +69,8 @@ class Search:
         self.escalated: set[str] = set()
         self.stuck: dict[str, int] = {}
         self.fallback: dict[str, dict[str, Any]] = {}
+        self.new_feeders: dict[str, float] = {}  # feeders added this round: their expected input current
+        self.seen: dict[str, int] = {}  # rounds in which each mirror had a failing block
 
     # --- the loop -----------------------------------------------------------
 
@@ -279,6 +281,7 @@ class Search:
 
     def _round(self) -> bool:
         """One combined step: local routing, topology trials, then escalation, splits and sizes."""
+        self.new_feeders = {}
         r, tree = self.result, self.tree
         assert r is not None and tree is not None
         acted = False
@@ -313,8 +316,12 @@ class Search:
         actions: dict[str, tuple[str, Any, str]] = {}
         new_escalated: set[str] = set()
         for m in sorted(failing):
-            if m in choice:
+            self.seen[m] = self.seen.get(m, 0) + 1
+            if m in choice and self.seen[m] < 3:
                 continue
+            # a mirror that keeps failing whatever topology it is given, and whose blocks only
+            # rounding keeps off centre, splits them off (its topology may swing between two that
+            # each leave a different block just off centre)
             if self._rounding_limited(m, failing[m]):
                 # only the whole-unit rounding of a shared mirror keeps these blocks off centre (their
                 # error spread fits the budget): a mirror of their own gives two roundings in series
@@ -323,6 +330,8 @@ class Search:
                 if any(tree.loads[i] in actions for i in failing[m]):
                     self.fallback.pop(m, None)
                     continue
+            if m in choice:
+                continue
             spec = self.fallback.pop(m, None)
             if spec is not None and spec != self.data["mirrors"][m]:
                 old = self.data["mirrors"][m]
@@ -655,26 +664,21 @@ class Search:
         tree, r = self.tree, self.result
         assert tree is not None and r is not None
 
-        def room(name: str) -> bool:
+        def room(name: str, current: float, count: int) -> bool:
             spec = self.data["mirrors"][name]
-            if name not in tree.mirrors:
+            p_in = self._input_current(name)
+            if p_in is None:
                 return False
-            p_in = float(r.op.m_i_in[tree.mirrors.index(name), 1])
             ratio = current / p_in if p_in > 0 else float("inf")
             if not 1 / self.rules.max_ratio <= ratio <= self.rules.max_ratio:
                 return False
             fan = sum(b.get("ratio", 1.0) * b.get("count", 1) for b in spec["branches"])
             return fan + max(1.0, ratio) * count <= self.rules.max_fanout
 
-        if room(parent):
+        if room(parent, current, count):
             return parent
-        device = self.data["mirrors"][parent]["device"]
         positions = (self.data.get("floorplan") or {}).get("positions") or {}
         here = positions.get(load)
-        others = [m for m, spec in self.data["mirrors"].items()
-                  if m != parent and spec["device"] == device and self._feeds_mirrors(m) and room(m)]
-        if not others:
-            return None
 
         def distance(m: str) -> tuple[float, str]:
             at = positions.get(m)
@@ -682,7 +686,51 @@ class Search:
                 return (0.0, m)
             return (math.hypot(at[0] - here[0], at[1] - here[1]), m)
 
-        return min(others, key=distance)
+        def nearest(device: str, current: float, count: int, besides: str) -> str | None:
+            others = [m for m, spec in self.data["mirrors"].items()
+                      if m != besides and spec["device"] == device and self._feeds_mirrors(m) and room(m, current, count)]
+            return min(others, key=distance) if others else None
+
+        pspec = self.data["mirrors"][parent]
+        found = nearest(pspec["device"], current, count, parent)
+        if found is not None or count > 1:
+            return found
+        # every feeder of that device is full: a new one, fed by the nearest mirror with room one level up
+        p_in = self._input_current(parent)
+        grand = self._parent(parent)
+        if p_in is None or grand is None:
+            return None
+        above = nearest(self.data["mirrors"][grand]["device"], p_in, 1, "")
+        if above is None:
+            return None
+        aspec = self.data["mirrors"][above]
+        a_in = self._input_current(above)
+        assert a_in is not None
+        size = aspec.get("input_size", 1.0)
+        units = max(1, min(self.rules.max_units, round(p_in / a_in * size)))
+        name = f"{parent}_x"
+        while name in self.data["mirrors"] or name in self.data["loads"]:
+            name += "x"
+        aspec["branches"].append({"to": name, "ratio": units / size})
+        self.data["mirrors"][name] = {"device": pspec["device"], "input_size": 1.0,
+                                      "topology": pspec.get("topology", "simple"), "branches": []}
+        self.tried[name] = {pspec.get("topology", "simple")}
+        self.new_feeders[name] = a_in * units / size
+        fp = self.data.get("floorplan")
+        if fp and fp.get("positions") and here is not None:
+            fp["positions"][name] = here
+        self.changes.append(Change("split", name, "—", f"a new feeder fed by {above}",
+                                   f"every {pspec['device']} feeder had its fan-out (max_fanout) in use"))
+        return name
+
+    def _input_current(self, mirror: str) -> float | None:
+        tree, r = self.tree, self.result
+        assert tree is not None and r is not None
+        if mirror in self.new_feeders:
+            return self.new_feeders[mirror]
+        if mirror not in tree.mirrors:
+            return None
+        return float(r.op.m_i_in[tree.mirrors.index(mirror), 1])
 
     def _split(self, mirror: str, load: str, why: str) -> bool:
         tree, r = self.tree, self.result
@@ -704,7 +752,8 @@ class Search:
             return False
         spec["branches"].pop(k)
         pspec = self.data["mirrors"][parent]
-        p_in = float(r.op.m_i_in[tree.mirrors.index(parent), 1])
+        p_in = self._input_current(parent)
+        assert p_in is not None
         size = pspec.get("input_size", 1.0)
         units = max(1, min(self.rules.max_units, round(current / p_in * size)))
         # the new mirror's own ratio makes up what the parent's whole units miss
