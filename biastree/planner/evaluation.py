@@ -24,6 +24,7 @@ class Rules:
 
     max_units: int = 64
     max_ratio: float = 16.0
+    min_current: float = 0.0  # least intermediate current, A
     max_fanout: float = float("inf")  # Σ ratio·count of one mirror (a split looks for a feeder with room)
     topologies: set[str] | None = None  # allowed topologies (None: all)
     block_topologies: dict[str, set[str]] = field(default_factory=dict)  # per load

@@ -322,7 +322,7 @@ class Search:
             # a mirror that keeps failing whatever topology it is given, and whose blocks only
             # rounding keeps off centre, splits them off (its topology may swing between two that
             # each leave a different block just off centre)
-            if self._rounding_limited(m, failing[m]):
+            if self.seen[m] >= 2 and self._rounding_limited(m, failing[m]):
                 # only the whole-unit rounding of a shared mirror keeps these blocks off centre (their
                 # error spread fits the budget): a mirror of their own gives two roundings in series
                 for i in failing[m]:
@@ -675,6 +675,7 @@ class Search:
             fan = sum(b.get("ratio", 1.0) * b.get("count", 1) for b in spec["branches"])
             return fan + max(1.0, ratio) * count <= self.rules.max_fanout
 
+        current = self._split_current(current)
         if room(parent, current, count):
             return parent
         positions = (self.data.get("floorplan") or {}).get("positions") or {}
@@ -723,6 +724,10 @@ class Search:
                                    f"every {pspec['device']} feeder had its fan-out (max_fanout) in use"))
         return name
 
+    def _split_current(self, current: float) -> float:
+        root = math.sqrt(self.rules.max_ratio)
+        return max(current / root, self.rules.min_current, self.data["reference"]["current"] / root)
+
     def _input_current(self, mirror: str) -> float | None:
         tree, r = self.tree, self.result
         assert tree is not None and r is not None
@@ -755,7 +760,11 @@ class Search:
         p_in = self._input_current(parent)
         assert p_in is not None
         size = pspec.get("input_size", 1.0)
-        units = max(1, min(self.rules.max_units, round(current / p_in * size)))
+        # the new mirror runs at a fraction of the block's current (ratio ≈ √max_ratio, within the
+        # intermediate current range): its input is overhead, and a ratio with both sizes ≤ max_units/√max_ratio
+        # can still be rounded to ≈ 0.1 %
+        i_new = self._split_current(current)
+        units = max(1, min(self.rules.max_units, round(i_new / p_in * size)))
         # the new mirror's own ratio makes up what the parent's whole units miss
         got = realise([current / (p_in * units / size)], [2e-3], self.rules.max_units)
         n_new, u_new = got if got is not None else (1, [1])
