@@ -72,6 +72,15 @@ class Search:
         self.new_feeders: dict[str, float] = {}  # feeders added this round: their expected input current
         self.seen: dict[str, int] = {}  # rounds in which each mirror had a failing block
 
+    def _snapshot(self) -> dict[str, Any]:
+        """A copy of the plan data to go back to: the search edits only the mirrors and the
+        floorplan (the loads, devices and conditions are shared, never edited)."""
+        out = dict(self.data)
+        out["mirrors"] = copy.deepcopy(self.data["mirrors"])
+        if "floorplan" in out:
+            out["floorplan"] = copy.deepcopy(self.data["floorplan"])
+        return out
+
     # --- the loop -----------------------------------------------------------
 
     def run(self) -> Audit:
@@ -81,7 +90,7 @@ class Search:
             self.tree, self.result = self.evaluate(self.data)
             failed = int((~self.result.passed).sum())
             if best is None or failed < best[0]:
-                best = (failed, copy.deepcopy(self.data), list(self.changes))
+                best = (failed, self._snapshot(), list(self.changes))
                 stale = 0
             else:
                 stale += 1
@@ -147,7 +156,7 @@ class Search:
         if not targets:
             return
         before = int((~r.passed).sum())
-        saved = (copy.deepcopy(self.data), list(self.changes), self.tree, self.result)
+        saved = (self._snapshot(), list(self.changes), self.tree, self.result)
         tried, self.tried = self.tried, {}
         choice = self._trials(targets, {m: failing[m] for m in targets}, {m: {m} for m in targets})
         self.tried = tried
@@ -216,7 +225,7 @@ class Search:
                     chosen[m] = (trial["mirrors"][parent]["branches"][k]["ratio"], trial["mirrors"][m])
         if not chosen:
             return
-        saved = (copy.deepcopy(self.data), list(self.changes))
+        saved = (self._snapshot(), list(self.changes))
         for m, (ratio, spec) in chosen.items():
             parent, k = feeds[m]
             pspec = copy.deepcopy(self.data["mirrors"][parent])
@@ -242,7 +251,7 @@ class Search:
                   and spec.get("topology", "simple") != "simple"]
         if not leaves:
             return
-        saved = (copy.deepcopy(self.data), list(self.changes))
+        saved = (self._snapshot(), list(self.changes))
         index = {n: i for i, n in enumerate(tree.loads)}
         judged = {m: [index[n] for n in self._loads_below(m)] for m in leaves}
         self.tried = {}
