@@ -38,16 +38,37 @@ def flat(blocks: BlockList) -> tuple[int, float]:
     return f.failed, f.overhead_power
 
 
+def _load() -> str:
+    import os
+
+    return "load average " + " ".join(f"{x:.2f}" for x in os.getloadavg())
+
+
 def main() -> None:
     quick = "--quick" in sys.argv
-    print("failures on random feasible block lists (confirmed by check on the written text):")
-    for n, seeds in ((10, 30), (100, 10), (1000, 3)) if not quick else ((10, 5),):
-        fails = lists = 0
+    print("failures on random feasible block lists (blocks failing as check judges the written text):")
+    sizes = ((10, 30), (100, 10), (200, 5), (1000, 5), (10000, 2)) if not quick else ((10, 5), (100, 2))
+    times: dict[int, list[tuple[float, float]]] = {}
+    per_block_big: list[float] = []
+    for n, seeds in sizes:
+        fails = blocks_failing = 0
         for seed in range(seeds):
-            o = plan_blocks(BlockList.model_validate(random_blocks(n, seed)))
-            lists += 1
+            b = BlockList.model_validate(random_blocks(n, seed))
+            t, c = time.perf_counter(), time.process_time()
+            o = plan_blocks(b)
+            times.setdefault(n, []).append((time.perf_counter() - t, time.process_time() - c))
             fails += 0 if o.ok else 1
-        print(f"  {n:>6} blocks: {lists} lists, {fails} not passing")
+            blocks_failing += o.figures.failed if o.figures is not None else n
+            for bad in o.infeasible:
+                print(f"    n={n} seed={seed}: {bad.text()}")
+            if n == 100 and o.ok:
+                one = plan_blocks(b, split_all=True)
+                if one.ok:
+                    per_block_big.append(one.figures.overhead_power / o.figures.overhead_power)
+        wall = [w for w, _ in times[n]]
+        cpu = [c for _, c in times[n]]
+        print(f"  {n:>6} blocks: {seeds} lists, {fails} not passing, {blocks_failing} blocks failing; "
+              f"plan time {min(wall):.2f}–{max(wall):.2f} s wall, {min(cpu):.2f}–{max(cpu):.2f} s CPU ({_load()})")
     print("cost against the exhaustive oracle (least overhead power over every grouping) and baselines:")
     ratios, per_block, flat_fail, found = [], [], [], 0
     for seed in range(12 if not quick else 3):
@@ -64,24 +85,19 @@ def main() -> None:
         if one.ok and o.ok:
             per_block.append(one.figures.overhead_power / o.figures.overhead_power)
     print(f"  oracle: optimum found in {found} of {len(ratios)}; worst excess {max(ratios) - 1:+.1%}; mean ratio {sum(ratios) / len(ratios):.3f}")
-    print(f"  one mirror per block: {min(per_block):.2f}–{max(per_block):.2f}× the planner's overhead power")
-    print(f"  one flat mirror per polarity: fails {sum(flat_fail)} of {6 * len(flat_fail)} blocks")
-    print("times (2 cores):")
-    for n in ((1000, 10000) if not quick else (1000,)):
-        data = random_blocks(n, 7)
-        t = time.perf_counter()
-        o = plan_blocks(BlockList.model_validate(data))
-        print(f"  plan {n} blocks: {time.perf_counter() - t:.1f} s, {o.figures.passed} pass, {o.figures.failed} fail, "
-              f"{o.figures.mirrors} mirrors")
-    # repair of a 1,000-load failing plan: the planned plan with every mirror made simple and ratios ideal
-    o = plan_blocks(BlockList.model_validate(random_blocks(1000, 8)), search=False)
+    print(f"  one mirror per block, 6 blocks: {min(per_block):.2f}–{max(per_block):.2f}× the planner's overhead power")
+    if per_block_big:
+        print(f"  one mirror per block, 100 blocks: {min(per_block_big):.2f}–{max(per_block_big):.2f}× the planner's overhead power")
+    print(f"  one flat simple mirror per polarity: fails {sum(flat_fail)} of {6 * len(flat_fail)} blocks")
+    # repair of a 1,000-load failing plan: the planned plan with its search switched off
+    o = plan_blocks(BlockList.model_validate(random_blocks(1000 if not quick else 100, 8)), search=False)
     from biastree.analysis.pipeline import check_tree
     from biastree.planner.repair import repair
     tree = o.tree
-    t = time.perf_counter()
+    t, c = time.perf_counter(), time.process_time()
     fixed = repair(tree, check_tree(tree, detail=False))
-    print(f"  repair 1000-load plan with {o.figures.failed} failing: {time.perf_counter() - t:.1f} s, "
-          f"{len(fixed.changes)} changes, {fixed.after.failed} still failing")
+    print(f"  repair {len(tree.loads)}-load plan with {o.figures.failed} failing: {time.perf_counter() - t:.1f} s wall, "
+          f"{time.process_time() - c:.1f} s CPU, {len(fixed.changes)} changes, {fixed.after.failed} still failing ({_load()})")
 
 
 if __name__ == "__main__":

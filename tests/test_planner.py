@@ -107,18 +107,28 @@ def test_voltage_without_compliance_is_named():
     assert out.infeasible[0].constraint == "compliance" and out.infeasible[0].amount > 0.3
 
 
-def test_repair_of_failing_samples(tmp_path):
+@pytest.fixture(scope="module")
+def repairs(tmp_path_factory):
+    """`plan --repair` on the failing samples, run once for every test that reads them."""
+    folder = tmp_path_factory.mktemp("repairs")
     runner = CliRunner()
-    out = tmp_path / "fixed.yaml"
-    r = runner.invoke(app, ["plan", "--repair", str(ROOT / "samples" / "die_spread.yaml"), "-o", str(out)])
+    out = {}
+    for key, sample, extra in (("die_spread", "die_spread.yaml", []), ("failing", "failing_budgets.yaml", []),
+                               ("forward", "failing_budgets.yaml", ["--forward-bias", "0.3V"])):
+        path = folder / f"{key}.yaml"
+        out[key] = (runner.invoke(app, ["plan", "--repair", str(ROOT / "samples" / sample), *extra, "-o", str(path)]), path)
+    return out
+
+
+def test_repair_of_failing_samples(repairs):
+    r, out = repairs["die_spread"]
     assert r.exit_code == 0, r.output
     assert "→" in r.output and bool(biastree.check(out).passed.all())
     # failing_budgets: hot_node sits 0.5 V below the supply, where no pnp output with V_CB ≥ 0 fits;
     # the repair says so, and passes once base-collector forward bias is allowed
-    r = runner.invoke(app, ["plan", "--repair", str(ROOT / "samples" / "failing_budgets.yaml"), "-o", str(out)])
+    r, _ = repairs["failing"]
     assert r.exit_code == 1 and "hot_node: compliance" in r.output
-    r = runner.invoke(app, ["plan", "--repair", str(ROOT / "samples" / "failing_budgets.yaml"), "--forward-bias", "0.3V",
-                            "-o", str(out)])
+    r, out = repairs["forward"]
     assert r.exit_code == 0, r.output
     assert bool(biastree.check(out).passed.all())
 
@@ -224,17 +234,17 @@ def test_repair_of_a_generated_failing_plan_passes_check():
         assert c.why and c.before and c.after and "→" in c.effect
 
 
-def test_repair_wording_is_plain(tmp_path):
-    r = CliRunner().invoke(app, ["plan", "--repair", str(ROOT / "samples" / "die_spread.yaml"), "-o", str(tmp_path / "f.yaml")])
+def test_repair_wording_is_plain(repairs):
+    r, _ = repairs["die_spread"]
     assert r.exit_code == 0, r.output
     assert "mismatch 3σ" in r.output and "k-σ" not in r.output and "k·σ" not in r.output
     for word in ("why:", "before:", "after:", "effect:", "cost:", "total cost:"):
         assert word in r.output
 
 
-def test_repair_names_what_cannot_pass_and_keeps_passing_plans():
+def test_repair_names_what_cannot_pass_and_keeps_passing_plans(repairs):
     runner = CliRunner()
-    r = runner.invoke(app, ["plan", "--repair", str(ROOT / "samples" / "failing_budgets.yaml")])
+    r, _ = repairs["failing"]
     assert r.exit_code == 1
     # hot_node sits 0.5 V below the supply: a pnp output needs about one V_EB (≈ 0.69 V) there
     assert "hot_node: compliance: short by" in r.output
@@ -245,12 +255,17 @@ def test_repair_names_what_cannot_pass_and_keeps_passing_plans():
     assert r.exit_code == 0 and "no change found" in r.output
 
 
-def test_area_objective_never_more_area_than_power():
+@pytest.fixture(scope="module")
+def planned_30():
+    """30 generated blocks (seed 21), planned once for the area and Pareto tests."""
+    return plan_blocks(BlockList.model_validate(random_blocks(30, 21)))
+
+
+def test_area_objective_never_more_area_than_power(planned_30):
     from biastree.planner.alternatives import economise_area
     from biastree.planner.synthesis import finish
 
-    for blocks in (BlockList.model_validate(random_blocks(30, 21)), BlockList.model_validate(random_blocks(12, 2))):
-        power = plan_blocks(blocks)
+    for power in (planned_30, plan_blocks(BlockList.model_validate(random_blocks(12, 2)))):
         data = economise_area(power.data)
         area = biastree.check(biastree.loads(finish(data, "area")[0]))
         assert bool(area.passed.all())
@@ -258,11 +273,10 @@ def test_area_objective_never_more_area_than_power():
     # on the first list it is a real saving (measured: 1297 → 993 unit devices)
 
 
-def test_pareto_set_is_several_distinct_non_dominated_passing_plans():
+def test_pareto_set_is_several_distinct_non_dominated_passing_plans(planned_30):
     from biastree.planner.alternatives import alternatives
 
-    out = plan_blocks(BlockList.model_validate(random_blocks(30, 21)))
-    alts = alternatives(out)
+    alts = alternatives(planned_30)
     figs = [f for f, _ in alts]
     assert 3 <= len(figs) <= 5
     for a in figs:

@@ -24,6 +24,8 @@ class Rules:
 
     max_units: int = 64
     max_ratio: float = 16.0
+    min_current: float = 0.0  # least intermediate current, A
+    max_fanout: float = float("inf")  # Σ ratio·count of one mirror (a split looks for a feeder with room)
     topologies: set[str] | None = None  # allowed topologies (None: all)
     block_topologies: dict[str, set[str]] = field(default_factory=dict)  # per load
     rebalance: bool = True
@@ -71,9 +73,14 @@ def evaluate(data: dict[str, Any]) -> tuple[Tree, Audit]:
 
 class Evaluator:
     """``evaluate`` that re-validates only the mirrors that changed since the last call
-    (the loads, devices and conditions of a large plan are validated once)."""
+    (the loads, devices and conditions of a large plan are validated once).
 
-    def __init__(self) -> None:
+    ``checked=False`` skips the structural check of each variant (the planner's
+    own search, whose edits keep the structure valid; the plan it writes is
+    built and checked in full from its text).  The verdicts do not depend on it."""
+
+    def __init__(self, checked: bool = True) -> None:
+        self.checked = checked
         self._base: Plan | None = None
         self._key: str | None = None
         self._mirrors: dict[str, tuple[str, Mirror]] = {}
@@ -97,7 +104,7 @@ class Evaluator:
                     self._mirrors[n] = hit
                 mirrors[n] = hit[1]
             plan = self._base.model_copy(update={"mirrors": mirrors})
-        tree = build(plan)
+        tree = build(plan, checked=self.checked)
         return tree, check_tree(tree, detail=False)
 
 

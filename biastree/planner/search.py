@@ -50,6 +50,10 @@ def _family(data: dict[str, Any], mirror: str) -> str:
     return "bjt" if kind in ("npn", "pnp") else "mos"
 
 
+def _fits(ratios: list[float], allowed: list[float], n_in: int, units: list[int]) -> bool:
+    return all(abs(u / n_in / r - 1.0) <= a for u, r, a in zip(units, ratios, allowed))
+
+
 class Search:
     """Mutable state of one search over plain plan data."""
 
@@ -61,10 +65,21 @@ class Search:
         self.touch = touch  # mirrors the search may rebalance freely (None: all)
         self.result: Audit | None = None
         self.tree: Tree | None = None
-        self.evaluate = Evaluator()
+        self.evaluate = Evaluator(checked=False)
         self.escalated: set[str] = set()
         self.stuck: dict[str, int] = {}
         self.fallback: dict[str, dict[str, Any]] = {}
+        self.new_feeders: dict[str, float] = {}  # feeders added this round: their expected input current
+        self.seen: dict[str, int] = {}  # rounds in which each mirror had a failing block
+
+    def _snapshot(self) -> dict[str, Any]:
+        """A copy of the plan data to go back to: the search edits only the mirrors and the
+        floorplan (the loads, devices and conditions are shared, never edited)."""
+        out = dict(self.data)
+        out["mirrors"] = copy.deepcopy(self.data["mirrors"])
+        if "floorplan" in out:
+            out["floorplan"] = copy.deepcopy(self.data["floorplan"])
+        return out
 
     # --- the loop -----------------------------------------------------------
 
@@ -75,7 +90,7 @@ class Search:
             self.tree, self.result = self.evaluate(self.data)
             failed = int((~self.result.passed).sum())
             if best is None or failed < best[0]:
-                best = (failed, copy.deepcopy(self.data), list(self.changes))
+                best = (failed, self._snapshot(), list(self.changes))
                 stale = 0
             else:
                 stale += 1
@@ -88,11 +103,77 @@ class Search:
             self.data, self.changes = best[1], best[2]
             self.tree, self.result = self.evaluate(self.data)
         if not bool(self.result.passed.all()):
+            self._polish()
+        if not bool(self.result.passed.all()):
+            self._last_topologies()
+        if not bool(self.result.passed.all()):
             self._feeder_knob()
         if self.rules.economise and bool(self.result.passed.all()):
             self._economise()
         self._merge_changes()
         return self.result
+
+    def _polish(self) -> None:
+        """The mirrors of the blocks that still fail re-centre their ratios from the last
+        check (the best plan found may come from a round whose rebalance came later);
+        kept while fewer blocks fail."""
+        for _ in range(3):
+            r = self.result
+            assert r is not None
+            failing = [m for m, idx in self._failing_mirrors().items()
+                       if all(r.compliance[i] >= 0 and r.upstream[i] < 0 for i in idx)]
+            if self.touch is not None:
+                failing = [m for m in failing if m in self.touch]
+            if not failing:
+                return
+            before = int((~r.passed).sum())
+            trial = dict(self.data)
+            trial["mirrors"] = dict(self.data["mirrors"])
+            for m in failing:
+                trial["mirrors"][m] = copy.deepcopy(self.data["mirrors"][m])
+            sub = Search.__new__(Search)
+            sub.data, sub.rules, sub.changes, sub.tree, sub.result = trial, self.rules, [], self.tree, r
+            sub.touch = set(failing)
+            if not sub._rebalance(failing_only=False):
+                return
+            try:
+                t_tree, t_res = self.evaluate(trial)
+            except (SolveError, ValueError):
+                return
+            if int((~t_res.passed).sum()) >= before:
+                return
+            self.data, self.tree, self.result = trial, t_tree, t_res
+            self.changes.extend(sub.changes)
+
+    def _last_topologies(self) -> None:
+        """The mirrors of the blocks that still fail try every allowed topology once more from
+        the final plan (the best plan may come from a round before their last change); kept
+        when fewer blocks fail."""
+        r = self.result
+        assert r is not None
+        failing = self._failing_mirrors()
+        targets = sorted(m for m in failing if self.touch is None or m in self.touch)
+        if not targets:
+            return
+        before = int((~r.passed).sum())
+        saved = (self._snapshot(), list(self.changes), self.tree, self.result)
+        tried, self.tried = self.tried, {}
+        choice = self._trials(targets, {m: failing[m] for m in targets}, {m: {m} for m in targets})
+        self.tried = tried
+        if not choice:
+            self.data, self.changes = saved[0], saved[1]
+            return
+        for m, (t, spec) in choice.items():
+            if t != self.data["mirrors"][m].get("topology", "simple"):
+                self._set_topology(m, t, f"least-cost topology under which every block of {m} passes")
+            self.data["mirrors"][m] = spec
+        try:
+            self.tree, self.result = self.evaluate(self.data)
+        except (SolveError, ValueError):
+            self.data, self.changes, self.tree, self.result = saved
+            return
+        if int((~self.result.passed).sum()) >= before:
+            self.data, self.changes, self.tree, self.result = saved
 
     def _feeder_knob(self) -> None:
         """Blocks whose own whole-unit ratios cannot be rounded finely enough: move the
@@ -144,7 +225,7 @@ class Search:
                     chosen[m] = (trial["mirrors"][parent]["branches"][k]["ratio"], trial["mirrors"][m])
         if not chosen:
             return
-        saved = (copy.deepcopy(self.data), list(self.changes))
+        saved = (self._snapshot(), list(self.changes))
         for m, (ratio, spec) in chosen.items():
             parent, k = feeds[m]
             pspec = copy.deepcopy(self.data["mirrors"][parent])
@@ -170,7 +251,7 @@ class Search:
                   and spec.get("topology", "simple") != "simple"]
         if not leaves:
             return
-        saved = (copy.deepcopy(self.data), list(self.changes))
+        saved = (self._snapshot(), list(self.changes))
         index = {n: i for i, n in enumerate(tree.loads)}
         judged = {m: [index[n] for n in self._loads_below(m)] for m in leaves}
         self.tried = {}
@@ -209,6 +290,7 @@ class Search:
 
     def _round(self) -> bool:
         """One combined step: local routing, topology trials, then escalation, splits and sizes."""
+        self.new_feeders = {}
         r, tree = self.result, self.tree
         assert r is not None and tree is not None
         acted = False
@@ -243,6 +325,20 @@ class Search:
         actions: dict[str, tuple[str, Any, str]] = {}
         new_escalated: set[str] = set()
         for m in sorted(failing):
+            self.seen[m] = self.seen.get(m, 0) + 1
+            if m in choice and self.seen[m] < 3:
+                continue
+            # a mirror that keeps failing whatever topology it is given, and whose blocks only
+            # rounding keeps off centre, splits them off (its topology may swing between two that
+            # each leave a different block just off centre)
+            if self.seen[m] >= 2 and self._rounding_limited(m, failing[m]):
+                # only the whole-unit rounding of a shared mirror keeps these blocks off centre (their
+                # error spread fits the budget): a mirror of their own gives two roundings in series
+                for i in failing[m]:
+                    self._split_for(m, tree.loads[i], actions)
+                if any(tree.loads[i] in actions for i in failing[m]):
+                    self.fallback.pop(m, None)
+                    continue
             if m in choice:
                 continue
             spec = self.fallback.pop(m, None)
@@ -268,6 +364,21 @@ class Search:
                     self._split_for(m, tree.loads[i], actions)
         self.escalated |= new_escalated
         return self._apply(actions) or acted
+
+    def _rounding_limited(self, mirror: str, failing: list[int]) -> bool:
+        r = self.result
+        assert r is not None
+        if len(self.data["mirrors"][mirror]["branches"]) < 2:
+            return False
+        for i in failing:
+            if r.compliance[i] < 0 or r.upstream[i] >= 0 or r.k_sigma * float(r.sigma[i]) > 0:
+                return False
+            if r.conditions is not None:
+                return False  # the spread over conditions may decide: the topology steps see to it
+            half = 0.5 * float(r.error[i].max() - r.error[i].min())
+            if half > 0.7 * self._slack(i):
+                return False
+        return True
 
     def _parent(self, mirror: str) -> str | None:
         tree = self.tree
@@ -407,7 +518,14 @@ class Search:
         branches = self.data["mirrors"][mirror]["branches"]
         if topo.single_output and (len(branches) != 1 or branches[0].get("count", 1) != 1):
             return False
+        if topology == "simple" and family == "bjt" and self._feeds_mirrors(mirror) and self._allowed(mirror, "beta_helper", [], True):
+            # a bipolar mirror that feeds mirrors keeps its β loading small (÷β with a helper): its
+            # fan-out changes as the search splits blocks off, and every block below would move with it
+            return False
         return fresh or topology not in self.tried.setdefault(mirror, set())
+
+    def _feeds_mirrors(self, mirror: str) -> bool:
+        return any(b["to"] in self.data["mirrors"] for b in self.data["mirrors"][mirror]["branches"])
 
     def _loads_below(self, mirror: str) -> list[str]:
         loads = self.data["loads"]
@@ -419,6 +537,12 @@ class Search:
         spec["topology"] = topology
         self.tried.setdefault(mirror, set()).add(topology)
         self.changes.append(Change("topology", mirror, before, topology, why))
+
+    def _branches(self, mirror: int) -> range:
+        tree = self.tree
+        assert tree is not None
+        start = int(np.searchsorted(tree.b_parent, mirror, "left"))
+        return range(start, int(np.searchsorted(tree.b_parent, mirror, "right")))
 
     def _slack(self, load: int) -> float:
         r = self.result
@@ -451,19 +575,28 @@ class Search:
                 continue
             spec = self.data["mirrors"][name]
             branches = spec["branches"]
-            idx = {tree.b_index[tree.l_branch[i]]: i for i in loads}
+            # every block of the mirror is re-centred (a block already centred keeps its ratio
+            # within the same allowance), so the rounding can use the whole input device
+            idx = {int(tree.b_index[b]): int(tree.b_child[b]) for b in self._branches(m) if tree.b_to_load[b]}
             ratios, allowed = [], []
             for k, b in enumerate(branches):
                 if k in idx:
                     i = idx[k]
-                    ratios.append(b.get("ratio", 1.0) / (1.0 + mid[i]))
+                    ok = r.compliance[i] >= 0 and r.upstream[i] < 0 and abs(mid[i]) < 0.9
+                    ratios.append(b.get("ratio", 1.0) / (1.0 + (mid[i] if ok else 0.0)))
                     allowed.append(max(0.3 * max(self._slack(i), 0.0), 5e-4))
                 else:
                     ratios.append(b.get("ratio", 1.0))
-                    allowed.append(1e-9 if b["to"] in self.data["loads"] else 0.01)
+                    allowed.append(0.01)
             size = spec.get("input_size", 1.0)
             if self.rules.whole:
                 got = realise(ratios, allowed, self.rules.max_units, start=int(size) if float(size).is_integer() else 1)
+                if got is None or not _fits(ratios, allowed, *got):
+                    # the input device as it is leaves no room (an output would pass max_units) or
+                    # rounds too coarsely: a smaller one may fit every output
+                    low = realise(ratios, allowed, self.rules.max_units)
+                    if low is not None and (got is None or _fits(ratios, allowed, *low)):
+                        got = low
                 if got is None:
                     continue
                 n_in, units = got
@@ -533,31 +666,126 @@ class Search:
             acted = True
         return acted
 
+    def _feeder_with_room(self, parent: str, load: str, current: float, count: int) -> str | None:
+        """The mirror that feeds a block split off: its own mirror's parent when that has
+        fan-out to spare (limit max_fanout), else the nearest mirror of the same device that
+        feeds mirrors and has; None when none has."""
+        tree, r = self.tree, self.result
+        assert tree is not None and r is not None
+
+        def room(name: str, current: float, count: int) -> bool:
+            spec = self.data["mirrors"][name]
+            p_in = self._input_current(name)
+            if p_in is None:
+                return False
+            ratio = current / p_in if p_in > 0 else float("inf")
+            if not 1 / self.rules.max_ratio <= ratio <= self.rules.max_ratio:
+                return False
+            fan = sum(b.get("ratio", 1.0) * b.get("count", 1) for b in spec["branches"])
+            return fan + max(1.0, ratio) * count <= self.rules.max_fanout
+
+        current = self._split_current(current)
+        if room(parent, current, count):
+            return parent
+        positions = (self.data.get("floorplan") or {}).get("positions") or {}
+        here = positions.get(load)
+
+        def distance(m: str) -> tuple[float, str]:
+            at = positions.get(m)
+            if here is None or at is None:
+                return (0.0, m)
+            return (math.hypot(at[0] - here[0], at[1] - here[1]), m)
+
+        def nearest(device: str, current: float, count: int, besides: str) -> str | None:
+            others = [m for m, spec in self.data["mirrors"].items()
+                      if m != besides and spec["device"] == device and self._feeds_mirrors(m) and room(m, current, count)]
+            return min(others, key=distance) if others else None
+
+        pspec = self.data["mirrors"][parent]
+        found = nearest(pspec["device"], current, count, parent)
+        if found is not None or count > 1:
+            return found
+        # every feeder of that device is full: a new one, fed by the nearest mirror with room one level up
+        p_in = self._input_current(parent)
+        grand = self._parent(parent)
+        if p_in is None or grand is None:
+            return None
+        above = nearest(self.data["mirrors"][grand]["device"], p_in, 1, "")
+        if above is None:
+            return None
+        aspec = self.data["mirrors"][above]
+        a_in = self._input_current(above)
+        assert a_in is not None
+        size = aspec.get("input_size", 1.0)
+        units = max(1, min(self.rules.max_units, round(p_in / a_in * size)))
+        name = f"{parent}_x"
+        while name in self.data["mirrors"] or name in self.data["loads"]:
+            name += "x"
+        aspec["branches"].append({"to": name, "ratio": units / size})
+        self.data["mirrors"][name] = {"device": pspec["device"], "input_size": 1.0,
+                                      "topology": pspec.get("topology", "simple"), "branches": []}
+        self.tried[name] = {pspec.get("topology", "simple")}
+        self.new_feeders[name] = a_in * units / size
+        fp = self.data.get("floorplan")
+        if fp and fp.get("positions") and here is not None:
+            fp["positions"][name] = here
+        self.changes.append(Change("split", name, "—", f"a new feeder fed by {above}",
+                                   f"every {pspec['device']} feeder had its fan-out (max_fanout) in use"))
+        return name
+
+    def _split_current(self, current: float) -> float:
+        root = math.sqrt(self.rules.max_ratio)
+        return max(current / root, self.rules.min_current, self.data["reference"]["current"] / root)
+
+    def _input_current(self, mirror: str) -> float | None:
+        tree, r = self.tree, self.result
+        assert tree is not None and r is not None
+        if mirror in self.new_feeders:
+            return self.new_feeders[mirror]
+        if mirror not in tree.mirrors:
+            return None
+        return float(r.op.m_i_in[tree.mirrors.index(mirror), 1])
+
     def _split(self, mirror: str, load: str, why: str) -> bool:
         tree, r = self.tree, self.result
         assert tree is not None and r is not None
         mi = tree.mirrors.index(mirror)
         pb = int(tree.m_in_branch[mi])
-        parent = tree.mirrors[int(tree.b_parent[pb])]
         spec = self.data["mirrors"][mirror]
         if len(spec["branches"]) < 2:
             return False
         k = next(j for j, b in enumerate(spec["branches"]) if b["to"] == load)
-        branch = spec["branches"].pop(k)
         current = self.data["loads"][load]["current"]
+        count = spec["branches"][k].get("count", 1)
+        parent = self._feeder_with_room(tree.mirrors[int(tree.b_parent[pb])], load, current, count)
+        copies_here = False  # the copies of the block hang on its new mirror (one feed), not on the feeder
+        if parent is None and count > 1:
+            parent = self._feeder_with_room(tree.mirrors[int(tree.b_parent[pb])], load, current, 1)
+            copies_here = True
+        if parent is None:
+            return False
+        spec["branches"].pop(k)
         pspec = self.data["mirrors"][parent]
-        p_in = float(r.op.m_i_in[tree.mirrors.index(parent), 1])
+        p_in = self._input_current(parent)
+        assert p_in is not None
         size = pspec.get("input_size", 1.0)
-        units = max(1, min(self.rules.max_units, round(current / p_in * size)))
+        # the new mirror runs at a fraction of the block's current (ratio ≈ √max_ratio, within the
+        # intermediate current range): its input is overhead, and a ratio with both sizes ≤ max_units/√max_ratio
+        # can still be rounded to ≈ 0.1 %
+        i_new = self._split_current(current)
+        units = max(1, min(self.rules.max_units, round(i_new / p_in * size)))
         # the new mirror's own ratio makes up what the parent's whole units miss
         got = realise([current / (p_in * units / size)], [2e-3], self.rules.max_units)
         n_new, u_new = got if got is not None else (1, [1])
         new = f"{mirror}_{load}"
         while new in self.data["mirrors"] or new in self.data["loads"]:
             new += "_"
-        pspec["branches"].append({"to": new, "ratio": units / size, "count": branch.get("count", 1)})
+        pspec["branches"].append({"to": new, "ratio": units / size, "count": 1 if copies_here else count})
+        if pspec.get("topology", "simple") == "simple" and not self._allowed(parent, "simple", [], True):
+            self._set_topology(parent, "beta_helper", f"it now feeds {new}: a helper keeps its β loading small")
         self.data["mirrors"][new] = {"device": spec["device"], "input_size": float(n_new), "topology": "simple",
-                                     "branches": [{"to": load, "ratio": u_new[0] / n_new}]}
+                                     "branches": [{"to": load, "ratio": u_new[0] / n_new,
+                                                   **({"count": count} if copies_here else {})}]}
         fp = self.data.get("floorplan")
         if fp and fp.get("positions") and load in fp["positions"]:
             fp["positions"][new] = fp["positions"][load]

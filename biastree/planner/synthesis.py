@@ -257,7 +257,8 @@ def _plan_data(blocks: BlockList, root: str, mirrors: dict[str, Any], positions:
 
 def rules_for(blocks: BlockList) -> Rules:
     lim = blocks.limits
-    return Rules(max_units=lim.max_units, max_ratio=lim.max_ratio,
+    return Rules(max_units=lim.max_units, max_ratio=lim.max_ratio, max_fanout=lim.max_fanout,
+                 min_current=lim.intermediate_current[0],
                  topologies=set(lim.topologies) if lim.topologies is not None else None,
                  block_topologies={n: set(b.topologies) for n, b in blocks.blocks.items() if b.topologies is not None})
 

@@ -96,15 +96,18 @@ class Tree:
         return list(self.mirror_paths[int(self.b_parent[self.l_branch[load]])])
 
 
-def build(plan: Plan, locate: Locate | None = None, source: str | None = None) -> Tree:
+def build(plan: Plan, locate: Locate | None = None, source: str | None = None, checked: bool = True) -> Tree:
     """Check the plan's structure and return its tree, or raise ``PlanError``.
 
     ``locate`` maps a key path to a line of the plan file, for messages.
+    ``checked=False`` skips the structural check, for a caller that has
+    already checked a plan of the same structure (the planner's search builds
+    many variants of one plan and checks the plan it writes in full).
     """
     layout = clean_layout(plan) if len(plan.mirrors) + len(plan.loads) > _BULK_FROM else None
     if layout is not None:
         return _from_layout(plan, layout)
-    problems = check_structure(plan)
+    problems = check_structure(plan) if checked else []
     if problems:
         found = [Problem(format_path(path), msg, locate(path) if locate else None) for path, msg in problems]
         found.sort(key=lambda p: (p.line is None, p.line or 0))
