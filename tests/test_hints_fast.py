@@ -133,3 +133,17 @@ def test_hint_number_is_the_re_solved_plan() -> None:
                 err, _ = fixed.worst_error(i)
                 assert f"error {err * 100:+.3g} %" in line
                 assert ("would pass" in line) == bool(fixed.passed[i])
+
+
+def test_candidates_for_all_loads_equal_the_per_load_rule(result) -> None:  # type: ignore[no-untyped-def]
+    """``_motives`` (all failing loads at once) names the trials and words ``_candidates`` names load by load."""
+    failing = np.flatnonzero(~result.passed)
+    pairs = advise._motives(result, failing)
+    got: dict[int, list[tuple[str, str, str]]] = {}
+    for i, m, t, why in zip(pairs.load, pairs.mirror, pairs.topology, pairs.why):
+        got.setdefault(i, []).append((result.tree.mirrors[m], t, why))
+    for i in failing.tolist():
+        merged: dict[tuple[str, str], list[str]] = {}
+        for m, t, motive in advise._candidates(result, i):
+            merged.setdefault((m, t), []).append(motive())
+        assert got.get(i, []) == [(m, t, "; ".join(w)) for (m, t), w in merged.items()]

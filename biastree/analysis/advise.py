@@ -273,7 +273,6 @@ def _motives(result: Audit, failing: np.ndarray) -> _Pairs:
                 if t != topo[m] and family[m] in spec.kinds and (not spec.single_output or single[m]))
         return got
 
-    index = {name: i for i, name in enumerate(tree.mirrors)}
     over = (result.margin[failing] < 0).tolist()
     if result.conditions is None and n:
         m, k, v, keys = result._largest
@@ -282,11 +281,11 @@ def _motives(result: Audit, failing: np.ndarray) -> _Pairs:
         stage = np.where(take, m[failing], -1).tolist()
         labels = [TERM_LABELS[keys[int(x)]] for x in k[failing].tolist()]
         value = np.where(take, v[failing], plan_term)
-    else:  # the deciding condition's terms, load by load
-        terms = [result.largest_term(int(i)) if bad else ("plan", "", 0.0) for i, bad in zip(failing, over)]
-        stage = [-1 if t[0] == "plan" else index[t[0]] for t in terms]
-        labels = [t[1] for t in terms]
-        value = np.array([t[2] for t in terms], dtype=float)
+    elif n:  # the largest term of each load's deciding case (``Audit.deciding``), all loads at once
+        stage_a, labels, value = _deciding_terms(result, failing)
+        stage = stage_a.tolist()
+    else:
+        stage, labels, value = [], [], np.zeros(0)
     pct = [format_percent(x) for x in value.tolist()]
     parent = tree.b_parent[tree.l_branch[failing]].tolist()
     short = (result.compliance[failing] < 0).tolist()
@@ -317,6 +316,69 @@ def _motives(result: Audit, failing: np.ndarray) -> _Pairs:
             out.topology.append(t)
             out.why.append(why)
     return out
+
+
+def _largest_per_column(result: Audit, op) -> tuple[np.ndarray, np.ndarray, np.ndarray, list[str]]:  # type: ignore[no-untyped-def]
+    """Per load and column of ``op``: (mirror, term key index, value) of the first largest
+    stage term on its path, in ``Audit.deciding``'s order (stages top-down, each
+    topology's own terms in order; a later term wins only when strictly larger)."""
+    tree = result.tree
+    plan = tree.plan
+    keys = list(op.b_factors)
+    n_b, n_c = op.b_current.shape
+    if not keys:
+        z = np.zeros((len(tree.loads), n_c))
+        return np.full(z.shape, -1), z.astype(np.int64), z, ["beta"]
+    values = np.stack([op.b_factors[k] for k in keys]) - 1.0  # (K, n_b, C)
+    allowed = np.zeros((len(keys), len(tree.mirrors)), dtype=bool)
+    for m, name in enumerate(tree.mirrors):
+        own = TOPOLOGIES[plan.mirrors[name].topology].terms["bjt" if tree.m_bipolar[m] else "mos"]
+        for j, k in enumerate(keys):
+            allowed[j, m] = k in own
+    values = np.where(allowed[:, tree.b_parent][:, :, None], values, 0.0)
+    which = np.argmax(np.abs(values), axis=0)  # the first of equal largest
+    value = np.take_along_axis(values, which[None], axis=0)[0]
+    n_m = len(tree.mirrors)
+    best_v, best_k, best_m = np.zeros((n_m, n_c)), np.zeros((n_m, n_c), dtype=np.int64), np.full((n_m, n_c), -1)
+    for gen in tree.generations[1:]:
+        b = tree.m_in_branch[gen]
+        p = tree.b_parent[b]
+        take = np.abs(value[b]) > np.abs(best_v[p])
+        best_v[gen] = np.where(take, value[b], best_v[p])
+        best_k[gen] = np.where(take, which[b], best_k[p])
+        best_m[gen] = np.where(take, p[:, None], best_m[p])
+    lb = tree.l_branch
+    p = tree.b_parent[lb]
+    take = np.abs(value[lb]) > np.abs(best_v[p])
+    return (np.where(take, p[:, None], best_m[p]), np.where(take, which[lb], best_k[p]),
+            np.where(take, value[lb], best_v[p]), keys)
+
+
+def _deciding_terms(result: Audit, failing: np.ndarray) -> tuple[np.ndarray, list[str], np.ndarray]:
+    """``Audit.largest_term`` for every load of ``failing`` (plans with conditions):
+    stage (mirror index, -1 for the plan's ratios), label and value."""
+    cond = result.conditions
+    rows = np.arange(len(result.target))
+    own_err = result.error[rows, result.worst_case]
+    use = np.abs(cond.worst_error) > np.abs(own_err)
+    m0, k0, v0, keys0 = _largest_per_column(result, result.op)
+    m, k, v = (a[rows, result.worst_case] for a in (m0, k0, v0))
+    labels0 = np.array([TERM_LABELS[x] for x in keys0], dtype=object)
+    label = labels0[k]
+    if use[failing].any():
+        op, where = result._condition_terms
+        col = np.array([where.get(int(c), 0) for c in cond.worst_index])
+        m1, k1, v1, keys1 = _largest_per_column(result, op)
+        labels1 = np.array([TERM_LABELS[x] for x in keys1], dtype=object)
+        m = np.where(use, m1[rows, col], m)
+        v = np.where(use, v1[rows, col], v)
+        label = np.where(use, labels1[k1[rows, col]], label)
+    plan_term = result.ideal / result.target - 1.0
+    take = np.abs(v) > np.abs(plan_term)
+    stage = np.where(take, m, -1)[failing]
+    value = np.where(take, v, plan_term)[failing]
+    labels = [str(x) if t else "ratio arithmetic" for x, t in zip(label[failing].tolist(), take[failing].tolist())]
+    return stage, labels, value
 
 
 def _lines(passed: np.ndarray, budget: np.ndarray, compliance: np.ndarray, headroom: np.ndarray,
