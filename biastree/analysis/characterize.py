@@ -4,13 +4,26 @@ For each device, corner (library section) and temperature a plan uses, the
 unit device (the plan's W and L; ratios are copies, ``m=``, never a wider W)
 is swept in ngspice with source and bulk on the rail: I_D over a grid of
 V_GS × V_DS magnitudes from 0 to the plan's highest supply (12.5 mV × 25 mV;
-V_DS from 25 mV).  The table is kept in a cache folder as two files named by
-a SHA-256 hash of everything that determines it (the model text of every file
-the source reads, the model name, section, W, L, temperature, grid):
+V_DS from 25 mV).  Where a plan stacks the device (a cascode or wide-swing
+mirror: the upper device's source sits above its bulk) the table spans V_SB
+too: copies of the unit device, each with its bulk V_SB beyond the source
+(``vsb_planes``: 50 mV steps up to 0.2 V, where the body effect bends most,
+100 mV above, a last 50 mV step at the top, up to half the highest supply
+plus 0.1 V), swept in the same run.  The table is kept in a cache folder as
+two files named by a SHA-256 hash of everything that determines it (the model
+text of every file the source reads, the model name, section, W, L,
+temperature, grid, format):
 
-* ``<hash>.npz``: arrays ``vgs`` (V), ``vds`` (V), ``id`` (A, rows V_GS, columns V_DS);
+* ``<hash>.npz``: arrays ``vgs`` (V), ``vds`` (V), ``id`` (A, rows V_GS, columns
+  V_DS) — format 1; with the body effect (format 2) also ``vsb`` (V), and ``id``
+  and ``is`` (the current out of the source: drain plus bulk terminal, which
+  differ by impact ionisation and junction leakage) of shape (V_GS, V_DS, V_SB);
 * ``<hash>.json``: a header naming the source, model, section, size,
   temperature, grid, the hash and the tool that wrote it.
+
+Gate current is not tabulated: the sky130 BSIM4 cards have no gate
+tunnelling (``igcmod = igbmod = 0``) and ngspice reports exactly 0 A through
+the swept gate source (measured; see the notes of this work).
 
 The folder is ``$BIASTREE_TABLES`` if set, else ``~/.cache/biastree/tables``;
 ``biastree characterize PLAN --tables DIR`` fills any folder, which can be
@@ -31,12 +44,18 @@ from biastree.errors import SimulatorError
 from biastree.files import write_atomic
 from biastree.input.cards import CardModel
 from biastree.physics.tables import Table
+from biastree.physics.topologies import TOPOLOGIES
 from biastree.sim.ngspice import COMPATIBLE, parse_raw, run_deck
 from biastree.units import ZERO_CELSIUS
 
 STEP_VGS = 0.0125
 STEP_VDS = 0.025
-FORMAT = "biastree characterisation table 1"
+FORMAT = "biastree characterisation table 1"  # ln I_D(V_GS, V_DS)
+FORMAT_BODY = "biastree characterisation table 2"  # ln I_D(V_GS, V_DS, V_SB)
+FORMATS = (FORMAT, FORMAT_BODY)
+# V_DS axis of the tables with V_SB: V_DS = 0.2 V · e^(0.125 (u − 24)) for u < 24 (from 10 mV,
+# steps of 12.5 % of V_DS), 0.2 V + 25 mV · (u − 24) above; u = 0, 1, 2, …
+_V_KNEE, _RATIO, _U_KNEE = 0.2, 0.125, 24
 _MEMORY: dict[str, Table] = {}
 
 
@@ -62,10 +81,22 @@ def _model_text(dev: CardModel, corner: str) -> bytes:
     return digest.hexdigest().encode("ascii")
 
 
-def header(dev: CardModel, corner: str, kelvin: float, vmax: float) -> dict[str, object]:
+def vsb_planes(vmax: float) -> list[float]:
+    """V_SB values of a table with the body effect (V): 50 mV steps to 0.2 V, 100 mV steps
+    above, a last 50 mV step before the top, the top being half the sweep plus 0.1 V (a
+    stacked device's source sits below half the supply).  Measured on sky130 nfet/pfet
+    L = 0.5 µm against sweeps at the midpoints: tricubic interpolation in V_SB adds below
+    8e-6 in ln I_D (uniform 100 mV steps: 1e-4, at 25 mV)."""
+    top = float(np.ceil((vmax / 2.0 + 0.1) * 10.0 - 1e-9) / 10.0)
+    planes = [0.0, 0.05, 0.1, 0.15, 0.2] + [round(v, 6) for v in np.arange(0.3, top - 0.1 + 1e-9, 0.1)]
+    planes += [round(top - 0.05, 6), top]
+    return sorted({p for p in planes if p <= top})
+
+
+def header(dev: CardModel, corner: str, kelvin: float, vmax: float, body: bool = False) -> dict[str, object]:
     """What determines a table (its hash is the file name)."""
     info: dict[str, object] = {
-        "format": FORMAT,
+        "format": FORMAT_BODY if body else FORMAT,
         "model": dev.model,
         # the file's name, not its folder: a table found by its hash stays valid on another machine
         "source": "inline card" if dev.card is not None else Path(str(dev.include or dev.library)).name,
@@ -77,14 +108,20 @@ def header(dev: CardModel, corner: str, kelvin: float, vmax: float) -> dict[str,
         "vgs": [0.0, vmax, STEP_VGS],
         "vds": [STEP_VDS, vmax, STEP_VDS],
     }
+    if body:
+        info["vds"] = {"below_V": _V_KNEE, "from_V": round(_V_KNEE * float(np.exp(-_RATIO * _U_KNEE)), 6),
+                       "ratio": _RATIO, "step_above_V": STEP_VDS, "to_V": vmax}
+        info["vsb"] = vsb_planes(vmax)
     digest = hashlib.sha256(json.dumps(info, sort_keys=True).encode("utf-8"))
     digest.update(_model_text(dev, corner))
     info["hash"] = digest.hexdigest()[:32]
     return info
 
 
-def deck(dev: CardModel, corner: str, kelvin: float, vmax: float) -> str:
-    """The ngspice sweep of one unit device (source and bulk at 0 V; pmos swept negative)."""
+def deck(dev: CardModel, corner: str, kelvin: float, vmax: float, body: bool = False) -> str:
+    """The ngspice sweep of one unit device (source at 0 V; pmos swept negative).  Without
+    the body effect the bulk is at 0 V; with it, one copy per V_SB plane, each with its
+    own bulk source (V_SB beyond the source) and its own drain ammeter."""
     sign = 1.0 if dev.kind == "nmos" else -1.0
     top = vmax + STEP_VGS / 2
     lines = [
@@ -94,47 +131,71 @@ def deck(dev: CardModel, corner: str, kelvin: float, vmax: float) -> str:
         f".temp {kelvin - ZERO_CELSIUS:.9g}",
         "vd d 0 dc 0",
         "vg g 0 dc 0",
-        model_cards.instance_line("1", dev, "d", "g", "0", "0", 1.0, corner),
-        f".dc vd {sign * STEP_VDS:.6g} {sign * (vmax + STEP_VDS / 2):.6g} {sign * STEP_VDS:.6g} "
-        f"vg 0 {sign * top:.6g} {sign * STEP_VGS:.6g}",
+    ]
+    if body:
+        # V_DS through a behavioural source from a swept index u: geometric steps (12.5 % of
+        # V_DS) below 0.2 V, where ln I_D bends like ln V_DS in the triode region, 25 mV above
+        lines[-2] = "vu u 0 dc 0"
+        lines.insert(-1, f"bd d 0 v = {sign:g} * (v(u) < {_U_KNEE} ? {_V_KNEE} * exp({_RATIO} * (v(u) - {_U_KNEE})) "
+                         f": {_V_KNEE} + {STEP_VDS} * (v(u) - {_U_KNEE}))")
+        planes = vsb_planes(vmax)
+        for k, vsb in enumerate(planes):
+            lines += [f"vb{k} b{k} 0 dc {-sign * vsb:.6g}", f"vm{k} d d{k} dc 0",
+                      model_cards.instance_line(f"{k}", dev, f"d{k}", "g", "0", f"b{k}", 1.0, corner)]
+        lines.append(".save v(d) v(g) " + " ".join(f"i(vm{k}) i(vb{k})" for k in range(len(planes))))
+    else:
+        lines.append(model_cards.instance_line("1", dev, "d", "g", "0", "0", 1.0, corner))
+    sweep_d = (f"vu 0 {_U_KNEE + (vmax - _V_KNEE) / STEP_VDS + 0.5:.6g} 1" if body else
+               f"vd {sign * STEP_VDS:.6g} {sign * (vmax + STEP_VDS / 2):.6g} {sign * STEP_VDS:.6g}")
+    lines += [
+        f".dc {sweep_d} vg 0 {sign * top:.6g} {sign * STEP_VGS:.6g}",
         ".end",
     ]
     return "\n".join(lines) + "\n"
 
 
-def sweep(dev: CardModel, corner: str, kelvin: float, vmax: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Run the sweep: (vgs, vds, id) magnitudes, id with rows V_GS and columns V_DS."""
+def sweep(dev: CardModel, corner: str, kelvin: float, vmax: float,
+          body: bool = False) -> dict[str, np.ndarray]:
+    """Run the sweep: arrays ``vgs``, ``vds`` and ``id`` (magnitudes; id with rows V_GS and
+    columns V_DS); with the body effect also ``vsb`` and ``is`` (the current out of the
+    source, I_D plus the bulk terminal's), both with V_SB as their third axis."""
     spiceinit = COMPATIBLE if dev.card is None else ""
-    run = run_deck(deck(dev, corner, kelvin, vmax), spiceinit, timeout=600.0, allow_warnings=bool(spiceinit))
+    run = run_deck(deck(dev, corner, kelvin, vmax, body), spiceinit, timeout=600.0, allow_warnings=bool(spiceinit))
     plot = parse_raw(run.raw)[0]
     vd = np.abs(plot["v(d)"])
     vg = np.abs(plot["v(g)"])
-    current = np.abs(plot["i(vd)"])
     n_d = int(np.sum(vg == vg[0]))
     if n_d < 4 or vd.size % n_d:
         raise SimulatorError(f"characterisation of {dev.model}: unexpected sweep shape ({vd.size} points)")
-    grid_d = vd[:n_d]
-    grid_g = vg[::n_d]
-    table = current.reshape(len(grid_g), n_d)
-    return grid_g, grid_d, table
+    grid = {"vgs": vg[::n_d], "vds": vd[:n_d]}
+    shape = (grid["vgs"].size, n_d)
+    if not body:
+        return {**grid, "id": np.abs(plot["i(vd)"]).reshape(shape)}
+    planes = range(len(vsb_planes(vmax)))
+    # currents into the device: drain i(vm) (ammeter d → drain), bulk −i(vb) (source from the bulk to 0)
+    drain = np.stack([plot[f"i(vm{k})"].reshape(shape) for k in planes], axis=-1)
+    bulk = np.stack([-plot[f"i(vb{k})"].reshape(shape) for k in planes], axis=-1)
+    return {**grid, "vsb": np.asarray(vsb_planes(vmax), float), "id": np.abs(drain), "is": np.abs(drain + bulk)}
 
 
-def table_for(dev: CardModel, corner: str, kelvin: float, vmax: float, folder: Path | None = None) -> Table:
-    """The device's table at one condition: from memory, from the cache folder, or by simulation."""
-    info = header(dev, corner, kelvin, vmax)
+def table_for(dev: CardModel, corner: str, kelvin: float, vmax: float, folder: Path | None = None,
+              body: bool = False) -> Table:
+    """The device's table at one condition (with ``body``, spanning V_SB too): from memory,
+    from the cache folder, or by simulation."""
+    info = header(dev, corner, kelvin, vmax, body)
     key = str(info["hash"])
     if key in _MEMORY:
         return _MEMORY[key]
     where = folder or table_folder()
     npz, head = where / f"{key}.npz", where / f"{key}.json"
     if npz.is_file() and head.is_file():
-        data = np.load(npz)
-        vgs, vds, current = data["vgs"], data["vds"], data["id"]
+        with np.load(npz) as data:
+            arrays = {name: data[name] for name in data.files}
     else:
-        vgs, vds, current = sweep(dev, corner, kelvin, vmax)
+        arrays = sweep(dev, corner, kelvin, vmax, body)
         where.mkdir(parents=True, exist_ok=True)
         tmp = where / f".{key}.tmp.npz"
-        np.savez(tmp, vgs=vgs, vds=vds, id=current)
+        np.savez(tmp, **arrays)  # type: ignore[arg-type]
         os.replace(tmp, npz)  # whole or not at all
         from biastree.version import __version__
 
@@ -142,10 +203,26 @@ def table_for(dev: CardModel, corner: str, kelvin: float, vmax: float, folder: P
         info["source_path"] = str(dev.include or dev.library or "")
         info["arrays"] = {"vgs": "V_GS magnitude, V", "vds": "V_DS magnitude, V",
                           "id": "drain current magnitude, A; rows V_GS, columns V_DS"}
+        if body:
+            info["arrays"] = {"vgs": "V_GS magnitude, V", "vds": "V_DS magnitude, V",
+                              "vsb": "V_SB magnitude (the bulk beyond the source), V",
+                              "id": "drain current magnitude, A; axes V_GS, V_DS, V_SB",
+                              "is": "current out of the source (drain plus bulk terminal), magnitude, A; "
+                                    "axes V_GS, V_DS, V_SB"}
         write_atomic(head, json.dumps(info, indent=2) + "\n")
-    table = Table(np.asarray(vgs, float), np.asarray(vds, float), np.log(np.maximum(current, 1e-30)))
+    def log(name: str) -> np.ndarray:
+        return np.log(np.maximum(np.asarray(arrays[name], float), 1e-30))
+
+    table = Table(np.asarray(arrays["vgs"], float), np.asarray(arrays["vds"], float), log("id"),
+                  np.asarray(arrays["vsb"], float) if body else None, log("is") if body else None)
     _MEMORY[key] = table
     return table
+
+
+def stacked_devices(plan: object) -> set[str]:
+    """Devices some mirror of the plan stacks (cascode, wide-swing): their tables span V_SB."""
+    mirrors = plan.mirrors  # type: ignore[attr-defined]
+    return {spec.device for spec in mirrors.values() if TOPOLOGIES[spec.topology].stacks_mos}
 
 
 def characterize_plan(tree: object, folder: Path | None = None) -> list[dict[str, object]]:
@@ -157,13 +234,14 @@ def characterize_plan(tree: object, folder: Path | None = None) -> list[dict[str
     corners = [""] + list(plan.conditions.corners)
     done = []
     used = {plan.mirrors[m].device for m in plan.mirrors}
+    stacked = stacked_devices(plan)
     for name, dev in plan.devices.items():
         if not isinstance(dev, CardModel) or dev.is_bipolar or name not in used:
             continue
         for corner in corners:
             for kelvin in temps:
-                table_for(dev, corner, kelvin, vmax, folder)
-                info = header(dev, corner, kelvin, vmax)
+                table_for(dev, corner, kelvin, vmax, folder, name in stacked)
+                info = header(dev, corner, kelvin, vmax, name in stacked)
                 info["device"] = name
                 info["file"] = str((folder or table_folder()) / f"{info['hash']}.npz")
                 done.append(info)

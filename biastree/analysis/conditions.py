@@ -191,6 +191,7 @@ def mos_tables(tree: Tree, cols: Columns) -> TableSet | None:
     if not rows:
         return None
     vmax = characterize.table_vmax(plan, (float(np.max(cols.supply)),))
+    stacked = characterize.stacked_devices(plan)  # their tables span V_SB (and serve every mirror of the device)
     which = np.full((len(tree.mirrors), cols.size), -1, dtype=np.int64)
     found: list[Table] = []
     index: dict[tuple[str, str, float], int] = {}
@@ -201,7 +202,8 @@ def mos_tables(tree: Tree, cols: Columns) -> TableSet | None:
             key = (device, cols.corner[j], float(cols.temperature[j]))
             if key not in index:
                 index[key] = len(found)
-                found.append(characterize.table_for(dev, cols.corner[j], float(cols.temperature[j]), vmax))
+                found.append(characterize.table_for(dev, cols.corner[j], float(cols.temperature[j]), vmax,
+                                                    body=device in stacked))
             which[i, j] = index[key]
     return TableSet(tuple(found), which)
 

@@ -27,7 +27,6 @@ from typing import Callable
 
 import numpy as np
 
-from biastree.errors import SolveError
 from biastree.physics import devices, gp_mirrors, gummel_poon, tables
 from biastree.physics.devices import Array
 
@@ -126,6 +125,7 @@ class Topology:
     params: tuple[str, ...] = ()  # plan keys this topology accepts
     single_output: bool = False  # only one branch with count 1 (Wilson)
     coupled_outputs: bool = False  # one output's voltage moves the others (affects Rout)
+    stacks_mos: bool = False  # a MOS device's source sits above its bulk: tables span V_SB
     terms: dict[str, tuple[str, ...]] = field(default_factory=lambda: dict(FAMILY_TERMS))
     # unit devices of one mirror: (input size, fan-out Σ ratio·count, parameters) → units
     units: Callable[[float, float, dict[str, float]], float] = lambda a0, fan, p: a0 * (1.0 + fan)
@@ -345,7 +345,12 @@ def _cascode(g: GroupInput) -> GroupOutput:
         current = x4 * devices.early_factor(vcb4, d.early[r])
         return GroupOutput(v_in, current, np.broadcast_to(v_in[r], current.shape), np.zeros_like(g.i_in))
     if d.tables is not None and d.tables.any():
-        raise SolveError("MOS devices given by cards are characterised for the simple topology only (so far)")
+        return _with_tables(g, _cascode_square, _cascode_tables)
+    return _cascode_square(g)
+
+
+def _cascode_square(g: GroupInput) -> GroupOutput:
+    d, r = g.dev, g.row
     vgs1 = devices.mos_vgs(g.i_in, d.k_in, d.vth, d.lam)
     vgs3 = devices.mos_vgs(g.i_in, d.k_in, d.vth, d.lam)  # top diode: V_DS = V_GS too (γ = 0: no body effect)
     v_in = vgs1 + vgs3
@@ -418,9 +423,13 @@ def _wide_swing(g: GroupInput) -> GroupOutput:
     The bias current comes from an ideal source (parameter bias_current,
     default: the mirror's ideal input current) and is counted as overhead.
     """
+    if g.dev.tables is not None and g.dev.tables.any():
+        return _with_tables(g, _wide_swing_square, _wide_swing_tables)
+    return _wide_swing_square(g)
+
+
+def _wide_swing_square(g: GroupInput) -> GroupOutput:
     d, r = g.dev, g.row
-    if d.tables is not None and d.tables.any():
-        raise SolveError("MOS devices given by cards are characterised for the simple topology only (so far)")
     n = g.params["swing_n"]
     i_bias = g.params["bias_current"]
     k5 = d.k_in / (n + 1.0) ** 2
@@ -445,6 +454,94 @@ def _wide_swing(g: GroupInput) -> GroupOutput:
     input_margin = np.minimum(vn - (vg - d.vth), vx1 - (vn - d.vth))
     internal = np.minimum(bottom, input_margin[r])
     return GroupOutput(vn, current, top, np.broadcast_to(i_bias, g.i_in.shape).copy(), internal)
+
+
+# --- stacked MOS mirrors from characterisation tables -------------------------------
+
+
+def _with_tables(g: GroupInput, square: Callable[[GroupInput], GroupOutput],
+                 table: Callable[[GroupInput, tables.TableSet], GroupOutput]) -> GroupOutput:
+    """Rows with characterisation tables solved by ``table``; a group that also has
+    square-law rows solves those by ``square`` and takes each row from its own law."""
+    t = g.dev.tables
+    assert t is not None
+    if bool(np.all(t.which >= 0)):
+        return table(g, t)
+    with np.errstate(all="ignore"):  # the card rows have no square-law parameters
+        sq = square(g)
+    tb = table(g, t.filled())
+    in_rows, out_rows = t.which >= 0, t.take(g.row).which >= 0
+
+    def pick(a: Array | None, b: Array | None, rows: Array) -> Array | None:
+        if a is None and b is None:
+            return None
+        a = np.full(rows.shape, np.inf) if a is None else a
+        b = np.full(rows.shape, np.inf) if b is None else b
+        return np.where(rows, a, b)
+
+    return GroupOutput(np.where(in_rows, tb.v_in, sq.v_in), np.where(out_rows, tb.current, sq.current),
+                       np.where(out_rows, tb.min_distance, sq.min_distance), np.where(in_rows, tb.extra, sq.extra),
+                       pick(tb.internal_margin, sq.internal_margin, out_rows))
+
+
+def _stack_outputs(g: GroupInput, t: tables.TableSet, vg_bot: Array, vg_top: Array, ideal_d: Array,
+                   start: Array) -> tuple[Array, Array, Array, Array]:
+    """Every output stack of a group from the tables: bottom device (m_k·A0 units, gate
+    vg_bot, mismatch on it as in the square-law solution) under the cascode device
+    (m_k·A0 units, gate vg_top, bulk on the rail).  Returns (current, V_x, the cascode
+    device's compliance limit, the bottom device's saturation margin)."""
+    r = g.row
+    t_out = t.take(r)
+    dvt, ks = g.mos_mismatch()
+    vb = vg_bot[r] - dvt  # a threshold mismatch shifts the bottom device's effective V_GS
+    d = np.broadcast_to(ideal_d[r], g.distance.shape) if t.ideal else g.distance
+    log_ks = np.log(ks)
+    vx = tables.stack_node(t_out, vb, vg_top[r], d, start[r], log_ks)
+    top_args = (vg_top[r] - vx, d - vx, vx)  # the output is the cascode device's drain current:
+    # the bottom device's plus the cascode device's bulk current (its drain-over-source ratio)
+    ratio = t_out.log_current(*top_args) - t_out.log_current(*top_args, source=True)
+    current = g.ratio * g.dev.size_in[r] * np.exp(log_ks + t_out.log_current(vb, vx, 0.0) + ratio)
+    top = vx + tables.saturation_limit(vg_top[r] - vx, t_out, vsb=vx)  # the cascode device, at its own V_SB
+    bottom = vx - tables.saturation_limit(np.broadcast_to(vb, vx.shape), t_out)
+    return current, vx, top, bottom
+
+
+def _cascode_tables(g: GroupInput, t: tables.TableSet) -> GroupOutput:
+    """Cascode mirror from the tables (see ``_cascode``): M1 a diode on the rail carries
+    I_in/A0 per unit at V_GS1; M3, a diode on top of it, at V_SB = V_GS1; every output
+    stack solves its middle node V_x (biastree.physics.tables.stack_node).  Compliance:
+    each device of the stack saturated (biastree.physics.tables.saturation_limit; the
+    cascode device at its own V_GS and V_SB; the bottom device's margin is the internal
+    margin), as the square-law solution asks V_DS ≥ V_GS − V_T of each.  With ideal outputs the output
+    node sits at the input node (the output stack then copies the input stack)."""
+    unit = g.i_in / g.dev.size_in
+    vgs1 = tables.diode_vgs(unit, t)
+    for _ in range(2):  # M1 carries what leaves M3's source (M3's bulk current: ~1e-9 of it)
+        vgs3 = tables.diode_vgs(unit, t, vsb=vgs1)
+        ratio = t.log_current(vgs3, vgs3, vgs1, source=True) - t.log_current(vgs3, vgs3, vgs1)
+        vgs1 = tables.diode_vgs(unit * np.exp(ratio), t)
+    v_in = vgs1 + tables.diode_vgs(unit, t, vsb=vgs1)
+    current, _, top, bottom = _stack_outputs(g, t, vgs1, v_in, v_in, vgs1)
+    return GroupOutput(v_in, current, top, np.zeros_like(g.i_in), bottom)
+
+
+def _wide_swing_tables(g: GroupInput, t: tables.TableSet) -> GroupOutput:
+    """Wide-swing cascode from the tables (see ``_wide_swing``): the bias device
+    (A0/(n + 1)² units, as many copies as the netlist writes) is a diode carrying the
+    bias current and sets the cascode gate line V_G; the input stack M1 (gate at the
+    input node V_N, drain V_x1) under M3 (gate V_G, V_SB = V_x1, drain V_N) carries
+    I_in (biastree.physics.tables.wide_swing_input); outputs as in the cascode, bottom
+    gate V_N, cascode gate V_G.  With ideal outputs the output node sits at V_N."""
+    r = g.row
+    a0 = g.dev.size_in
+    i_bias = np.broadcast_to(g.params["bias_current"], g.i_in.shape)
+    vg = tables.diode_vgs(i_bias * (g.params["swing_n"] + 1.0) ** 2 / a0, t)
+    vn, x1, _ = tables.wide_swing_input(g.i_in / a0, vg, t)
+    current, _, top, bottom = _stack_outputs(g, t, vn, vg, vn, x1)
+    # the input stack must be active too: M3 at V_SB = V_x1, M1 on the rail
+    input_margin = np.minimum((vn - x1) - tables.saturation_limit(vg - x1, t, vsb=x1),
+                              x1 - tables.saturation_limit(vn, t))
+    return GroupOutput(vn, current, top, i_bias.copy(), np.minimum(bottom, input_margin[r]))
 
 
 # --- emitter degeneration ---------------------------------------------------------
@@ -524,9 +621,9 @@ TOPOLOGIES: dict[str, Topology] = {
         Topology("wilson4", frozenset({"bjt"}), "4-device improved Wilson: equal V_CE on the mirror pair", _wilson4,
                  single_output=True, units=lambda a0, fan, p: a0 * (2.0 + 2.0 * fan)),
         Topology("cascode", frozenset({"bjt", "mos"}), "stacked mirror with cascode outputs, Rout ≈ β·ro (BJT), gm·ro² (MOS)",
-                 _cascode, coupled_outputs=True, units=lambda a0, fan, p: 2.0 * a0 * (1.0 + fan)),
+                 _cascode, coupled_outputs=True, stacks_mos=True, units=lambda a0, fan, p: 2.0 * a0 * (1.0 + fan)),
         Topology("wide_swing", frozenset({"mos"}), "low-voltage cascode, outputs down to about 2·V_ov",
-                 _wide_swing, params=("bias_current", "swing_n"),
+                 _wide_swing, params=("bias_current", "swing_n"), stacks_mos=True,
                  units=lambda a0, fan, p: 2.0 * a0 * (1.0 + fan) + a0 / (p["swing_n"] + 1.0) ** 2),
         Topology("degenerated", frozenset({"bjt"}), "emitter resistors (R_E on the input, R_E/ratio on outputs)",
                  _degenerated, params=("degeneration", "degeneration_drop")),
