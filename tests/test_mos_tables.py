@@ -133,3 +133,24 @@ def test_mos_card_needs_size(write_plan) -> None:  # type: ignore[no-untyped-def
     del plan["devices"]["mn"]["w"]
     result = CliRunner().invoke(app, ["check", str(write_plan(json.dumps(plan), "p.json"))])
     assert result.exit_code == 2 and "a MOS card needs the unit device size w and l" in result.output
+
+
+def test_table_compliance_is_the_square_law_knee_not_channel_length_modulation() -> None:
+    """Source: the SPICE level-1 (Shichman–Hodges) equations.  In triode
+    I_D = KP·(V_ov·V_DS − V_DS²/2)·(1 + λV_DS), in saturation KP/2·V_ov²·(1 + λV_DS):
+    the current falls 1 % below its saturation line at V_DS = (1 − √0.01)·V_ov = 0.9·V_ov.
+    Comparing with the current at V_DS = V_GS instead (the former rule) would stop at
+    V_GS − 0.2 V for λ = 0.05/V: channel-length modulation, not triode."""
+    from biastree.physics import tables
+
+    kp, vth, lam = 200e-6, 0.5, 0.05
+    vgs = np.arange(0.3, 1.8001, 0.025)
+    vds = np.arange(0.0, 1.8001, 0.0125)
+    g, d = np.meshgrid(vgs, vds, indexing="ij")
+    vov = np.maximum(g - vth, 1e-3)
+    ids = np.where(d < vov, kp * (vov * d - d * d / 2), kp / 2 * vov ** 2) * (1 + lam * d)
+    t = tables.TableSet((tables.Table(vgs, vds[1:], np.log(ids[:, 1:])),), np.zeros((1, 1), dtype=np.int64))
+    for v in (0.75, 0.9, 1.2):
+        knee = float(tables.compliance(np.array([[v]]), t)[0, 0])
+        assert abs(knee - 0.9 * (v - vth)) < 3e-3 * (v - vth) + 2e-3, (v, knee)
+        assert knee < v - vth  # inside the square law's own edge (V_DS = V_ov), far above V_GS − 0.2 V
