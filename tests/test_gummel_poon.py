@@ -208,3 +208,23 @@ def test_fractional_copies_of_a_card_device_are_noted(write_plan) -> None:  # ty
     result = CliRunner().invoke(app, ["check", str(write_plan(json.dumps(plan), "f.json"))])
     assert ("note: mirror m: input 1.5, output to b 1.5 unit devices; a device of model card q "
             "is whole copies") in result.output
+
+
+def test_two_inline_cards_in_one_process_keep_their_own_notes_and_values() -> None:
+    """Two plans whose inline cards both start at "inline card:1": each keeps its own
+    unknown-parameter note and its own parameters (the memo is keyed by content)."""
+    from biastree.analysis.cards import bipolar_values, notes
+
+    first = _tree(_plan(_device("npn", {**BASE, "bogus": "3"}), "simple", "10uA"))
+    second = _tree(_plan(_device("npn", {"is": "2e-16", "bf": "50", "other": "1"}), "simple", "10uA"))
+    third = _tree(_plan(_device("npn", {"is": "2e-16", "bf": "80"}), "simple", "10uA"))
+    for _ in range(2):  # in either order, read again: no note or value leaks from one plan to another
+        for tree, unknown, bf in ((first, "bogus", 110.0), (second, "other", 50.0), (third, None, 80.0)):
+            line = f"inline card:1: model qc: not Gummel–Poon parameters, ignored (as ngspice ignores them): {unknown}"
+            assert notes(tree.plan) == ([] if unknown is None else [line])
+            assert bipolar_values(tree.plan.devices["q"])["bf"] == bf
+            # the solved currents follow each plan's own BF.  Source: G&M 5th ed. ch. 4 (REFERENCES.md,
+            # simple mirror): I_k = m_k·I_in/(1 + (1 + Σm)/β) with V_A → ∞; here Σm = 5 (ratios 2 and 1×3)
+            op = solve(tree, condition_columns(tree, [300.15], [5.0], [""], ends=CASES), output_resistance=False)
+            a = tree.loads.index("a")
+            assert op.l_current[a, 0] == pytest.approx(2 * 10e-6 / (1 + 6 / bf), rel=1e-9)
