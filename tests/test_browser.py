@@ -282,3 +282,33 @@ def test_screenshots(browser, reports, tmp_path) -> None:  # type: ignore[no-unt
         assert shot.read_bytes().startswith(b"\x89PNG")
     assert errors(browser) == []
 
+
+
+
+@pytest.mark.parametrize("name", ["bipolar_small", "planned_sensor_hub"])
+def test_fitted_diagram_fills_its_box(browser, tmp_path, name) -> None:  # type: ignore[no-untyped-def]
+    """The fitted drawing starts at the top of its box and leaves no blank band below it (open or folded at first)."""
+    from biastree.output.dot import to_dot
+    from biastree.output.render import render, svg_body
+
+    sample = next(s for s in SAMPLES if s.stem == name)
+    result = biastree.check(sample)
+    picture = to_dot(result)
+    path = tmp_path / f"{name}.html"
+    path.write_text(to_html(result, svg_body(render(picture.text, "svg", picture.nodes)), str(sample)), "utf-8")
+    size = browser.get_window_size()
+    browser.set_window_size(1400, 2000)  # a tall window: the box must shrink to the drawing, not leave a band
+    try:
+        open_page(browser, path)
+        browser.execute_script("document.getElementById('diagram-box').open = true")
+        box, drawn = browser.execute_script(
+            "var b = document.getElementById('diagram'), g = b.querySelector('svg g');"
+            "var r = b.getBoundingClientRect(), d = g.getBoundingClientRect();"
+            "return [[r.top, r.bottom, r.height], [d.top, d.bottom, d.height]];")
+    finally:
+        browser.set_window_size(size["width"], size["height"])
+    assert drawn[2] > 100
+    assert drawn[0] - box[0] < 20  # no blank band above the drawing
+    # the drawing fills the box's height, or the box is as tall as 75 % of the window allows
+    assert box[1] - drawn[1] < 20 or box[2] >= 0.74 * browser.execute_script("return window.innerHeight")
+    assert errors(browser) == []

@@ -107,6 +107,16 @@ def _json_for_script(data: Any) -> str:
     return text.replace("</", "<\\/")
 
 
+# what a summary figure counts, shown when the pointer rests on it
+_FACT_TITLES = {
+    "device units": "all mirror devices counted in unit devices: input size, ratio × copies of each output, and the "
+                    "helper and cascode devices of the topology; an output of ratio 0.5 counts half a unit device",
+    "overhead": "supply current not delivered to loads (the reference, currents feeding other mirrors, helper and "
+                "bias currents), and that times the supply",
+    "reference headroom": "supply minus the first mirror's input voltage: the voltage left for the reference source",
+}
+
+
 def _summary(result: Audit, source: str | None) -> list[str]:
     plan = result.tree.plan
     s = result.summary()
@@ -132,7 +142,8 @@ def _summary(result: Audit, source: str | None) -> list[str]:
         facts.append(("conditions", f"{len(result.conditions.columns.names)} solved, worst counts"))
     if result.spread is not None:
         facts.append(("mismatch", f"{result.k_sigma:g}σ counts"))
-    cells = "".join(f"<div><b>{escape(k)}</b><span>{escape(v)}</span></div>" for k, v in facts)
+    cells = "".join(f'<div title="{escape(_FACT_TITLES.get(k, ""))}"><b>{escape(k)}</b><span>{escape(v)}</span></div>'
+                    for k, v in facts)
     out = [f'<section id="summary"><p class="verdict">{verdict}</p><div class="facts">{cells}</div>']
     if source:
         out.append(f'<p class="src">plan file <code>{escape(source)}</code></p>')

@@ -272,7 +272,16 @@ function diagram() {
   if (!vb0) return;
   var base = vb0.split(/[ ,]+/).map(Number), vb = base.slice();
   svg.removeAttribute('width'); svg.removeAttribute('height');
-  svg.setAttribute('preserveAspectRatio', 'xMidYMid meet');
+  svg.setAttribute('preserveAspectRatio', 'xMidYMin meet');
+  // the box is as tall as the fitted drawing needs (at most 75 % of the window): no blank band
+  function size() {
+    if (!box.clientWidth) return;  // folded away: sized when opened
+    var h = box.clientWidth * base[3] / base[2];
+    box.style.height = Math.max(120, Math.min(0.75 * window.innerHeight, h + 2)) + 'px';
+  }
+  size(); window.addEventListener('resize', size);
+  var fold = box.closest('details');
+  if (fold) fold.addEventListener('toggle', size);
   function apply() { svg.setAttribute('viewBox', vb.join(' ')); }
   box.addEventListener('wheel', function (e) {
     e.preventDefault();
