@@ -471,3 +471,27 @@ def solve_increasing(residual, x0: Array, step0: float = 0.02, tol: float = 1e-1
         if np.all(done | (f == 0)):
             break
     return x
+
+
+def beta_at(ic: Array, p: GummelPoon) -> Array:
+    """DC current gain I_C/I_B of a unit device carrying collector current ``ic``, with
+    V_B'C' = 0 and the Early effect aside (VAF, VAR → ∞: the β part of a mirror's gain,
+    as the "β loading" term takes it).  With ISE/NE the gain falls at low current, with
+    IKF at high current: β is a function of I_C, not the constant BF.
+
+    >>> p = from_card({"is": 1e-16, "bf": 100.0, "ikf": 1e-3}, 300.15)
+    >>> round(float(beta_at(np.array(1e-3), p)), 6)  # at I_C = IKF: q_2 = q_b, q_b = 2, β = BF/q_b
+    50.0
+    """
+    q = p.ideal_outputs()
+    ic = np.asarray(ic, dtype=float)
+    zero = np.zeros_like(ic)
+
+    def residual(v: Array) -> tuple[Array, Array]:
+        got = _junctions_g(v, zero, q)
+        return got[0] - ic, got[4]
+
+    start = q.nf * q.vt * np.log1p(np.maximum(ic, 1e-30) / q.is_be)
+    vbe = solve_increasing(residual, start, slope=True)
+    c, b = intrinsic(vbe, zero, q)
+    return c / b
