@@ -83,6 +83,10 @@ class Audit:
     def _stage_cache(self) -> dict[int, list[dict[str, Any]]]:
         return {}
 
+    @cached_property
+    def _card_beta_cache(self) -> dict[tuple[int, int], tuple[OperatingPoint, dict[int, tuple[float, str]]]]:
+        return {}
+
     def _stage_rows(self, case: int, op: OperatingPoint | None = None) -> list[dict[str, Any]]:
         """One stage dict per branch (the stage a load passes through when its
         path takes that branch), built in one pass from the arrays; cached for
@@ -105,7 +109,10 @@ class Audit:
         fanout = tree.m_fanout.tolist()
         ratio = tree.b_ratio.tolist()
         index = tree.b_index.tolist()
-        card_beta = _card_betas(tree, op, case)
+        key = (id(op), case)
+        if key not in self._card_beta_cache:  # the op is kept with its entry: its id stays its own
+            self._card_beta_cache[key] = (op, _card_betas(tree, op, case))
+        card_beta = self._card_beta_cache[key][1]
         rows = []
         for b, m in enumerate(tree.b_parent.tolist()):
             name, device, topology, keys = per_mirror[m]
