@@ -208,3 +208,74 @@ def test_fractional_copies_of_a_card_device_are_noted(write_plan) -> None:  # ty
     result = CliRunner().invoke(app, ["check", str(write_plan(json.dumps(plan), "f.json"))])
     assert ("note: mirror m: input 1.5, output to b 1.5 unit devices; a device of model card q "
             "is whole copies") in result.output
+
+
+def test_two_inline_cards_in_one_process_keep_their_own_notes_and_values() -> None:
+    """Two plans whose inline cards both start at "inline card:1": each keeps its own
+    unknown-parameter note and its own parameters (the memo is keyed by content)."""
+    from biastree.analysis.cards import bipolar_values, notes
+
+    first = _tree(_plan(_device("npn", {**BASE, "bogus": "3"}), "simple", "10uA"))
+    second = _tree(_plan(_device("npn", {"is": "2e-16", "bf": "50", "other": "1"}), "simple", "10uA"))
+    third = _tree(_plan(_device("npn", {"is": "2e-16", "bf": "80"}), "simple", "10uA"))
+    for _ in range(2):  # in either order, read again: no note or value leaks from one plan to another
+        for tree, unknown, bf in ((first, "bogus", 110.0), (second, "other", 50.0), (third, None, 80.0)):
+            line = f"inline card:1: model qc: not Gummel–Poon parameters, ignored (as ngspice ignores them): {unknown}"
+            assert notes(tree.plan) == ([] if unknown is None else [line])
+            assert bipolar_values(tree.plan.devices["q"])["bf"] == bf
+            # the solved currents follow each plan's own BF.  Source: G&M 5th ed. ch. 4 (REFERENCES.md,
+            # simple mirror): I_k = m_k·I_in/(1 + (1 + Σm)/β) with V_A → ∞; here Σm = 5 (ratios 2 and 1×3)
+            op = solve(tree, condition_columns(tree, [300.15], [5.0], [""], ends=CASES), output_resistance=False)
+            a = tree.loads.index("a")
+            assert op.l_current[a, 0] == pytest.approx(2 * 10e-6 / (1 + 6 / bf), rel=1e-9)
+
+
+@pytest.mark.ngspice
+def test_beta_loading_term_of_a_card_gives_beta_at_the_device_current(ngspice) -> None:  # type: ignore[no-untyped-def]
+    """With a card, β is a function of I_C: the "β loading" term (label unchanged) says at which β
+    it was taken, and the split of the error into terms stays exact."""
+    import math
+    import re
+
+    from scipy.optimize import brentq
+
+    from biastree.analysis.audit import audit
+
+    card = {"is": 2e-16, "bf": 110.0, "ise": 50e-15, "ne": 1.8, "ikf": 0.3e-3}
+    plan = _plan(_device("npn", {k: repr(v) for k, v in card.items()}), "simple", "100uA")
+    plan["loads"]["a"].update(current="200uA", tolerance="0.5%")  # fails: its reasons name the largest term
+    result = audit(solve(_tree(plan)))
+    a = result.tree.loads.index("a")
+    deciding = result.deciding(a)
+    beta_terms = [t for t in deciding["terms"] if t["term"] == "beta"]
+    assert [t["label"] for t in beta_terms] == ["β loading"]
+    term = beta_terms[0]
+    # exact split: Π(1 + term) − 1 is the deciding case's error (audit.py's definition)
+    assert math.prod(1.0 + t["value"] for t in deciding["terms"]) - 1.0 == pytest.approx(deciding["error"], rel=1e-12)
+    # the output device's collector current per unit device: input_size 2 × ratio 2 = 4 units
+    stage = deciding["stages"][-1]
+    ic = stage["output_current"] / 4.0
+
+    # Independently, the SPICE Gummel–Poon DC equations (ngspice manual, BJT chapter; REFERENCES.md,
+    # "Real device models") at V_BC = 0 with no Early effect (q_1 = 1):
+    # I_C = IS(e^x − 1)/q_b, q_b = (1 + √(1 + 4·IS(e^x − 1)/IKF))/2, I_B = IS(e^x − 1)/BF + ISE(e^(V_BE/(NE·V_T)) − 1)
+    vt = 1.380649e-23 * 300.15 / 1.602176634e-19
+    ibe = lambda v: card["is"] * math.expm1(v / vt)  # noqa: E731
+    collector = lambda v: ibe(v) / ((1.0 + math.sqrt(1.0 + 4.0 * ibe(v) / card["ikf"])) / 2.0)  # noqa: E731
+    vbe = brentq(lambda v: collector(v) - ic, 0.3, 1.2, xtol=1e-15, rtol=1e-15)
+    beta = collector(vbe) / (ibe(vbe) / card["bf"] + card["ise"] * math.expm1(vbe / (card["ne"] * vt)))
+    assert abs(beta / card["bf"] - 1.0) > 0.1  # IKF and ISE pull β well below BF at this current
+    assert term["beta"] == pytest.approx(beta, rel=1e-9)
+    printed = re.match(r"β (\S+) at this output device's (\S+) µA per unit device, card BF 110", term["note"])
+    assert printed is not None, term["note"]
+    assert float(printed.group(1)) == pytest.approx(float(f"{beta:.4g}"), rel=1e-12)
+    assert float(printed.group(2)) == pytest.approx(float(f"{ic * 1e6:.3g}"), rel=1e-12)
+    assert term["note"] in result.reasons(a)[0]
+
+    # and ngspice's .op of one unit device of the same card at that V_BE, V_CB = 0 (same Gummel–Poon model)
+    deck = "\n".join(["beta of one unit device", _card("qc", "npn", {k: repr(v) for k, v in card.items()}),
+                      f"vcc c 0 dc {vbe!r}", f"vbb b 0 dc {vbe!r}", "q1 c b 0 qc", f".temp {300.15 - 273.15!r}",
+                      ".options reltol=1e-9 abstol=1e-20 vntol=1e-12 gmin=1e-18 filetype=ascii", ".op", ".end", ""])
+    sim = run_ngspice(deck)
+    simulated = float(sim["i(vcc)"][0]) / float(sim["i(vbb)"][0])
+    assert simulated == pytest.approx(beta, rel=1e-6), (simulated, beta)

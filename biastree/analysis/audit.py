@@ -83,6 +83,10 @@ class Audit:
     def _stage_cache(self) -> dict[Any, list[dict[str, Any]]]:
         return {}
 
+    @cached_property
+    def _card_beta_cache(self) -> dict[tuple[int, int], tuple[OperatingPoint, dict[int, tuple[float, str]]]]:
+        return {}
+
     def _stage_rows(self, case: int, op: OperatingPoint | None = None) -> list[dict[str, Any]]:
         """One stage dict per branch (the stage a load passes through when its
         path takes that branch), built in one pass from the arrays; cached for
@@ -109,6 +113,10 @@ class Audit:
         fanout = tree.m_fanout.tolist()
         ratio = tree.b_ratio.tolist()
         index = tree.b_index.tolist()
+        key = (id(op), case)
+        if key not in self._card_beta_cache:  # the op is kept with its entry: its id stays its own
+            self._card_beta_cache[key] = (op, _card_betas(tree, op, case))
+        card_beta = self._card_beta_cache[key][1]
         rows = []
         for b, m in enumerate(tree.b_parent.tolist()):
             name, device, topology, keys = per_mirror[m]
@@ -118,7 +126,10 @@ class Audit:
                 value = factors[key][b]
                 if key == "gradient" and value == 1.0:
                     continue  # only remote output devices have a gradient term
-                terms.append({"term": key, "label": label, "value": value - 1.0})
+                term = {"term": key, "label": label, "value": value - 1.0}
+                if key == "beta" and b in card_beta:  # the label stays: hints look terms up by it
+                    term["beta"], term["note"] = card_beta[b]
+                terms.append(term)
                 gain *= 1.0 + (value - 1.0)
             rows.append(
                 {
@@ -302,8 +313,8 @@ class Audit:
             top = d["terms"][0]
             # an operating point solved for verdicts only (detail=False) has no error terms:
             # then no term can be named, rather than the plan's own ratio term alone
-            largest = (f"; largest term there: {top['label']} at {top['stage']} ({format_percent(top['value'])})"
-                       if op.b_factors else "")
+            largest = (f"; largest term there: {top['label']} at {top['stage']} ({format_percent(top['value'])}"
+                       f"{'; ' + top['note'] if 'note' in top else ''})" if op.b_factors else "")
             out.append(
                 f"budget: error {format_percent(d['error'])}{mm}{ref} = {d['used'] * 100:.3g} % exceeds "
                 f"±{d['tolerance'] * 100:.3g} % at {self.deciding_text(load, d)}{largest}"
@@ -579,3 +590,33 @@ def audit(op: OperatingPoint, conditions: Any = None, spread: Any = None, k_sigm
         spread=spread,
         k_sigma=k,
     )
+
+
+def _card_betas(tree: Any, op: OperatingPoint, case: int) -> dict[int, tuple[float, str]]:
+    """(β, words) of the output device of every branch of a bipolar mirror whose device is
+    a Gummel–Poon card, at its own current in column ``case``: with a card, β depends on
+    each device's current (ISE/NE at low current, IKF at high current), so the "β loading"
+    term says at which β it was taken.  β is I_C/I_B of one unit device at the output's
+    collector current per unit device (V_CB = 0, the Early effect aside, as the term is
+    defined: ``gummel_poon.beta_at``)."""
+    from biastree.input.cards import CardModel
+    from biastree.physics import gummel_poon
+
+    plan = tree.plan
+    card = np.array([bool(tree.m_bipolar[m]) and isinstance(plan.devices[plan.mirrors[n].device], CardModel)
+                     for m, n in enumerate(tree.mirrors)], dtype=bool)
+    gp = None if op.devices is None else op.devices.gp
+    if gp is None or not card.any():
+        return {}
+    b = np.nonzero(card[tree.b_parent])[0]
+    m = tree.b_parent[b]
+    size = np.array([plan.mirrors[tree.mirrors[i]].input_size for i in m.tolist()]) * tree.b_ratio[b]
+    p = gp.take((m, np.full(len(b), case)))
+    ic = np.abs(op.b_current[b, case]) / size
+    beta = gummel_poon.beta_at(ic, p)
+    out = {}
+    for i, bb in enumerate(b.tolist()):
+        bf = float(p.bf[i])
+        out[bb] = (float(beta[i]), f"β {beta[i]:.4g} at this output device's {format_si(float(ic[i]), 'A')} "
+                                   f"per unit device, card BF {bf:.4g}: a card's β depends on each device's current")
+    return out

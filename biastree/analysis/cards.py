@@ -13,6 +13,7 @@ from __future__ import annotations
 import functools
 import os
 from dataclasses import dataclass
+
 import numpy as np
 
 from biastree.input.cards import CardModel
@@ -93,22 +94,46 @@ def _where(dev: CardModel) -> str:
     return str(dev.include or dev.library or "inline card")
 
 
-def bipolar_values(dev: CardModel, corner: str = "") -> dict[str, float]:
-    """The card's DC parameters, evaluated (lower-case SPICE names, SI units; TNOM in °C)."""
+def _source_key(dev: CardModel, corner: str) -> tuple[object, ...]:
+    """What a device's card evaluates from: the inline text itself, or the file, its
+    section and its modification time (an edited file is read again)."""
+    if dev.card is not None:
+        return ("card", dev.kind, dev.model, dev.card)
+    path = dev.include if dev.include is not None else dev.library
+    assert path is not None  # the model validator guarantees one source
     section = dev.section_for(corner) if dev.library is not None else None
-    key = (dev.kind, dev.model, dev.card, dev.include, dev.library, section)
-    hit = _VALUES.get(key)
+    stat = os.stat(path)
+    return ("file", dev.kind, dev.model, path, section, stat.st_mtime_ns, stat.st_size)
+
+
+@dataclass(frozen=True)
+class _Evaluated:
+    values: dict[str, float]
+    note: str | None  # the parameters the model does not know, said once per card
+
+
+def _evaluate(dev: CardModel, corner: str) -> _Evaluated:
+    # memoised by the card's content (``_source_key``), never by its place: two inline
+    # cards both start at "inline card:1" and must not share values or notes
+    key = _source_key(dev, corner)
+    hit = _EVALUATED.get(key)
     if hit is None:
         hit = _values(dev, corner)
-        if len(_VALUES) < 256:
-            _VALUES[key] = hit
+        if len(_EVALUATED) >= 256:  # bounded: a long session reads many cards
+            _EVALUATED.pop(next(iter(_EVALUATED)))
+        _EVALUATED[key] = hit
     return hit
 
 
-_VALUES: dict[tuple[object, ...], dict[str, float]] = {}
+_EVALUATED: dict[tuple[object, ...], _Evaluated] = {}
 
 
-def _values(dev: CardModel, corner: str) -> dict[str, float]:
+def bipolar_values(dev: CardModel, corner: str = "") -> dict[str, float]:
+    """The card's DC parameters, evaluated (lower-case SPICE names, SI units; TNOM in °C)."""
+    return _evaluate(dev, corner).values
+
+
+def _values(dev: CardModel, corner: str) -> _Evaluated:
     found = locate(dev, corner)
     card = found.card
     if card.kind not in ("npn", "pnp"):
@@ -133,24 +158,20 @@ def _values(dev: CardModel, corner: str) -> dict[str, float]:
             values[target] = card.value(key)
     if found.multiplier != 1.0:
         values["_m"] = found.multiplier
+    note = None
     if unknown:
-        _NOTES[card.where] = (f"{card.where}: model {card.name}: not Gummel–Poon parameters, ignored "
-                              f"(as ngspice ignores them): {', '.join(unknown)}")
-    return values
-
-
-_NOTES: dict[str, str] = {}
+        note = (f"{card.where}: model {card.name}: not Gummel–Poon parameters, ignored "
+                f"(as ngspice ignores them): {', '.join(unknown)}")
+    return _Evaluated(values, note)
 
 
 def notes(plan: object) -> list[str]:
     """One line per card of the plan that carries parameters the model does not know."""
-    check_plan_cards(plan)
     wanted = []
-    for dev in getattr(plan, "devices", {}).values():
-        if isinstance(dev, CardModel) and dev.is_bipolar:
-            where = locate(dev).card.where
-            if where in _NOTES:
-                wanted.append(_NOTES[where])
+    for dev, corner in _bipolar_cards(plan):
+        note = _evaluate(dev, corner).note  # raises SpiceError with file:line on a bad card
+        if note is not None:
+            wanted.append(note)
     return list(dict.fromkeys(wanted)) + fractional_copies(plan)
 
 
@@ -192,12 +213,16 @@ def gummel_poon(dev: CardModel, corner: str, kelvin: np.ndarray) -> gp.GummelPoo
 
 def check_plan_cards(plan: object) -> None:
     """Read every card a plan names (raises ``SpiceError`` with file:line on the first bad one)."""
+    for dev, corner in _bipolar_cards(plan):
+        _evaluate(dev, corner)
+
+
+def _bipolar_cards(plan: object) -> list[tuple[CardModel, str]]:
+    """(device, corner) of every bipolar card device of a plan, at every corner it has."""
     devices = getattr(plan, "devices", {})
     corners = list(getattr(getattr(plan, "conditions", None), "corners", {}) or [])
-    for dev in devices.values():
-        if isinstance(dev, CardModel) and dev.is_bipolar:
-            for corner in [""] + corners:
-                bipolar_values(dev, corner)
+    return [(dev, corner) for dev in devices.values() if isinstance(dev, CardModel) and dev.is_bipolar
+            for corner in [""] + corners]
 
 
 def _spice_num(x: float) -> str:

@@ -18,6 +18,10 @@ class Term(_Out):
     term: str = Field(description="key of the effect: beta, early, lambda, …")
     label: str = Field(description="name of the effect as shown to a designer")
     value: float = Field(description="the stage's gain factor for this effect minus one (fraction)")
+    beta: Optional[float] = Field(default=None, description=(
+        "β loading of a Gummel–Poon card device: β = I_C/I_B of one unit device at this output's collector current "
+        "(V_CB = 0, Early effect aside); a card's β depends on each device's current"))
+    note: Optional[str] = Field(default=None, description="the same in words (card devices' β loading term)")
 
 
 class Stage(_Out):
@@ -86,6 +90,10 @@ class DecidingTerm(_Out):
     term: str = Field(description="key of the effect: ratio, reference_drift, beta, early, lambda, gradient")
     label: str = Field(description="name of the effect as shown to a designer")
     value: float = Field(description="factor minus one (fraction); Π(1 + value) − 1 over the terms is the error")
+    beta: Optional[float] = Field(default=None, description=(
+        "β loading of a Gummel–Poon card device: β = I_C/I_B of one unit device at this output's collector current "
+        "(V_CB = 0, Early effect aside); a card's β depends on each device's current"))
+    note: Optional[str] = Field(default=None, description="the same in words (card devices' β loading term)")
 
 
 class Deciding(_Out):

@@ -33,7 +33,7 @@ from __future__ import annotations
 import functools
 import math
 from dataclasses import dataclass, fields, replace
-from typing import Mapping
+from typing import Any, Mapping
 
 import numpy as np
 
@@ -113,6 +113,12 @@ class GummelPoon:
         """No Early effect (VAF, VAR → ∞): the gain's β part alone."""
         return replace(self, inv_vaf=np.zeros_like(self.inv_vaf), inv_var=np.zeros_like(self.inv_var))
 
+    @functools.cached_property
+    def scratch(self) -> dict[str, Any]:
+        """Working space of the mirror solvers for this one parameter set (a group's devices
+        within one solve): rows already taken, the last solution as the next start."""
+        return {}
+
     @property
     def has_resistance(self) -> bool:
         return self.flags["res"]
@@ -129,6 +135,7 @@ class GummelPoon:
         return {"ise": bool(np.any(self.ise)), "isc": bool(np.any(self.isc)),
                 "q2": bool(np.any(self.inv_ikf) or np.any(self.inv_ikr)), "rb": rb,
                 "irb": bool(np.any(self.irb > 0)), "gmin": bool(np.any(self.gmin)),
+                "nkf_half": bool(np.all(self.nkf == 0.5)),
                 "res": rb or bool(np.any(self.re) or np.any(self.rc))}
 
 
@@ -231,15 +238,19 @@ def _diode_g(v: Array, sat: Array, n_vt: Array) -> tuple[Array, Array]:
     """The diode current and its conductance d/dv (ngspice ``bjtload.c``: below −3·nV_T,
     I = −sat·(1 + a), a = (3nV_T/(v·e))³, g = 3·sat·a/v)."""
     x = v / n_vt
-    with np.errstate(over="ignore"):
-        em1 = np.expm1(x)
-    if np.all(x >= -3.0):  # the usual case: no junction reverse-biased beyond 3·nV_T
+    rev = x < -3.0
+    if not rev.any():  # the usual case: no junction reverse-biased beyond 3·nV_T
+        with np.errstate(over="ignore"):
+            em1 = np.expm1(x)
         return sat * em1, sat * (em1 + 1.0) / n_vt
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-        a = (3.0 / (x * math.e)) ** 3
-        fwd = x >= -3.0
-        return (np.where(fwd, sat * em1, -sat * (1.0 + a)),
-                np.where(fwd, sat * (em1 + 1.0) / n_vt, 3.0 * sat * a / v))
+        t = 3.0 / (math.e * x)
+        a = t * t * t  # not t ** 3: pow of a negative base is ~100× slower in numpy
+        i_rev, g_rev = -sat * (1.0 + a), 3.0 * sat * a / v
+        if rev.all():  # an output's base-collector junction: reverse-biased everywhere
+            return i_rev, g_rev
+        em1 = np.expm1(x)
+        return np.where(rev, i_rev, sat * em1), np.where(rev, g_rev, sat * (em1 + 1.0) / n_vt)
 
 
 def _junctions(vbe: Array, vbc: Array, p: GummelPoon) -> tuple[Array, Array, Array, Array]:
@@ -272,7 +283,8 @@ def _junctions_g(vbe: Array, vbc: Array, p: GummelPoon) -> tuple[Array, ...]:
         q2 = p.inv_ikf * cbe + p.inv_ikr * cbc
         arg = np.maximum(0.0, 1.0 + 4.0 * q2)
         with np.errstate(divide="ignore", invalid="ignore"):
-            sq = np.where(arg != 0, arg ** p.nkf, 1.0)
+            power = np.sqrt(arg) if p.flags["nkf_half"] else arg ** p.nkf  # NKF = ½ (the default): a square root
+            sq = np.where(arg != 0, power, 1.0)
             dsq = np.where(arg != 0, 4.0 * p.nkf * sq / arg, 0.0)  # d sq / d q_2
         half = (1.0 + sq) / 2.0
         qb = q1 * half
@@ -471,3 +483,27 @@ def solve_increasing(residual, x0: Array, step0: float = 0.02, tol: float = 1e-1
         if np.all(done | (f == 0)):
             break
     return x
+
+
+def beta_at(ic: Array, p: GummelPoon) -> Array:
+    """DC current gain I_C/I_B of a unit device carrying collector current ``ic``, with
+    V_B'C' = 0 and the Early effect aside (VAF, VAR → ∞: the β part of a mirror's gain,
+    as the "β loading" term takes it).  With ISE/NE the gain falls at low current, with
+    IKF at high current: β is a function of I_C, not the constant BF.
+
+    >>> p = from_card({"is": 1e-16, "bf": 100.0, "ikf": 1e-3}, 300.15)
+    >>> round(float(beta_at(np.array(1e-3), p)), 6)  # at I_C = IKF: q_2 = q_b, q_b = 2, β = BF/q_b
+    50.0
+    """
+    q = p.ideal_outputs()
+    ic = np.asarray(ic, dtype=float)
+    zero = np.zeros_like(ic)
+
+    def residual(v: Array) -> tuple[Array, Array]:
+        got = _junctions_g(v, zero, q)
+        return got[0] - ic, got[4]
+
+    start = q.nf * q.vt * np.log1p(np.maximum(ic, 1e-30) / q.is_be)
+    vbe = solve_increasing(residual, start, slope=True)
+    c, b = intrinsic(vbe, zero, q)
+    return c / b
