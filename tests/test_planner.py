@@ -285,3 +285,24 @@ def test_pareto_set_is_several_distinct_non_dominated_passing_plans(planned_30):
     for f, alt in alts:
         checked = biastree.check(biastree.loads(alt.text))
         assert bool(checked.passed.all()) and float(checked.margin.min()) == f.worst_margin
+
+
+@pytest.mark.parametrize("source", ["trial", "random"])
+def test_written_ratios_and_sizes_stay_within_the_limits(source):
+    """Every ratio of a planned plan lies within [1/max_ratio, max_ratio] and every device within
+    max_units (the block list's own limits; a rebalance once wrote ratio 18 under max_ratio 16)."""
+    if source == "trial":
+        blocks = load_blocks(ROOT / "tests" / "blocks" / "trial_max_ratio.yaml")
+    else:
+        data = random_blocks(60, 5)
+        data["limits"] = {"max_ratio": 8}
+        blocks = BlockList.model_validate(data)
+    out = plan_blocks(blocks)
+    assert out.ok, [i.text() for i in out.infeasible]
+    plan = biastree.loads(out.text).plan
+    lim = blocks.limits
+    for name, mirror in plan.mirrors.items():
+        assert mirror.input_size <= lim.max_units, name
+        for b in mirror.branches:
+            assert 1 / lim.max_ratio - 1e-12 <= b.ratio <= lim.max_ratio + 1e-12, (name, b.to, b.ratio)
+            assert b.ratio * mirror.input_size <= lim.max_units + 1e-9, (name, b.to)

@@ -289,7 +289,7 @@ def rebalance(t: Trial, tree: Tree, r: Audit, mirrors: set[str], limits: Limits)
                 allowed.append(max(0.3 * below[int(tree.b_child[b])], 1e-9))
         size = spec.get("input_size", 1.0)
         start = int(size) if float(size).is_integer() else 1
-        got = realise(ratios, allowed, limits.max_units, start=start)
+        got = realise(ratios, allowed, limits.max_units, start=start, max_ratio=limits.max_ratio)
         if got is None:
             continue
         n_in, units = got
@@ -506,7 +506,8 @@ def _split(state: State, mirror: str, parent: str, movable: list[str], topo: str
         currents = [data["loads"][n]["current"] for n in group]
         u_p = max(1, min(state.limits.max_units, round(min(currents) / per / i_p * n_p)))
         i_new = i_p * u_p / n_p
-        got = realise([c / i_new for c in currents], [2e-3] * len(group), state.limits.max_units)
+        got = realise([c / i_new for c in currents], [2e-3] * len(group), state.limits.max_units,
+                      max_ratio=state.limits.max_ratio)
         n_new, u_new = got if got is not None else (1, [max(1, round(c / i_new)) for c in currents])
         new = f"{mirror}_{group[0]}" + ("" if topo == "simple" else f"_{topo}")
         while new in data["mirrors"] or new in data["loads"] or new in taken:

@@ -11,12 +11,17 @@ from __future__ import annotations
 import math
 
 
-def realise(ratios: list[float], allowed: list[float], max_units: int, start: int = 1) -> tuple[int, list[int]] | None:
-    """(n_in, [u_k]) with |u_k/n_in / ratio_k − 1| ≤ allowed_k and every size ≤ max_units.
+def realise(ratios: list[float], allowed: list[float], max_units: int, start: int = 1,
+            max_ratio: float = math.inf) -> tuple[int, list[int]] | None:
+    """(n_in, [u_k]) with |u_k/n_in / ratio_k − 1| ≤ allowed_k, every size ≤ max_units and
+    every ratio u_k/n_in within [1/max_ratio, max_ratio].
 
     Returns the best found (least worst relative rounding over allowance) when
     no ``n_in`` meets every allowance, or None when even one unit per output
-    does not fit.
+    does not fit, or no whole ratios within max_ratio do.
+
+    >>> realise([17.0], [0.01], 64, max_ratio=16) is None
+    True
 
     >>> realise([2.0, 0.5], [0.01, 0.01], 64)
     (2, [4, 1])
@@ -28,6 +33,8 @@ def realise(ratios: list[float], allowed: list[float], max_units: int, start: in
         units = [max(1, round(r * n_in)) for r in ratios]
         if max(units) > max_units:
             break
+        if any(not 1.0 / max_ratio - 1e-12 <= u / n_in <= max_ratio + 1e-12 for u in units):
+            continue
         worst = max(abs(u / n_in / r - 1.0) / a for u, r, a in zip(units, ratios, allowed))
         if worst <= 1.0:
             return n_in, units

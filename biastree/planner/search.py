@@ -590,11 +590,12 @@ class Search:
                     allowed.append(0.01)
             size = spec.get("input_size", 1.0)
             if self.rules.whole:
-                got = realise(ratios, allowed, self.rules.max_units, start=int(size) if float(size).is_integer() else 1)
+                got = realise(ratios, allowed, self.rules.max_units, start=int(size) if float(size).is_integer() else 1,
+                              max_ratio=self.rules.max_ratio)
                 if got is None or not _fits(ratios, allowed, *got):
                     # the input device as it is leaves no room (an output would pass max_units) or
                     # rounds too coarsely: a smaller one may fit every output
-                    low = realise(ratios, allowed, self.rules.max_units)
+                    low = realise(ratios, allowed, self.rules.max_units, max_ratio=self.rules.max_ratio)
                     if low is not None and (got is None or _fits(ratios, allowed, *low)):
                         got = low
                 if got is None:
@@ -775,7 +776,7 @@ class Search:
         i_new = self._split_current(current)
         units = max(1, min(self.rules.max_units, round(i_new / p_in * size)))
         # the new mirror's own ratio makes up what the parent's whole units miss
-        got = realise([current / (p_in * units / size)], [2e-3], self.rules.max_units)
+        got = realise([current / (p_in * units / size)], [2e-3], self.rules.max_units, max_ratio=self.rules.max_ratio)
         n_new, u_new = got if got is not None else (1, [1])
         new = f"{mirror}_{load}"
         while new in self.data["mirrors"] or new in self.data["loads"]:
