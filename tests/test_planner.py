@@ -306,3 +306,29 @@ def test_written_ratios_and_sizes_stay_within_the_limits(source):
         for b in mirror.branches:
             assert 1 / lim.max_ratio - 1e-12 <= b.ratio <= lim.max_ratio + 1e-12, (name, b.to, b.ratio)
             assert b.ratio * mirror.input_size <= lim.max_units + 1e-9, (name, b.to)
+
+
+@pytest.mark.parametrize("key", ["die_spread", "failing", "forward"])
+def test_repair_cost_lines_add_up_to_the_total(repairs, key):
+    """Each change's cost plus the upstream line (mirrors feeding the changed ones) is the whole
+    plan's after − before, as printed (power to the printed 3 digits, unit devices exactly)."""
+    import re
+
+    prefix = {"": 1.0, "m": 1e-3, "µ": 1e-6, "n": 1e-9, "p": 1e-12}
+
+    def watts(text: str) -> float:
+        number, unit = re.fullmatch(r"([\d.]+(?:e[+-]?\d+)?) ?([mµnp]?)W", text).groups()
+        return float(number) * prefix[unit]
+
+    result, _ = repairs[key]
+    power = {"cost": 0.0, "upstream": 0.0, "total cost": 0.0}
+    units = dict.fromkeys(power, 0.0)
+    for line in result.output.splitlines():
+        m = re.match(r"\s*(cost|upstream|total cost):\s+([+−])(\S+ ?[pnµm]?W), ([+-][\d.e+-]+) unit devices", line)
+        if m:
+            sign = -1.0 if m.group(2) == "−" else 1.0
+            power[m.group(1)] += sign * watts(m.group(3))
+            units[m.group(1)] += float(m.group(4))
+    assert power["total cost"] or units["total cost"]
+    assert abs(power["cost"] + power["upstream"] - power["total cost"]) <= 2e-3 * abs(power["total cost"]) + 1e-12
+    assert abs(units["cost"] + units["upstream"] - units["total cost"]) < 1e-3 * max(1.0, abs(units["total cost"]))

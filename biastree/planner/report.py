@@ -66,6 +66,14 @@ def repair_text(fixed: Any) -> str:
         dp = fixed.after.overhead_power - fixed.before.overhead_power
         da = fixed.after.device_units - fixed.before.device_units
         dg = fixed.after.mos_gate_area - fixed.before.mos_gate_area
+        # a change prices the mirrors it touches; the mirrors (and reference) feeding them carry the
+        # changed input currents: shown on a line of their own so that the lines add up to the total
+        rp = dp - sum(c.power for c in fixed.changes)
+        ra = da - sum(c.area for c in fixed.changes)
+        rg = dg - sum(c.gate_area for c in fixed.changes)
+        if abs(rp) > 1e-12 * max(1.0, abs(dp)) + 1e-15 or abs(ra) > 1e-9 or abs(rg) > 1e-21:
+            lines.append(f"upstream:   {_cost_text(rp, ra, rg)} (the mirrors feeding the changed ones: "
+                         "their input currents changed)")
         lines.append(f"total cost: {_cost_text(dp, da, dg)} (the whole plan, after − before)")
     else:
         lines.append("no change found")
