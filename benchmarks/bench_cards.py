@@ -2,6 +2,7 @@
 
     python benchmarks/bench_cards.py            # 100, 1k and 10k loads
     python benchmarks/bench_cards.py 2000       # one size
+    python benchmarks/bench_cards.py --mixed    # every topology (cascode, Wilson, …), not only simple
 
 Plans are random and invented (biastree.generate); every bipolar device is
 replaced by an inline Gummel–Poon card of the same IS, BF, VAF plus ISE/NE,
@@ -19,11 +20,14 @@ import json
 import time
 
 import biastree
-from biastree.input.generate import random_plan
+from biastree.input.generate import Ranges, random_plan
+from biastree.physics.topologies import TOPOLOGIES
 
 
-def card_plan(loads: int) -> dict:
-    plan = random_plan(loads, seed=7)
+def card_plan(loads: int, mixed: bool = False) -> dict:
+    # mixed: every bipolar topology drawn at random where the mirror allows (else all simple)
+    ranges = Ranges(topologies=tuple(TOPOLOGIES)) if mixed else None
+    plan = random_plan(loads, seed=7, ranges=ranges)
     for name, dev in plan["devices"].items():
         if dev["kind"] in ("npn", "pnp"):
             vaf = f" vaf={dev['early']}" if dev.get("early") else ""
@@ -37,9 +41,10 @@ def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("sizes", nargs="*", type=int, default=[100, 1000, 10000])
     parser.add_argument("--repeat", type=int, default=1)
+    parser.add_argument("--mixed", action="store_true", help="every topology, not only simple mirrors")
     args = parser.parse_args()
     for n in args.sizes:
-        text = json.dumps(card_plan(n))
+        text = json.dumps(card_plan(n, args.mixed))
         best = {"check": float("inf"), "hints": float("inf"), "check_cpu": float("inf"), "hints_cpu": float("inf")}
         for _ in range(args.repeat):
             start, cpu = time.perf_counter(), time.process_time()

@@ -45,7 +45,15 @@ def _segment_sum(g: Any, per_branch: Array) -> Array:
     k = g.i_in.shape[0]
     if x.ndim == 1:
         return np.bincount(g.row, x, k)
-    return np.stack([np.bincount(g.row, x[:, j], k) for j in range(x.shape[1])], axis=1)
+    return _segment_sum_flat(g.row, x, k)
+
+
+def _segment_sum_flat(row: Array, x: Array, k: int) -> Array:
+    """Σ of the rows of a (nb, n) array into k segments, one ``np.bincount`` per column."""
+    out = np.empty((k, x.shape[1]))
+    for j in range(x.shape[1]):
+        out[:, j] = np.bincount(row, x[:, j], k)
+    return out
 
 
 def diode_current(v: Array, p: gp.GummelPoon) -> Array:
@@ -144,11 +152,7 @@ def _simple_joint(g: Any, p: gp.GummelPoon, out_p: gp.GummelPoon, units: Array,
         if not np.all(np.isfinite(dv)):
             break
         largest = max(float(np.max(np.abs(dv), initial=0.0)), *(float(np.max(np.abs(s_), initial=0.0)) for s_ in steps))
-        # Newton converges quadratically here: after a step s the error is about K·s² with
-        # K = f''/2f' ≈ 1/(2·n·V_T) ≈ 20 /V for these exponentials, so a step below 1e-8 V that
-        # is also well below the one before (the quadratic regime) leaves an error of order
-        # 1e-15 V: no further evaluation is needed to confirm it.
-        if largest <= 1e-14 or (largest <= 1e-8 and largest <= 1e-3 * previous):
+        if _converged(largest, previous, 1e-14):
             p.scratch["simple"] = (r, v, x0, y0, xk, yk)
             ic, _ = gp.intrinsic(xk, yk, out_p)
             return v, units * ic
@@ -164,8 +168,8 @@ def _simple_nested(g: Any, p: gp.GummelPoon, out_p: gp.GummelPoon, units: Array)
         vb = v[r]
         _, ib, (_, _, gbe, gbc) = gp.terminal_g(vb, vb - g.distance, out_p)
         i_d, g_d = _diode_g(v, p)
-        return (a0 * i_d + g.segment_sum(units * ib) - g.i_in,
-                a0 * g_d + g.segment_sum(units * (gbe + gbc)))
+        return (a0 * i_d + _segment_sum(g, units * ib) - g.i_in,
+                a0 * g_d + _segment_sum(g, units * (gbe + gbc)))
 
     return gp.solve_increasing(resid, gp.vbe_guess(g.i_in / a0, p), slope=True)
 
@@ -180,6 +184,7 @@ def newton_system(residual, x0: Array, tol: float = 1e-13, iters: int = 100,  # 
     x = np.array(x0, dtype=float)
     n = x.shape[-1]
     h = 1e-8
+    previous = np.inf
     for _ in range(iters):
         if jacobian:
             f, jac = residual(x)
@@ -193,9 +198,22 @@ def newton_system(residual, x0: Array, tol: float = 1e-13, iters: int = 100,  # 
         step = np.linalg.solve(jac, f[..., None])[..., 0]
         step = np.clip(step, -0.1, 0.1)
         x = x - step
-        if np.all(np.abs(step) <= tol) and (settled is None or settled()):
+        largest = float(np.max(np.abs(step), initial=0.0))
+        inner = settled is None or settled()  # asked every iteration: it tracks its own steps
+        if _converged(largest, previous, tol) and inner:
             break
+        previous = largest
     return x
+
+
+def _converged(step: float, previous: float, tol: float) -> bool:
+    """Whether a Newton iteration whose last step was ``step`` (the one before: ``previous``)
+    has converged.  Below ``tol``; or small (1e-8 V) and far below the step before, the
+    quadratic regime: the error left is then about K·step² with K = f''/2f' ≈ 1/(2·n·V_T)
+    ≈ 20 /V for these exponentials (with a finite-difference Jacobian, the error of its
+    slope, ~1e-6, times the step), of order 1e-15 V, so no further evaluation is needed
+    to confirm it."""
+    return step <= tol or (step <= 1e-8 and step <= 1e-3 * previous)
 
 
 def _current(base: Array, collector: Array, emitter: Array, p: gp.GummelPoon) -> tuple[Array, Array]:
@@ -215,10 +233,11 @@ class _Internal:
     def __init__(self) -> None:
         self.state: dict[str, tuple[Array, Array, Array, Array, gp.Linear]] = {}
         self.moved = np.inf  # largest internal step of the last evaluations
+        self.before = np.inf  # the same, one Newton iteration earlier
 
     def settled(self) -> bool:
-        done = self.moved <= 1e-13
-        self.moved = 0.0
+        done = _converged(self.moved, self.before, 1e-13)
+        self.moved, self.before = 0.0, self.moved
         return done
 
     def terminal(self, key: str, vbe: Array, vbc: Array, p: gp.GummelPoon) -> tuple[Array, Array, tuple[Array, ...]]:
@@ -238,6 +257,20 @@ class _Internal:
         self.state[key] = (x, y, vbe, vbc, lin)
         ic, ib = lin.currents_at(0.0, 0.0)
         return ic, ib, lin.g
+
+
+def _warm_start(p: gp.GummelPoon, key: str, g: Any, inner: _Internal) -> Array | None:
+    """The last solution of the same mirrors (same parameter set and rows: the next sweep,
+    the output-resistance steps), with its devices' internal nodes, as the start; None if none."""
+    last = p.scratch.get(key)
+    if last is None or last[0] is not g.row or last[1].shape[:-1] != g.i_in.shape or last[2] != g.distance.shape:
+        return None
+    inner.state = dict(last[3])
+    return last[1].copy()
+
+
+def _keep(p: gp.GummelPoon, key: str, g: Any, x: Array, inner: _Internal) -> None:
+    p.scratch[key] = (g.row, x, g.distance.shape, dict(inner.state))
 
 
 def _device(x: Array, base: Any, collector: Any, emitter: Any, p: gp.GummelPoon,
@@ -267,9 +300,9 @@ def _device(x: Array, base: Any, collector: Any, emitter: Any, p: gp.GummelPoon,
 
 def _sum_branches(g: Any, per_branch: Array) -> Array:
     """Σ over each mirror's branches (count copies) of an array with a trailing gradient axis."""
-    out = np.zeros((g.i_in.shape[0],) + per_branch.shape[1:])
-    np.add.at(out, g.row, per_branch * g.count[..., None])
-    return out
+    x = per_branch * g.count[..., None]
+    flat = _segment_sum_flat(g.row, x.reshape(x.shape[0], -1), g.i_in.shape[0])
+    return flat.reshape((g.i_in.shape[0],) + x.shape[1:])
 
 
 def beta_helper(g: Any, p: gp.GummelPoon) -> Solution:
@@ -295,14 +328,18 @@ def beta_helper(g: Any, p: gp.GummelPoon) -> Solution:
         ich, ibh, dich, dibh = _device(x, N, top, B, p, internal=(inner, "helper"))
         _, ibk, _, dibk = _device(x, B, g.distance, 0.0 * g.distance, out_p, rows=r, internal=(inner, "out"))
         f_n = a0 * ic1 + hs * ibh - g.i_in
-        f_b = hs * (ich + ibh) - a0 * ib1 - g.segment_sum(units * ibk) - bleed
+        f_b = hs * (ich + ibh) - a0 * ib1 - _segment_sum(g, units * ibk) - bleed
         j_n = a0[..., None] * dic1 + hs[..., None] * dibh
         j_b = hs[..., None] * (dich + dibh) - a0[..., None] * dib1 - _sum_branches(g, units[..., None] * dibk)
         return np.stack([f_n, f_b], axis=-1), np.stack([j_n, j_b], axis=-2)
 
-    vb0 = gp.vbe_guess(g.i_in / a0, p)
-    vn0 = vb0 + gp.vbe_guess(np.maximum(g.i_in / a0 * 0.05 + bleed / hs, 1e-12), p)
-    x = newton_system(resid, np.stack([vb0, vn0], axis=-1), jacobian=True, settled=inner.settled)
+    start = _warm_start(p, "beta_helper", g, inner)
+    if start is None:
+        vb0 = gp.vbe_guess(g.i_in / a0, p)
+        vn0 = vb0 + gp.vbe_guess(np.maximum(g.i_in / a0 * 0.05 + bleed / hs, 1e-12), p)
+        start = np.stack([vb0, vn0], axis=-1)
+    x = newton_system(resid, start, jacobian=True, settled=inner.settled)
+    _keep(p, "beta_helper", g, x, inner)
     vb, vn = x[..., 0], x[..., 1]
     ic, _ = _current(vb[r], g.distance, 0.0 * g.distance, out_p)
     ich, _ = _current(vn, top, vb, p)
@@ -346,7 +383,11 @@ def wilson(g: Any, p: gp.GummelPoon, four: bool = False) -> Solution:
     vb0 = gp.vbe_guess(g.i_in / a0, p) - p.nf * p.vt * np.log(np.maximum(m, 1e-9))
     vn0 = vb0 + gp.vbe_guess(g.i_in / a0, p)
     start = [vb0, vn0] + ([vn0 - gp.vbe_guess(g.i_in / a0, p)] if four else [])
-    x = newton_system(resid, np.stack(start, axis=-1), jacobian=True, settled=inner.settled)
+    key = "wilson4" if four else "wilson"
+    warm = _warm_start(p, key, g, inner)
+    x = newton_system(resid, np.stack(start, axis=-1) if warm is None else warm, jacobian=True,
+                      settled=inner.settled)
+    _keep(p, key, g, x, inner)
     vb, vn = x[..., 0], x[..., 1]
     ic3, _ = _current(vn, d, vb, p)
     current = m * a0 * ic3
@@ -398,8 +439,8 @@ def cascode(g: Any, p: gp.GummelPoon) -> Solution:
         ic1, ib1, dic1, dib1 = _device(x, B, B, zero, p)
         ic3, ib3, dic3, dib3 = _device(x, N, N, B, p)
         a = a0[..., None]
-        f_b = a0 * (ic3 + ib3) - a0 * (ic1 + ib1) - g.segment_sum(units * ib2)
-        f_n = a0 * (ic3 + ib3) + g.segment_sum(units * ib4) - g.i_in
+        f_b = a0 * (ic3 + ib3) - a0 * (ic1 + ib1) - _segment_sum(g, units * ib2)
+        f_n = a0 * (ic3 + ib3) + _segment_sum(g, units * ib4) - g.i_in
         j_b = a * (dic3 + dib3) - a * (dic1 + dib1) - _sum_branches(g, units[..., None] * tot(dib2))
         j_n = a * (dic3 + dib3) + _sum_branches(g, units[..., None] * tot(dib4))
         return np.stack([f_b, f_n], axis=-1), np.stack([j_b, j_n], axis=-2)
@@ -446,7 +487,7 @@ def degenerated(g: Any, p: gp.GummelPoon) -> Solution:
 
     def resid(x: Array) -> Array:
         ic1, ib1, _, ibk = currents(x[..., 0])
-        return (a0 * (ic1 + ib1) + g.segment_sum(units * ibk) - g.i_in)[..., None]
+        return (a0 * (ic1 + ib1) + _segment_sum(g, units * ibk) - g.i_in)[..., None]
 
     start = gp.vbe_guess(g.i_in / a0, p) + r_unit * g.i_in / a0
     vn = newton_system(resid, start[..., None])[..., 0]
