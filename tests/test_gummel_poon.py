@@ -279,3 +279,13 @@ def test_beta_loading_term_of_a_card_gives_beta_at_the_device_current(ngspice) -
     sim = run_ngspice(deck)
     simulated = float(sim["i(vcc)"][0]) / float(sim["i(vbb)"][0])
     assert simulated == pytest.approx(beta, rel=1e-6), (simulated, beta)
+
+
+def test_beta_with_a_card_says_the_card_bf_is_used(write_plan) -> None:  # type: ignore[no-untyped-def]
+    # new-user review: "unknown key (did you mean 'beta'?)" for the key 'beta' itself
+    plan = _plan({"kind": "npn", "model": "qc", "beta": 80, "card": ".model qc npn (is=1e-16 bf=100)"},
+                 "simple", "10uA")
+    result = CliRunner().invoke(app, ["check", str(write_plan(json.dumps(plan), "e.json"))])
+    assert result.exit_code == 2 and "Traceback" not in result.output
+    assert "beta cannot be given with a card: the card's BF is used" in result.output, result.output
+    assert "did you mean" not in result.output
