@@ -178,6 +178,13 @@ def test_unknown_parameter_reported_irrelevant_silent(write_plan) -> None:  # ty
     (".model qc npn (is=1e-16 rco=100)", r"inline card:1: model qc: 'rco' \(quasi-saturation\) is not supported"),
     (".model qc pnp (is=1e-16)", r"inline card:1: model qc is a pnp card, the device is a npn"),
     (".model other npn (is=1e-16)", r"no .model or .subckt named 'qc'"),
+    # ngspice manual, BJT parameters: BF, IS, NF positive; VAF/IKF 0 = infinite, so only < 0 is wrong
+    (".model qc npn (is=1e-17 bf=-100 vaf=50)", r"inline card:1: model qc: parameter BF = -100 must be > 0"),
+    (".model qc npn (is=-1e-17)", r"parameter IS = -1e-17 must be > 0"),
+    (".model qc npn (is=1e-17 nf=0)", r"parameter NF = 0 must be > 0"),
+    (".model qc npn (is=1e-17 vaf=-50)", r"parameter VAF = -50 must be ≥ 0 \(0 means infinite\)"),
+    (".model qc npn (is=1e-17 ikf=-1m)", r"parameter IKF = -0.001 must be ≥ 0"),
+    (".model qc npn (is=1e-17 re=-100)", r"parameter RE = -100 must be ≥ 0"),
 ])
 def test_broken_cards_exit_2_with_place(write_plan, card: str, message: str) -> None:  # type: ignore[no-untyped-def]
     plan = _plan({"kind": "npn", "model": "qc", "card": card}, "simple", "10uA")

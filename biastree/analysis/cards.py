@@ -156,6 +156,11 @@ def _values(dev: CardModel, corner: str) -> _Evaluated:
         target = gp.ALIASES.get(key, key)
         if target in gp.DC_DEFAULTS or target in gp.TEMP_PARAMS:
             values[target] = card.value(key)
+    from biastree.input.cards import bipolar_value_problem
+
+    problem = bipolar_value_problem(values)
+    if problem:
+        raise SpiceError(card.where, f"model {card.name}: {problem}")
     if found.multiplier != 1.0:
         values["_m"] = found.multiplier
     note = None
