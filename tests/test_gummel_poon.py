@@ -185,6 +185,7 @@ def test_unknown_parameter_reported_irrelevant_silent(write_plan) -> None:  # ty
     (".model qc npn (is=1e-17 vaf=-50)", r"parameter VAF = -50 must be ≥ 0 \(0 means infinite\)"),
     (".model qc npn (is=1e-17 ikf=-1m)", r"parameter IKF = -0.001 must be ≥ 0"),
     (".model qc npn (is=1e-17 re=-100)", r"parameter RE = -100 must be ≥ 0"),
+    (".model qc npn (is=1e-17 level=4)", r"level=4: bipolar cards are read at level 1 \(Gummel–Poon\) only"),
 ])
 def test_broken_cards_exit_2_with_place(write_plan, card: str, message: str) -> None:  # type: ignore[no-untyped-def]
     plan = _plan({"kind": "npn", "model": "qc", "card": card}, "simple", "10uA")

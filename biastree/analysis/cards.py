@@ -143,7 +143,7 @@ def _values(dev: CardModel, corner: str) -> _Evaluated:
     level = card.params.get("level")
     if level is not None and float(card.value("level")) != 1.0:
         raise SpiceError(card.where, f"model {card.name} has level={card.params['level']}: "
-                                     "only Gummel–Poon (level 1) is solved exactly; use a MOS-style table instead")
+                                     "bipolar cards are read at level 1 (Gummel–Poon) only")
     values: dict[str, float] = {}
     unknown: list[str] = []
     for key in card.params:
