@@ -178,6 +178,14 @@ def test_unknown_parameter_reported_irrelevant_silent(write_plan) -> None:  # ty
     (".model qc npn (is=1e-16 rco=100)", r"inline card:1: model qc: 'rco' \(quasi-saturation\) is not supported"),
     (".model qc pnp (is=1e-16)", r"inline card:1: model qc is a pnp card, the device is a npn"),
     (".model other npn (is=1e-16)", r"no .model or .subckt named 'qc'"),
+    # ngspice manual, BJT parameters: BF, IS, NF positive; VAF/IKF 0 = infinite, so only < 0 is wrong
+    (".model qc npn (is=1e-17 bf=-100 vaf=50)", r"inline card:1: model qc: parameter BF = -100 must be > 0"),
+    (".model qc npn (is=-1e-17)", r"parameter IS = -1e-17 must be > 0"),
+    (".model qc npn (is=1e-17 nf=0)", r"parameter NF = 0 must be > 0"),
+    (".model qc npn (is=1e-17 vaf=-50)", r"parameter VAF = -50 must be ≥ 0 \(0 means infinite\)"),
+    (".model qc npn (is=1e-17 ikf=-1m)", r"parameter IKF = -0.001 must be ≥ 0"),
+    (".model qc npn (is=1e-17 re=-100)", r"parameter RE = -100 must be ≥ 0"),
+    (".model qc npn (is=1e-17 level=4)", r"level=4: bipolar cards are read at level 1 \(Gummel–Poon\) only"),
 ])
 def test_broken_cards_exit_2_with_place(write_plan, card: str, message: str) -> None:  # type: ignore[no-untyped-def]
     plan = _plan({"kind": "npn", "model": "qc", "card": card}, "simple", "10uA")
@@ -279,3 +287,13 @@ def test_beta_loading_term_of_a_card_gives_beta_at_the_device_current(ngspice) -
     sim = run_ngspice(deck)
     simulated = float(sim["i(vcc)"][0]) / float(sim["i(vbb)"][0])
     assert simulated == pytest.approx(beta, rel=1e-6), (simulated, beta)
+
+
+def test_beta_with_a_card_says_the_card_bf_is_used(write_plan) -> None:  # type: ignore[no-untyped-def]
+    # new-user review: "unknown key (did you mean 'beta'?)" for the key 'beta' itself
+    plan = _plan({"kind": "npn", "model": "qc", "beta": 80, "card": ".model qc npn (is=1e-16 bf=100)"},
+                 "simple", "10uA")
+    result = CliRunner().invoke(app, ["check", str(write_plan(json.dumps(plan), "e.json"))])
+    assert result.exit_code == 2 and "Traceback" not in result.output
+    assert "beta cannot be given with a card: the card's BF is used" in result.output, result.output
+    assert "did you mean" not in result.output

@@ -143,7 +143,7 @@ def _values(dev: CardModel, corner: str) -> _Evaluated:
     level = card.params.get("level")
     if level is not None and float(card.value("level")) != 1.0:
         raise SpiceError(card.where, f"model {card.name} has level={card.params['level']}: "
-                                     "only Gummel–Poon (level 1) is solved exactly; use a MOS-style table instead")
+                                     "bipolar cards are read at level 1 (Gummel–Poon) only")
     values: dict[str, float] = {}
     unknown: list[str] = []
     for key in card.params:
@@ -156,6 +156,11 @@ def _values(dev: CardModel, corner: str) -> _Evaluated:
         target = gp.ALIASES.get(key, key)
         if target in gp.DC_DEFAULTS or target in gp.TEMP_PARAMS:
             values[target] = card.value(key)
+    from biastree.input.cards import bipolar_value_problem
+
+    problem = bipolar_value_problem(values)
+    if problem:
+        raise SpiceError(card.where, f"model {card.name}: {problem}")
     if found.multiplier != 1.0:
         values["_m"] = found.multiplier
     note = None

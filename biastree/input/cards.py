@@ -157,3 +157,22 @@ class CardModel(BaseModel):
 def is_card(data: object) -> bool:
     """A device mapping that points at a card (has ``model``) rather than simple parameters."""
     return isinstance(data, dict) and "model" in data
+
+
+# Plausibility of a bipolar card's DC parameters (ngspice manual, BJT model parameters:
+# IS, BF, NF, NR, BR are positive; VAF, VAR, IKF, IKR: 0 means infinite (not used), so ≥ 0;
+# resistances and leakage saturation currents ≥ 0).
+_POSITIVE = ("is", "bf", "nf", "nr", "br", "ne", "nc")
+_NOT_NEGATIVE = ("vaf", "var", "ikf", "ikr", "rb", "re", "rc", "rbm", "ise", "isc", "irb")
+
+
+def bipolar_value_problem(values: dict[str, float]) -> str | None:
+    """'parameter BF = -100 must be > 0' for the first implausible value, else None."""
+    for key in _POSITIVE:
+        if key in values and not values[key] > 0:
+            return f"parameter {key.upper()} = {values[key]:g} must be > 0"
+    for key in _NOT_NEGATIVE:
+        if key in values and not values[key] >= 0:
+            zero = " (0 means infinite)" if key in ("vaf", "var", "ikf", "ikr") else ""
+            return f"parameter {key.upper()} = {values[key]:g} must be ≥ 0{zero}"
+    return None

@@ -461,6 +461,11 @@ def _describe(err: dict[str, Any], data: Any, model: Any = Plan) -> tuple[tuple[
                 other = _device_fields("nmos" if kind_name in ("npn", "pnp") else "npn") - allowed
                 if key in other:
                     return loc, f"'{key}' is a parameter of {'MOS' if kind_name in ('npn', 'pnp') else 'bipolar'} devices, not of a {kind_name}"
+        if (len(parent) == 2 and parent[0] == "devices" and key in ("beta", "va")
+                and isinstance(data.get("devices", {}).get(parent[1]), dict)
+                and "card" in data["devices"][parent[1]]):
+            card_name = {"beta": "BF", "va": "VAF"}[key]
+            return loc, f"{key} cannot be given with a card: the card's {card_name} is used"
         message = "unknown key"
         if allowed:
             close = difflib.get_close_matches(str(key), sorted(allowed), n=1, cutoff=0.6)
