@@ -20,7 +20,7 @@ from functools import partial
 
 import numpy as np
 
-from biastree.analysis.audit import Audit, audit
+from biastree.analysis.audit import Audit, audit, path_largest
 from biastree.analysis.corners import ConditionResult
 from biastree.analysis.pipeline import check_tree
 from biastree.analysis.solve import DEEP_TREE, solve
@@ -338,20 +338,7 @@ def _largest_per_column(result: Audit, op) -> tuple[np.ndarray, np.ndarray, np.n
     values = np.where(allowed[:, tree.b_parent][:, :, None], values, 0.0)
     which = np.argmax(np.abs(values), axis=0)  # the first of equal largest
     value = np.take_along_axis(values, which[None], axis=0)[0]
-    n_m = len(tree.mirrors)
-    best_v, best_k, best_m = np.zeros((n_m, n_c)), np.zeros((n_m, n_c), dtype=np.int64), np.full((n_m, n_c), -1)
-    for gen in tree.generations[1:]:
-        b = tree.m_in_branch[gen]
-        p = tree.b_parent[b]
-        take = np.abs(value[b]) > np.abs(best_v[p])
-        best_v[gen] = np.where(take, value[b], best_v[p])
-        best_k[gen] = np.where(take, which[b], best_k[p])
-        best_m[gen] = np.where(take, p[:, None], best_m[p])
-    lb = tree.l_branch
-    p = tree.b_parent[lb]
-    take = np.abs(value[lb]) > np.abs(best_v[p])
-    return (np.where(take, p[:, None], best_m[p]), np.where(take, which[lb], best_k[p]),
-            np.where(take, value[lb], best_v[p]), keys)
+    return (*path_largest(tree, value, which), keys)
 
 
 def _deciding_terms(result: Audit, failing: np.ndarray) -> tuple[np.ndarray, list[str], np.ndarray]:

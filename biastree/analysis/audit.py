@@ -12,7 +12,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from functools import cached_property
-from typing import Any, Callable
+from typing import TYPE_CHECKING, Any, Callable
 
 import numpy as np
 
@@ -20,6 +20,33 @@ from biastree.analysis.solve import CASES, OperatingPoint, solve
 from biastree.physics.devices import Array
 from biastree.physics.topologies import TERM_LABELS, TOPOLOGIES
 from biastree.units import format_percent, format_si
+
+if TYPE_CHECKING:
+    from biastree.tree.arrays import Tree
+
+
+def path_largest(tree: Tree, value: Array, which: Array, ties_to_load: bool = False) -> tuple[Array, Array, Array]:
+    """Per load and column: (mirror, term index, value) of the largest stage term on its path,
+    given each branch's largest ``value`` (n_b, C) and its term index ``which``; a running best
+    down the tree, one generation at a time (a later stage wins only when strictly larger; the
+    load's own branch also on a tie when ``ties_to_load``)."""
+    n_m, n_c = len(tree.mirrors), value.shape[1]
+    best_v = np.zeros((n_m, n_c))
+    best_k = np.zeros((n_m, n_c), dtype=np.int64)
+    best_m = np.full((n_m, n_c), -1, dtype=np.int64)
+    for gen in tree.generations[1:]:
+        b = tree.m_in_branch[gen]
+        p = tree.b_parent[b]
+        take = np.abs(value[b]) > np.abs(best_v[p])
+        best_v[gen] = np.where(take, value[b], best_v[p])
+        best_k[gen] = np.where(take, which[b], best_k[p])
+        best_m[gen] = np.where(take, p[:, None], best_m[p])
+    lb = tree.l_branch
+    p = tree.b_parent[lb]
+    mag, best = np.abs(value[lb]), np.abs(best_v[p])
+    take = mag >= best if ties_to_load else mag > best
+    return (np.where(take, p[:, None], best_m[p]), np.where(take, which[lb], best_k[p]),
+            np.where(take, value[lb], best_v[p]))
 
 
 @dataclass(frozen=True)
@@ -166,25 +193,8 @@ class Audit:
         stacked = (np.stack([op.b_factors[k] for k in keys]) if op.b_factors else np.ones((1, n, op.b_current.shape[1]))) - 1.0
         which = np.argmax(np.abs(stacked), axis=0)  # (n_b, cases)
         value = np.take_along_axis(stacked, which[None], axis=0)[0]
-        mirror = np.broadcast_to(tree.b_parent[:, None], value.shape)
-        # running best down the tree, per mirror (best over the branches above it)
-        n_m = len(tree.mirrors)
-        best_v = np.zeros((n_m, 3))
-        best_k = np.zeros((n_m, 3), dtype=np.int64)
-        best_m = np.full((n_m, 3), -1, dtype=np.int64)
-        for gen in tree.generations[1:]:
-            b = tree.m_in_branch[gen]
-            p = tree.b_parent[b]
-            take = np.abs(value[b]) > np.abs(best_v[p])
-            best_v[gen] = np.where(take, value[b], best_v[p])
-            best_k[gen] = np.where(take, which[b], best_k[p])
-            best_m[gen] = np.where(take, mirror[b], best_m[p])
+        m, k, v = path_largest(tree, value, which, ties_to_load=True)
         lb = tree.l_branch
-        p = tree.b_parent[lb]
-        take = np.abs(value[lb]) >= np.abs(best_v[p])
-        v = np.where(take, value[lb], best_v[p])
-        k = np.where(take, which[lb], best_k[p])
-        m = np.where(take, mirror[lb], best_m[p])
         rows = np.arange(len(lb))
         c = self.worst_case
         return m[rows, c], k[rows, c], v[rows, c], keys
