@@ -133,13 +133,18 @@ def build(plan: Plan, locate: Locate | None = None, source: str | None = None, c
             is_load = branch.to in l_index
             to_load.append(is_load)
             child.append(l_index[branch.to] if is_load else m_index[branch.to])
-    b_parent = np.array(parents, dtype=np.int64)
-    b_ratio = np.array(ratio, dtype=float)
-    b_count = np.array(count, dtype=float)
-    b_to_load = np.array(to_load, dtype=bool)
-    b_child = np.array(child, dtype=np.int64)
+    kinds = [plan.devices[plan.mirrors[n].device].kind for n in order]
+    return _assemble(plan, tuple(order), loads, tuple(generations), kinds, np.array(parents, dtype=np.int64),
+                     np.array(index, dtype=np.int64), np.array(ratio, dtype=float), np.array(count, dtype=float),
+                     np.array(to_load, dtype=bool), np.array(child, dtype=np.int64))
 
-    n_m = len(order)
+
+def _assemble(plan: Plan, mirrors: tuple[str, ...], loads: tuple[str, ...], generations: tuple[np.ndarray, ...],
+              kinds: list[str], b_parent: np.ndarray, b_index: np.ndarray, b_ratio: np.ndarray, b_count: np.ndarray,
+              b_to_load: np.ndarray, b_child: np.ndarray) -> Tree:
+    """The tree from its branch arrays (mirrors in generation order): the arrays derived from
+    them (each mirror's feeding branch, each load's branch, multiplicities, fan-out)."""
+    n_m = len(mirrors)
     m_in_branch = np.full(n_m, -1, dtype=np.int64)
     mirror_branches = np.flatnonzero(~b_to_load)
     m_in_branch[b_child[mirror_branches]] = mirror_branches
@@ -154,20 +159,18 @@ def build(plan: Plan, locate: Locate | None = None, source: str | None = None, c
     l_mult = m_mult[b_parent[l_branch]] * b_count[l_branch]
     m_fanout = np.zeros(n_m)
     np.add.at(m_fanout, b_parent, b_ratio * b_count)
-
-    kinds = [plan.devices[plan.mirrors[n].device].kind for n in order]
     return Tree(
         plan=plan,
-        mirrors=tuple(order),
+        mirrors=mirrors,
         loads=loads,
-        generations=tuple(generations),
+        generations=generations,
         m_sink=np.array([is_sink(k) for k in kinds], dtype=bool),
         m_bipolar=np.array([k in ("npn", "pnp") for k in kinds], dtype=bool),
         m_in_branch=m_in_branch,
         m_mult=m_mult,
         m_fanout=m_fanout,
         b_parent=b_parent,
-        b_index=np.array(index, dtype=np.int64),
+        b_index=b_index,
         b_ratio=b_ratio,
         b_count=b_count,
         b_to_load=b_to_load,
@@ -194,40 +197,6 @@ def _from_layout(plan: Plan, layout: Layout) -> Tree:
     b_parent = rank[layout.b_parent][perm]
     b_to_load = layout.b_load[perm] >= 0
     b_child = np.where(b_to_load, layout.b_load[perm], rank[np.maximum(layout.b_mirror[perm], 0)])
-    b_ratio = layout.b_ratio[perm]
-    b_count = layout.b_count[perm]
-    n_m = len(order)
-    loads = tuple(plan.loads)
-    m_in_branch = np.full(n_m, -1, dtype=np.int64)
-    mirror_branches = np.flatnonzero(~b_to_load)
-    m_in_branch[b_child[mirror_branches]] = mirror_branches
-    l_branch = np.empty(len(loads), dtype=np.int64)
-    load_branches = np.flatnonzero(b_to_load)
-    l_branch[b_child[load_branches]] = load_branches
-    m_mult = np.ones(n_m)
-    for gen in generations[1:]:
-        b = m_in_branch[gen]
-        m_mult[gen] = m_mult[b_parent[b]] * b_count[b]
-    l_mult = m_mult[b_parent[l_branch]] * b_count[l_branch]
-    m_fanout = np.zeros(n_m)
-    np.add.at(m_fanout, b_parent, b_ratio * b_count)
-    kinds = [layout.kinds[i] for i in order]
-    return Tree(
-        plan=plan,
-        mirrors=tuple(names[i] for i in order),
-        loads=loads,
-        generations=generations,
-        m_sink=np.array([is_sink(k) for k in kinds], dtype=bool),
-        m_bipolar=np.array([k in ("npn", "pnp") for k in kinds], dtype=bool),
-        m_in_branch=m_in_branch,
-        m_mult=m_mult,
-        m_fanout=m_fanout,
-        b_parent=b_parent,
-        b_index=layout.b_index[perm],
-        b_ratio=b_ratio,
-        b_count=b_count,
-        b_to_load=b_to_load,
-        b_child=b_child,
-        l_branch=l_branch,
-        l_mult=l_mult,
-    )
+    return _assemble(plan, tuple(names[i] for i in order), tuple(plan.loads), generations,
+                     [layout.kinds[i] for i in order], b_parent, layout.b_index[perm], layout.b_ratio[perm],
+                     layout.b_count[perm], b_to_load, b_child)
