@@ -283,34 +283,6 @@ def format_si(value: float, unit: str = "", digits: int = 3) -> str:
     return f"{text} {prefix}{unit}" if unit or prefix else text
 
 
-def format_si_array(values: object, unit: str = "", digits: int = 3) -> list[str]:
-    """``format_si`` over an array, with the prefix arithmetic done by numpy.
-
-    >>> format_si_array([4e-5, 0.0, 999.96e-6], "A")
-    ['40 µA', '0 A', '1 mA']
-    """
-    import numpy as np
-
-    x = np.asarray(values, dtype=float)
-    finite = np.isfinite(x) & (x != 0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        group = np.where(finite, np.floor(np.log10(np.where(finite, np.abs(x), 1.0)) / 3), 0).astype(int)
-    group = np.clip(group, -6, 4)
-    scaled = x / 1000.0 ** group
-    out = []
-    for v, g, ok, raw in zip(scaled.tolist(), group.tolist(), finite.tolist(), x.tolist()):
-        if not ok:
-            out.append(format_si(raw, unit, digits))
-            continue
-        text = f"{v:.{digits}g}"
-        if g < 4 and abs(float(text)) >= 1000:
-            g += 1
-            text = f"{raw / 1000.0**g:.{digits}g}"
-        prefix = _DISPLAY_PREFIXES[g + 6]
-        out.append(f"{text} {prefix}{unit}" if unit or prefix else text)
-    return out
-
-
 def format_si_list(values: list[float], unit: str = "", digits: int = 3) -> list[str]:
     """``[format_si(v, unit, digits) for v in values]``, the same arithmetic
     inlined (and repeated values formatted once), for whole table columns.

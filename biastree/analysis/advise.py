@@ -29,7 +29,7 @@ from biastree.analysis.trials import INDEPENDENT as _INDEPENDENT
 from biastree.analysis.trials import outcomes
 from biastree.physics.topologies import TERM_LABELS, TOPOLOGIES
 from biastree.tree.arrays import Tree
-from biastree.units import format_percent, format_si, format_si_array
+from biastree.units import format_percent, format_si, format_si_list
 
 FIRST_TRIALS = 12  # trials always run on small plans (those addressing the most failing loads)
 SMALL_PLAN = 200  # mirrors
@@ -289,7 +289,7 @@ def _motives(result: Audit, failing: np.ndarray) -> _Pairs:
     pct = [format_percent(x) for x in value.tolist()]
     parent = tree.b_parent[tree.l_branch[failing]].tolist()
     short = (result.compliance[failing] < 0).tolist()
-    lacks = format_si_array(-result.compliance[failing], "V")
+    lacks = format_si_list((-result.compliance[failing]).tolist(), "V")
     names = tree.mirrors
     out = _Pairs([], [], [], [])
     for j, i in enumerate(failing.tolist()):
@@ -371,7 +371,7 @@ def _deciding_terms(result: Audit, failing: np.ndarray) -> tuple[np.ndarray, lis
 def _lines(passed: np.ndarray, budget: np.ndarray, compliance: np.ndarray, headroom: np.ndarray,
            error: np.ndarray, tolerance: np.ndarray) -> list[str]:
     """'would pass: error … (budget ±… %), compliance margin …' per outcome, in bulk."""
-    margin = format_si_array(compliance, "V")
+    margin = format_si_list(np.asarray(compliance, dtype=float).tolist(), "V")
     out = []
     for ok, over, c, head, err, tol, cm in zip(passed.tolist(), budget.tolist(), compliance.tolist(),
                                                headroom.tolist(), error.tolist(), tolerance.tolist(), margin):
